@@ -136,7 +136,10 @@ class Store:
             self._db.execute(f"PRAGMA synchronous={synchronous}")
             self._db.execute(f"PRAGMA busy_timeout={int(timeout_s * 1000)}")
             self._db.executescript(_SCHEMA)
-            self._db.execute("INSERT OR IGNORE INTO meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),))
+            # Write only when missing: an INSERT needs the write lock, so opening a second
+            # connection (a reader) while an import holds a transaction would wait and fail.
+            if self._db.execute("SELECT 1 FROM meta WHERE key = 'schema_version'").fetchone() is None:
+                self._db.execute("INSERT OR IGNORE INTO meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),))
         except sqlite3.DatabaseError as exc:
             raise StoreError(f"{self.path}: cannot open the store ({exc}); is it a drawdown store?") from exc
         self._depth = 0

@@ -84,6 +84,10 @@ def _parser() -> argparse.ArgumentParser:
     s.add_argument("--columns", default=None,
                    help="fixed column order for headerless csv lines, e.g. 'voltage_V,current_A'")
     s.add_argument("--duration", type=float, default=None, help="stop after this many seconds")
+    s.add_argument("--line-ending", choices=["any", "lf", "crlf", "cr"], default="any",
+                   help="serial line terminator (default: any of CR, LF, CR LF)")
+    s.add_argument("--keep-full-days", type=float, default=None, metavar="N",
+                   help="keep N days at full resolution; older live readings become 1-minute summaries")
 
     s = sub.add_parser("serve", help="the dashboard")
     s.add_argument("--host", default="127.0.0.1")

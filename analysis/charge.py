@@ -1,0 +1,434 @@
+"""Coulomb counting and state of charge, re-run over the whole history.
+
+The SoC update (FIELDREF §2) is::
+
+    SoC_k = SoC_{k-1} + dt_h * (eta_c * I+ - I_eff-) / C_ref
+
+integrated with the trapezoid rule over irregular timestamps. Charge current
+is scaled by the charge (Ah) efficiency ``eta_c``; discharge current is
+replaced by the Peukert-corrected current (analysis.peukert, clamped so that
+``I_eff >= |I|``). Nothing is integrated across a gap (an interval longer than
+~5 median intervals, analysis.readings): its charge is unknown and counted as 0.
+
+*Anchors* are moments of known SoC:
+
+* **full-charge resync** (common practice): voltage >= the charged threshold
+  and 0 <= current <= the tail current, held for ``detection_time_s``; SoC := 100 %.
+* **OCV anchor**: after a rest (|I| ~ 0) of >= 4 h for lead-acid (>= 2 h for
+  LiFePO4), the rested voltage gives SoC via analysis.ocv; for LiFePO4 only
+  near its knees.
+
+Between anchors the SoC is the anchor value plus the counted charge, held at
+100 % while charging past full (the reflected, i.e. clamped, running sum is
+computed with ``np.maximum.accumulate``, no Python loop). Before the first
+anchor the SoC is back-calculated from it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+import pandas as pd
+
+from analysis import ocv as ocv_mod
+from analysis.peukert import effective_current
+from analysis.readings import US_PER_S, Channel, gap_mask, gap_threshold_s
+from analysis.system import System
+
+#: One-sigma uncertainty of a full-charge resync [fraction of capacity] (common practice: ~ 2-3 %;
+#: a tail-current criterion fires a little before the bank is truly full).
+FULL_SIGMA: float = 0.03
+#: Discharge (fraction of rated capacity) that re-arms the full-charge detector.
+REARM_FRACTION: float = 0.02
+#: One-sigma uncertainty of a quasi-OCV (low-current night) anchor [fraction].
+QUASI_SIGMA: float = 0.06
+
+
+@dataclass(frozen=True)
+class Anchor:
+    """A moment of known state of charge.
+
+    Attributes
+    ----------
+    index : sample index in the battery channel
+    t_us : UTC time [microseconds since 1970]
+    soc_pct : the known SoC [%]
+    kind : 'full' (full-charge resync), 'ocv' (rested open-circuit voltage), 'quasi-ocv'
+        (low-current night voltage, lead-acid; used for capacity only, never to reset SoC)
+    sigma : one-sigma uncertainty of ``soc_pct`` [fraction, 0-1]
+    end_index : for 'full', the last sample at which the bank still met the full-charge
+        conditions (the best start for a discharge measured from full); else ``index``
+    """
+
+    index: int
+    t_us: int
+    soc_pct: float
+    kind: str
+    sigma: float
+    end_index: int = -1
+
+    @property
+    def last_index(self) -> int:
+        return self.end_index if self.end_index >= 0 else self.index
+
+    @property
+    def time(self) -> pd.Timestamp:
+        return pd.Timestamp(self.t_us, unit="us", tz="UTC")
+
+
+@dataclass(frozen=True)
+class SocResult:
+    """State of charge over a battery channel's history.
+
+    Attributes
+    ----------
+    t_us : sample times [int64 us, UTC]
+    soc : state of charge [%] per sample (float32)
+    anchors : every anchor used, in time order
+    capacity_Ah : the reference capacity the SoC is relative to [Ah]
+    charge_Ah : cumulative Peukert/efficiency-corrected charge since the first sample [Ah]
+    gaps : boolean per interval, True where nothing was integrated
+    start : how the SoC before the first anchor was set ('back-calculated from the first anchor',
+        'device SoC', 'assumed full')
+    """
+
+    t_us: np.ndarray
+    soc: np.ndarray
+    anchors: tuple[Anchor, ...]
+    capacity_Ah: float
+    charge_Ah: np.ndarray = field(repr=False)
+    gaps: np.ndarray = field(repr=False)
+    start: str = ""
+    quasi_anchors: tuple[Anchor, ...] = ()
+
+    @property
+    def capacity_anchors(self) -> tuple[Anchor, ...]:
+        """Anchors usable for capacity: resets plus quasi-OCV anchors, in time order."""
+        return tuple(sorted(self.anchors + self.quasi_anchors, key=lambda a: a.index))
+
+    @property
+    def soc_pct(self) -> pd.Series:
+        """SoC [%] as a Series on a UTC DatetimeIndex."""
+        idx = pd.DatetimeIndex(self.t_us.view("M8[us]")).tz_localize("UTC")
+        return pd.Series(self.soc, index=idx, name="soc_pct")
+
+    @property
+    def resync_times(self) -> list[pd.Timestamp]:
+        """Times of the full-charge resyncs (SoC set to 100 %)."""
+        return [a.time for a in self.anchors if a.kind == "full"]
+
+    def with_capacity(self, capacity_Ah: float) -> SocResult:
+        """The same history re-run against another reference capacity (cheap: no re-integration)."""
+        soc = soc_from_anchors(self.charge_Ah, self.anchors, capacity_Ah, start_soc_pct=None)
+        return replace(self, soc=soc, capacity_Ah=float(capacity_Ah))
+
+
+def trapezoid_increments(t_us: np.ndarray, current_A: np.ndarray, *,
+                         gaps: np.ndarray | None = None) -> np.ndarray:
+    """Charge moved in each sampling interval by the trapezoid rule [Ah] (length n-1).
+
+    NaN currents and gap intervals contribute 0 (unknown, not guessed).
+
+    Parameters
+    ----------
+    t_us : sample times [int64 us], increasing
+    current_A : current at each sample [A]
+    gaps : optional boolean per interval; True intervals are not integrated
+    """
+    if len(t_us) < 2:
+        return np.zeros(0)
+    out = np.add(current_A[1:], current_A[:-1])
+    out *= np.diff(t_us) * (0.5 / (US_PER_S * 3600.0))
+    if gaps is not None:
+        out[gaps] = 0.0
+    np.nan_to_num(out, copy=False, nan=0.0)
+    return out
+
+
+def coulomb_count_Ah(t: pd.Series | pd.DatetimeIndex | np.ndarray, current_A: np.ndarray, *,
+                     max_gap_s: float | None = None) -> float:
+    """Net charge over a record by the trapezoid rule [Ah], skipping gaps.
+
+    Parameters
+    ----------
+    t : sample times (tz-aware datetimes, or float seconds)
+    current_A : current [A], positive into the bank
+    max_gap_s : intervals longer than this are not integrated (default: 5 median intervals)
+    """
+    if isinstance(t, np.ndarray) and np.issubdtype(t.dtype, np.floating):
+        t_us = np.round(t * US_PER_S).astype(np.int64)
+    else:
+        t_us = pd.DatetimeIndex(t).as_unit("us").asi8
+    cur = np.asarray(current_A, dtype=float)
+    g = gap_mask(t_us, threshold_s=max_gap_s if max_gap_s is not None else gap_threshold_s(t_us))
+    return float(trapezoid_increments(t_us, cur, gaps=g).sum())
+
+
+def corrected_current_A(current_A: np.ndarray, *, charge_efficiency: float, rated_current_A: float,
+                        peukert_k: float) -> np.ndarray:
+    """Current as it changes the state of charge [A]: eta*I on charge, -I_eff on discharge."""
+    out = np.where(current_A > 0, current_A * charge_efficiency, 0.0)
+    dis = current_A < 0
+    if peukert_k == 1.0:
+        out[dis] = current_A[dis]
+    else:
+        out[dis] = -effective_current(current_A[dis], rated_current_A, peukert_k)
+    return out
+
+
+def _runs(cond: np.ndarray, t_us: np.ndarray, breaks: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Start and end (inclusive) sample index of each run of True in ``cond``.
+
+    A run is also broken at intervals flagged in ``breaks`` (gaps, length n-1).
+    """
+    n = len(cond)
+    if n == 0:
+        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    start = cond.copy()
+    start[1:] &= ~cond[:-1] | breaks
+    end = cond.copy()
+    end[:-1] &= ~cond[1:] | breaks
+    return np.flatnonzero(start), np.flatnonzero(end)
+
+
+def detect_full_charges(ch: Channel, system: System, gaps: np.ndarray,
+                        charge_Ah: np.ndarray | None = None) -> list[Anchor]:
+    """Full-charge resyncs: V >= charged threshold, 0 <= I <= tail, for detection_time_s.
+
+    A resync re-arms only after the bank has given up at least ``REARM_FRACTION``
+    of its rated capacity (counted) since the previous one; a qualifying run
+    before that extends the previous resync's ``end_index`` instead (the bank
+    is still full, e.g. solar on and off through a sunny afternoon).
+    """
+    b = system.battery
+    v, i = ch.voltage_V, ch.current_A
+    if len(ch) < 2 or not np.isfinite(v).any():
+        return []
+    cond = (v >= b.effective_charged_voltage_V) & (i >= 0.0) & (i <= b.effective_tail_current_A)
+    starts, ends = _runs(cond, ch.t_us, gaps)
+    if len(starts) == 0:
+        return []
+    need_us = b.detection_time_s * US_PER_S
+    long_ = (ch.t_us[ends] - ch.t_us[starts]) >= need_us
+    out: list[Anchor] = []
+    rearm_Ah = REARM_FRACTION * b.rated_capacity_Ah
+    for s, e in zip(starts[long_], ends[long_]):  # loop over qualifying runs (events)
+        # The resync fires the first moment the conditions have held for the detection time.
+        k = int(np.searchsorted(ch.t_us, ch.t_us[s] + need_us, side="left"))
+        if out and charge_Ah is not None:
+            prev = out[-1]
+            lo = prev.last_index
+            if charge_Ah[lo:k + 1].min() > charge_Ah[lo] - rearm_Ah:
+                out[-1] = replace(prev, end_index=int(e))
+                continue
+        out.append(Anchor(k, int(ch.t_us[k]), 100.0, "full", FULL_SIGMA, int(e)))
+    return out
+
+
+def detect_ocv_anchors(ch: Channel, system: System, gaps: np.ndarray) -> list[Anchor]:
+    """Rested open-circuit-voltage anchors (lead-acid anywhere, LiFePO4 only at its knees)."""
+    b = system.battery
+    v, i = ch.voltage_V, ch.current_A
+    if len(ch) < 2 or not np.isfinite(v).any():
+        return []
+    # "At rest": |I| below 0.2 % of C (>= 0.1 A), a trade rule of thumb for a rested bank.
+    rest_A = max(0.1, 0.002 * b.rated_capacity_Ah)
+    cond = np.abs(i) <= rest_A
+    starts, ends = _runs(cond, ch.t_us, gaps)
+    if len(starts) == 0:
+        return []
+    need_us = ocv_mod.MIN_REST_S[b.chemistry] * US_PER_S
+    long_ = (ch.t_us[ends] - ch.t_us[starts]) >= need_us
+    out = []
+    for s, e in zip(starts[long_], ends[long_]):
+        # Read the most relaxed voltage: the median of the rest's last 10 minutes.
+        lo = int(np.searchsorted(ch.t_us, ch.t_us[e] - 600 * US_PER_S, side="left"))
+        volt = float(np.nanmedian(v[lo:e + 1]))
+        if not np.isfinite(volt):
+            continue
+        soc = float(ocv_mod.soc_from_ocv(volt, b.chemistry, b.nominal_voltage_V))
+        if not ocv_mod.trusted(soc, b.chemistry):
+            continue
+        out.append(Anchor(int(e), int(ch.t_us[e]), soc, "ocv", ocv_mod.OCV_SIGMA[b.chemistry]))
+    return out
+
+
+def detect_quasi_ocv_anchors(ch: Channel, system: System, gaps: np.ndarray,
+                             *, internal_resistance_ohm: float | None = None) -> list[Anchor]:
+    """Low-current voltage anchors for capacity (lead-acid anywhere, LiFePO4 at its low knee).
+
+    A van or truck is rarely at true rest (a fridge cycles all night), but
+    after three hours without charging (nor in the next half hour) and with a small mean draw (<= 2 % C per
+    hour) the bank is close to relaxed; at a sample drawing <= 0.2 % C the
+    terminal voltage plus the ohmic drop ``|I| R`` approximates the OCV. The
+    SoC from it is noisier than a true rest (sigma ~ 6 %), so these anchors
+    only enter the capacity fit, never reset the SoC. One per 6 h at most.
+    """
+    b = system.battery
+    v, i = ch.voltage_V, ch.current_A
+    if len(ch) < 3 or not np.isfinite(v).any():
+        return []
+    cap = b.rated_capacity_Ah
+    r_ohm = internal_resistance_ohm if internal_resistance_ohm else 0.01 * ocv_mod.blocks(b.chemistry,
+                                                                                         b.nominal_voltage_V)
+    cur = np.nan_to_num(i, nan=0.0)
+    dt_h = np.diff(ch.t_us) / (US_PER_S * 3600.0)
+    # Running integrals to get 2-hour windows with searchsorted (vectorised).
+    absq = np.concatenate(([0.0], np.cumsum(np.abs(cur[:-1]) * dt_h)))
+    chg = np.concatenate(([0.0], np.cumsum(np.where(cur[:-1] > 0.1, dt_h, 0.0))))
+    gapc = np.concatenate(([0], np.cumsum(gaps, dtype=np.int64)))
+    # Lead-acid relaxes slowly (>= 3 h used here); LiFePO4 in 1-3 h (Voicila 2025): 1.5 h.
+    win_us = int((1.5 if b.chemistry == "lifepo4" else 3.0) * 3600 * US_PER_S)
+    lo = np.searchsorted(ch.t_us, ch.t_us - win_us, side="left")
+    # ... and no charging in the next 30 min either (a sunrise or a charger about to start).
+    hi = np.minimum(np.searchsorted(ch.t_us, ch.t_us + 1800 * US_PER_S, side="right") - 1, len(ch) - 1)
+    full_window = (ch.t_us - ch.t_us[lo]) >= 0.95 * win_us
+    hours = np.maximum((ch.t_us - ch.t_us[lo]) / (US_PER_S * 3600.0), 1e-9)
+    mean_abs = (absq - absq[lo]) / hours
+    cand = (full_window & (mean_abs <= 0.02 * cap) & ((chg[hi] - chg[lo]) == 0) & ((gapc - gapc[lo]) == 0)
+            & (cur <= 0.0) & (cur >= -max(0.1, 0.002 * cap)) & np.isfinite(v))
+    idx = np.flatnonzero(cand)
+    if len(idx) == 0:
+        return []
+    # One per 6-hour block: the latest candidate in each (most relaxed).
+    block = (ch.t_us[idx] // int(6 * 3600 * US_PER_S))
+    last = np.flatnonzero(np.diff(block, append=block[-1] + 1) != 0)
+    idx = idx[last]
+    ocv_v = v[idx] + np.abs(cur[idx]) * r_ohm
+    soc = ocv_mod.soc_from_ocv(ocv_v, b.chemistry, b.nominal_voltage_V)
+    keep = ocv_mod.trusted(soc, b.chemistry) if b.chemistry != "lifepo4" else soc <= 15.0
+    return [Anchor(int(k), int(ch.t_us[k]), float(sv), "quasi-ocv", QUASI_SIGMA)
+            for k, sv, ok in zip(idx, soc, keep) if ok]
+
+
+def soc_from_anchors(charge_Ah: np.ndarray, anchors: tuple[Anchor, ...] | list[Anchor], capacity_Ah: float,
+                     *, start_soc_pct: float | None) -> np.ndarray:
+    """SoC [%] per sample from cumulative corrected charge and anchors (vectorised).
+
+    Between anchors: ``SoC = SoC_anchor + 100 (Q - Q_anchor) / C``, reflected at
+    100 % (charging past full does not raise SoC above 100 %) using the
+    Skorokhod form ``x - max(0, running_max(x - 100))`` per segment. Before
+    the first anchor the SoC is back-calculated from it; with no anchor at
+    all it starts at ``start_soc_pct``. The result is clipped to [0, 100].
+    """
+    n = len(charge_Ah)
+    if n == 0:
+        return np.zeros(0, dtype=np.float32)
+    scale = 100.0 / capacity_Ah
+    if not anchors:
+        x = charge_Ah * scale
+        x += 100.0 if start_soc_pct is None else start_soc_pct
+        excess = np.maximum(x - 100.0, 0.0)
+        np.maximum.accumulate(excess, out=excess)
+        x -= excess
+        return np.clip(x, 0.0, 100.0).astype(np.float32)
+    idx = np.array([a.index for a in anchors], dtype=np.int64)
+    val = np.array([a.soc_pct for a in anchors])
+    marks = np.zeros(n, dtype=np.int32)
+    np.add.at(marks, idx, 1)
+    seg = np.cumsum(marks, dtype=np.int32)
+    seg -= 1  # -1 before the first anchor
+    segc = np.maximum(seg, 0)
+    # Anchor k's position in 'idx' for a segment number: several anchors at one sample collapse,
+    # the last one wins (its segment number is the highest).
+    seg_at_idx = seg[idx]
+    base_q = np.empty(int(seg.max()) + 1)
+    base_v = np.empty_like(base_q)
+    base_q[seg_at_idx] = charge_Ah[idx]
+    base_v[seg_at_idx] = val
+    x = charge_Ah - base_q[segc]
+    x *= scale
+    x += base_v[segc]
+    excess = np.maximum(x - 100.0, 0.0)
+    excess[seg < 0] = 0.0
+    big = float(excess.max()) + 1.0
+    excess += segc * big
+    np.maximum.accumulate(excess, out=excess)
+    excess -= segc * big
+    x -= excess
+    np.clip(x, 0.0, 100.0, out=x)
+    return x.astype(np.float32)
+
+
+def state_of_charge(battery: Channel | pd.DataFrame, system: System, *, capacity_Ah: float | None = None,
+                    peukert_k: float | None = None, max_gap_s: float | None = None,
+                    use_ocv: bool = True) -> SocResult:
+    """State of charge over the whole history of the bank's (net) battery channel.
+
+    Parameters
+    ----------
+    battery : the battery channel, as a :class:`analysis.readings.Channel` or a frame with a
+        UTC ``t`` column (or UTC DatetimeIndex) and ``current_A``/``voltage_V`` [A, V]
+    system : the system description (chemistry defaults and overrides)
+    capacity_Ah : reference capacity [Ah] (default: the rated capacity)
+    peukert_k : Peukert exponent (default: the system's effective value)
+    max_gap_s : longest interval still integrated [s] (default: 5 median intervals)
+    use_ocv : also anchor on rested open-circuit voltage
+
+    Returns
+    -------
+    SocResult
+    """
+    ch = battery if isinstance(battery, Channel) else _channel_from_frame(battery)
+    b = system.battery
+    cap = float(capacity_Ah if capacity_Ah is not None else b.rated_capacity_Ah)
+    k = float(peukert_k if peukert_k is not None else b.effective_peukert_k)
+    thr = max_gap_s if max_gap_s is not None else gap_threshold_s(ch.t_us)
+    gaps = gap_mask(ch.t_us, threshold_s=thr) if len(ch) > 1 else np.zeros(0, dtype=bool)
+    cur = np.nan_to_num(ch.current_A, nan=0.0)
+    corr = corrected_current_A(cur, charge_efficiency=b.effective_charge_efficiency,
+                               rated_current_A=b.rated_current_A, peukert_k=k)
+    inc = trapezoid_increments(ch.t_us, corr, gaps=gaps)
+    del corr
+    q = np.empty(len(ch))
+    if len(ch):
+        q[0] = 0.0
+        np.cumsum(inc, out=q[1:])
+    del inc
+    anchors = detect_full_charges(ch, system, gaps, q)
+    if use_ocv:
+        anchors += detect_ocv_anchors(ch, system, gaps)
+    anchors.sort(key=lambda a: a.index)
+    quasi = tuple(detect_quasi_ocv_anchors(ch, system, gaps)) if use_ocv else ()
+    start = "back-calculated from the first anchor"
+    start_soc = None
+    if not anchors:
+        dev = ch.soc_pct[np.isfinite(ch.soc_pct)][:1]
+        if len(dev):
+            start_soc, start = float(np.clip(dev[0], 0, 100)), "device SoC at the first sample"
+        else:
+            start_soc, start = 100.0, "assumed full (no anchor and no device SoC)"
+    soc = soc_from_anchors(q, anchors, cap, start_soc_pct=start_soc)
+    return SocResult(ch.t_us, soc, tuple(anchors), cap, q, gaps, start, quasi)
+
+
+def device_disagreement_pct(soc: np.ndarray, device_soc_pct: np.ndarray, day: np.ndarray,
+                            n_days: int) -> np.ndarray:
+    """Mean absolute difference between our SoC and the device's own, per day [%] (NaN: no device SoC)."""
+    ok = np.isfinite(device_soc_pct) & (day >= 0) & (day < n_days)
+    if not ok.any():
+        return np.full(n_days, np.nan)
+    diff = np.abs(soc[ok].astype(float) - device_soc_pct[ok])
+    s = np.bincount(day[ok], weights=diff, minlength=n_days)
+    c = np.bincount(day[ok], minlength=n_days)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(c > 0, s / np.maximum(c, 1), np.nan)
+
+
+def _channel_from_frame(frame: pd.DataFrame) -> Channel:
+    if "t" in frame.columns:
+        t = pd.DatetimeIndex(frame["t"])
+    else:
+        t = pd.DatetimeIndex(frame.index)
+    if t.tz is None:
+        raise ValueError("battery frame times must be timezone-aware (UTC)")
+    t_us = t.tz_convert("UTC").as_unit("us").asi8.astype(np.int64)
+    n = len(frame)
+
+    def col(name: str) -> np.ndarray:
+        return frame[name].to_numpy(dtype=float, na_value=np.nan) if name in frame.columns else np.full(n, np.nan)
+
+    order = np.argsort(t_us, kind="stable")
+    return Channel("battery", t_us[order], col("current_A")[order], col("voltage_V")[order],
+                   col("temperature_C")[order], col("soc_pct")[order])

@@ -1,0 +1,562 @@
+"""The daily energy ledger: consumed and charged (by source) Ah and Wh per local calendar day.
+
+Two situations occur in the field:
+
+**Several channels** (a bank shunt plus charge-source and/or load shunts). The
+balance at the bank is ``I_battery = sum(sources) + other - load``, so the gross
+load is ``sum(measured sources) - net battery current``. A *persistent*
+positive residual ``load_measured - gross`` (the bank gains charge no
+measured source delivered) is an unmeasured source, reported as ``other``
+rather than as a negative load.
+
+**A single shunt** (the battery channel only). Load is hidden whenever a
+source charges. A load model is fitted with statsmodels on the periods that
+cannot be charging (hour-of-day harmonics, day type, temperature where
+logged), predicted during charging periods with a 95 % prediction interval,
+and the gross charge is ``net + predicted load``. That charge is attributed to
+sources by signature: a flat, current-limited plateau that switches on and off
+with a step is a charger or an alternator (``alternator`` when it is daytime
+and short, ``shore`` when long or at night); charge that follows the sun is
+solar. Every day carries a confidence (0-1) for the split.
+
+Days are the system's local calendar days (``site.timezone``). A day is
+*complete* when its channels cover it from midnight to midnight without a gap.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from analysis.charge import SocResult, device_disagreement_pct, state_of_charge, trapezoid_increments
+from analysis.readings import (US_PER_S, Channel, Gap, day_index, find_gaps, gap_mask, gap_threshold_s,
+                               local_day_bounds, median_interval_s, split_channels)
+from analysis.system import System
+
+SOURCES: tuple[str, ...] = ("solar", "alternator", "shore", "other")
+LEDGER_COLUMNS: tuple[str, ...] = (
+    "date", "complete", "consumed_Ah", "consumed_Wh",
+    *(f"charged_Ah_{s}" for s in SOURCES), *(f"charged_Wh_{s}" for s in SOURCES),
+    "soc_min_pct", "soc_end_pct", "mean_temperature_C", "driving_h",
+)
+_H_PER_US = 1.0 / (US_PER_S * 3600.0)
+
+
+@dataclass(frozen=True)
+class LoadModel:
+    """The single-shunt load model (statsmodels WLS on non-charging periods)."""
+
+    terms: tuple[str, ...]
+    params: tuple[float, ...]
+    r_squared: float
+    n_bins: int
+    residual_sd_A: float
+    bin_s: float
+
+    def to_json(self) -> dict:
+        return {"terms": list(self.terms), "params": [round(p, 5) for p in self.params],
+                "r_squared": round(self.r_squared, 4), "training_bins": self.n_bins,
+                "residual_sd_A": round(self.residual_sd_A, 4), "bin_s": self.bin_s}
+
+
+@dataclass(frozen=True)
+class LedgerResult:
+    """Everything the ledger found, for the report and the dashboard.
+
+    Attributes
+    ----------
+    days : one row per local date (columns :data:`LEDGER_COLUMNS` plus extras:
+        attribution_confidence, consumed_Ah_pi95_lo/hi, device_soc_diff_pct, gap_s)
+    mode : 'multi-channel', 'single-shunt' or 'load channel only'
+    gaps : every gap found on the channels used
+    solar_current_A : attributed solar current (single shunt) on a UTC index, else None
+    load_model : the single-shunt load model, else None
+    soc : the state of charge used for soc_min/soc_end, if a battery channel exists
+    """
+
+    days: pd.DataFrame
+    mode: str
+    gaps: tuple[Gap, ...]
+    solar_current_A: pd.Series | None = None
+    load_model: LoadModel | None = None
+    soc: SocResult | None = None
+    notes: tuple[str, ...] = ()
+    bounds_us: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64), repr=False)
+
+
+def daily_ledger(readings: pd.DataFrame, system: System) -> pd.DataFrame:
+    """One row per local calendar day: consumed and charged-by-source Ah/Wh, SoC, completeness.
+
+    Parameters
+    ----------
+    readings : canonical long frame (collector.canonical)
+    system : system description
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``date`` (datetime.date), ``complete`` (bool), ``consumed_Ah``,
+        ``consumed_Wh``, ``charged_Ah_{solar,alternator,shore,other}``,
+        ``charged_Wh_{...}``, ``soc_min_pct``, ``soc_end_pct``,
+        ``mean_temperature_C``, ``driving_h`` (hours with alternator charging), plus extras.
+    """
+    return compute_ledger(split_channels(readings), system).days
+
+
+# -- helpers ----------------------------------------------------------------------------------
+
+def _day_sum(t_us: np.ndarray, inc: np.ndarray, bounds_us: np.ndarray) -> np.ndarray:
+    """Sum per-interval increments into local days (interval assigned to its start)."""
+    n_days = len(bounds_us) - 1
+    if len(inc) == 0:
+        return np.zeros(n_days)
+    d = day_index(t_us[:-1], bounds_us)
+    np.clip(d, 0, n_days - 1, out=d)
+    return np.bincount(d, weights=inc, minlength=n_days)[:n_days]
+
+
+def _coverage(ch: Channel, bounds_us: np.ndarray, thr_s: float, gaps: np.ndarray) -> np.ndarray:
+    """True for days the channel covers midnight to midnight with no gap."""
+    n_days = len(bounds_us) - 1
+    tol = thr_s * US_PER_S
+    ok = (ch.t_us[0] <= bounds_us[:-1] + tol) & (ch.t_us[-1] >= bounds_us[1:] - tol)
+    gi = np.flatnonzero(gaps)
+    if len(gi):
+        d0 = np.clip(day_index(ch.t_us[gi], bounds_us), 0, n_days - 1)
+        d1 = np.clip(day_index(ch.t_us[gi + 1] - 1, bounds_us), 0, n_days - 1)
+        diff = np.zeros(n_days + 1, dtype=np.int64)
+        np.add.at(diff, d0, 1)
+        np.add.at(diff, d1 + 1, -1)
+        ok &= np.cumsum(diff)[:n_days] == 0
+    return ok
+
+
+def _interp_on(t_target: np.ndarray, ch: Channel, values: np.ndarray, gaps: np.ndarray) -> tuple[np.ndarray,
+                                                                                                np.ndarray]:
+    """A channel's values at other times (linear), and a mask of target times the channel cannot vouch for."""
+    if len(ch.t_us) == len(t_target) and np.array_equal(ch.t_us, t_target):
+        return np.nan_to_num(values, nan=0.0), gaps_to_samples(gaps, len(t_target))
+    out = np.interp(t_target, ch.t_us, np.nan_to_num(values, nan=0.0), left=0.0, right=0.0)
+    pos = np.searchsorted(ch.t_us, t_target, side="right")
+    inside = (pos > 0) & (pos < len(ch.t_us))
+    bad = np.zeros(len(t_target), dtype=bool)
+    if gaps.any():
+        bad[inside] = gaps[pos[inside] - 1]
+    return out, bad
+
+
+def gaps_to_samples(gaps: np.ndarray, n: int) -> np.ndarray:
+    """Per-sample mask: a sample touching a gap interval (either side)."""
+    bad = np.zeros(n, dtype=bool)
+    if gaps.any():
+        bad[:-1] |= gaps
+        bad[1:] |= gaps
+    return bad
+
+
+def _bad_intervals(bad_samples: np.ndarray) -> np.ndarray:
+    return bad_samples[:-1] & bad_samples[1:]
+
+
+def sun_elevation_deg(t_us: np.ndarray, latitude_deg: float, longitude_deg: float) -> np.ndarray:
+    """Solar elevation angle [deg] (NOAA general solar position equations, ~0.5 deg).
+
+    Uses the fractional-year Fourier series of Spencer (1971) for declination
+    and the equation of time, as given in NOAA's "General Solar Position
+    Calculations" note; accurate enough to tell day from night and to shape
+    the clear-sky solar signature.
+    """
+    t = t_us.astype(np.float64) / US_PER_S
+    days = t / 86400.0
+    doy = (days - np.floor((days + 0.0) / 365.2425) * 365.2425)  # approximate day of year
+    frac_h = (t % 86400.0) / 3600.0
+    g = 2 * np.pi / 365.0 * (doy + (frac_h - 12) / 24)
+    decl = (0.006918 - 0.399912 * np.cos(g) + 0.070257 * np.sin(g) - 0.006758 * np.cos(2 * g)
+            + 0.000907 * np.sin(2 * g) - 0.002697 * np.cos(3 * g) + 0.00148 * np.sin(3 * g))
+    eqt = 229.18 * (0.000075 + 0.001868 * np.cos(g) - 0.032077 * np.sin(g) - 0.014615 * np.cos(2 * g)
+                    - 0.040849 * np.sin(2 * g))
+    tst = frac_h * 60.0 + eqt + 4.0 * longitude_deg
+    ha = np.deg2rad(tst / 4.0 - 180.0)
+    lat = np.deg2rad(latitude_deg)
+    cz = np.sin(lat) * np.sin(decl) + np.cos(lat) * np.cos(decl) * np.cos(ha)
+    return np.rad2deg(np.arcsin(np.clip(cz, -1, 1)))
+
+
+# -- the ledger -------------------------------------------------------------------------------
+
+def compute_ledger(channels: dict[str, Channel], system: System, *, soc: SocResult | None = None) -> LedgerResult:
+    """The ledger from split channels (see :func:`daily_ledger`), with its by-products."""
+    bat = channels.get("battery")
+    sources = {s: channels[s] for s in ("solar", "alternator", "shore") if s in channels and len(channels[s]) > 1}
+    load = channels.get("load")
+    used = [c for c in [bat, load, *sources.values()] if c is not None and len(c) > 1]
+    if not used:
+        raise ValueError("no battery, load or charge-source channel with at least two readings "
+                         f"(channels present: {sorted(channels)})")
+    t0 = min(int(c.t_us[0]) for c in used)
+    t1 = max(int(c.t_us[-1]) for c in used)
+    bounds, dates = local_day_bounds(t0, t1, system.site.timezone)
+    n_days = len(dates)
+    cols: dict[str, np.ndarray] = {c: np.zeros(n_days) for c in LEDGER_COLUMNS[2:]}
+    complete = np.ones(n_days, dtype=bool)
+    gaps_all: list[Gap] = []
+    notes: list[str] = []
+    extras: dict[str, np.ndarray] = {"attribution_confidence": np.full(n_days, np.nan),
+                                     "consumed_Ah_pi95_lo": np.full(n_days, np.nan),
+                                     "consumed_Ah_pi95_hi": np.full(n_days, np.nan),
+                                     "device_soc_diff_pct": np.full(n_days, np.nan),
+                                     "gap_s": np.zeros(n_days)}
+    gmask: dict[str, np.ndarray] = {}
+    thr: dict[str, float] = {}
+    for c in used:
+        thr[c.name] = gap_threshold_s(c.t_us)
+        gmask[c.name] = gap_mask(c.t_us, threshold_s=thr[c.name])
+        complete &= _coverage(c, bounds, thr[c.name], gmask[c.name])
+        found = find_gaps(c, threshold_s=thr[c.name])
+        gaps_all.extend(found)
+        for gp in found:
+            extras["gap_s"] += _overlap_s(gp, bounds)
+    solar_series = None
+    model = None
+    nominal = system.battery.nominal_voltage_V
+    if bat is not None and len(bat) > 1:
+        if soc is None:
+            soc = state_of_charge(bat, system)
+        v_b = bat.voltage_V
+        if not np.isfinite(v_b).any():
+            v_b = np.full(len(bat), nominal)
+            notes.append("no battery voltage logged: Wh use the nominal voltage")
+        else:
+            v_b = pd.Series(v_b).ffill().bfill().to_numpy()
+        if sources or load is not None:
+            mode = "multi-channel"
+            _multi_channel(bat, v_b, sources, load, system, bounds, gmask, cols, notes)
+        else:
+            mode = "single-shunt"
+            solar_series, model = _single_shunt(bat, v_b, system, bounds, gmask["battery"], cols, extras, notes)
+        _soc_columns(bat, soc, bounds, cols)
+        extras["device_soc_diff_pct"] = device_disagreement_pct(
+            soc.soc, bat.soc_pct, day_index(bat.t_us, bounds), n_days)
+        if np.isfinite(bat.temperature_C).any():
+            cols["mean_temperature_C"] = _day_mean(bat.t_us, bat.temperature_C, bounds)
+        else:
+            cols["mean_temperature_C"][:] = np.nan
+    else:
+        mode = "load channel only" if load is not None else "sources only"
+        _multi_channel(None, None, sources, load, system, bounds, gmask, cols, notes)
+        cols["soc_min_pct"][:] = np.nan
+        cols["soc_end_pct"][:] = np.nan
+        cols["mean_temperature_C"][:] = np.nan
+        notes.append("no battery channel: no state of charge")
+    if mode == "multi-channel":
+        extras["attribution_confidence"][:] = 1.0  # measured on their own shunts
+    days = pd.DataFrame({"date": dates, "complete": complete, **cols, **extras})
+    return LedgerResult(days, mode, tuple(gaps_all), solar_series, model, soc, tuple(notes), bounds)
+
+
+def _overlap_s(gap: Gap, bounds: np.ndarray) -> np.ndarray:
+    lo = np.maximum(bounds[:-1], gap.start_us)
+    hi = np.minimum(bounds[1:], gap.end_us)
+    return np.maximum(hi - lo, 0) / US_PER_S
+
+
+def _day_mean(t_us: np.ndarray, values: np.ndarray, bounds: np.ndarray) -> np.ndarray:
+    n_days = len(bounds) - 1
+    ok = np.isfinite(values)
+    d = np.clip(day_index(t_us[ok], bounds), 0, n_days - 1)
+    s = np.bincount(d, weights=values[ok], minlength=n_days)[:n_days]
+    c = np.bincount(d, minlength=n_days)[:n_days]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(c > 0, s / np.maximum(c, 1), np.nan)
+
+
+def _soc_columns(bat: Channel, soc: SocResult, bounds: np.ndarray, cols: dict[str, np.ndarray]) -> None:
+    n_days = len(bounds) - 1
+    starts = np.searchsorted(bat.t_us, bounds[:-1], side="left")
+    ends = np.searchsorted(bat.t_us, bounds[1:], side="left")
+    has = ends > starts
+    cols["soc_min_pct"][:] = np.nan
+    cols["soc_end_pct"][:] = np.nan
+    if has.any():
+        s = starts[has]
+        cols["soc_min_pct"][has] = np.minimum.reduceat(soc.soc, s).astype(float)
+        cols["soc_end_pct"][has] = soc.soc[ends[has] - 1].astype(float)
+    del n_days
+
+
+def _multi_channel(bat: Channel | None, v_b: np.ndarray | None, sources: dict[str, Channel],
+                   load: Channel | None, system: System, bounds: np.ndarray, gmask: dict[str, np.ndarray],
+                   cols: dict[str, np.ndarray], notes: list[str]) -> None:
+    """Ledger columns when sources and/or a load are measured on their own shunts."""
+    nominal = system.battery.nominal_voltage_V
+    # 1. Each source on its own time grid: delivered Ah, Wh, driving hours.
+    for name, ch in sources.items():
+        cur = np.clip(np.nan_to_num(ch.current_A, nan=0.0), 0.0, None)
+        g = gmask[name]
+        cols[f"charged_Ah_{name}"] += _day_sum(ch.t_us, trapezoid_increments(ch.t_us, cur, gaps=g), bounds)
+        if np.isfinite(ch.voltage_V).any():
+            v = pd.Series(ch.voltage_V).ffill().bfill().to_numpy()
+        elif bat is not None and v_b is not None:
+            v = np.interp(ch.t_us, bat.t_us, v_b)
+        else:
+            v = np.full(len(ch), nominal)
+        cols[f"charged_Wh_{name}"] += _day_sum(ch.t_us, trapezoid_increments(ch.t_us, cur * v, gaps=g), bounds)
+        if name == "alternator":
+            on = (cur[:-1] > 0.5) & ~g
+            dt_h = np.diff(ch.t_us) * _H_PER_US
+            cols["driving_h"] += _day_sum(ch.t_us, np.where(on, dt_h, 0.0), bounds)
+    if bat is None:
+        if load is None:
+            return
+        cur = np.clip(-np.nan_to_num(load.current_A, nan=0.0), 0.0, None)
+        v = pd.Series(load.voltage_V).ffill().bfill().fillna(nominal).to_numpy()
+        cols["consumed_Ah"] += _day_sum(load.t_us, trapezoid_increments(load.t_us, cur, gaps=gmask["load"]), bounds)
+        cols["consumed_Wh"] += _day_sum(load.t_us, trapezoid_increments(load.t_us, cur * v, gaps=gmask["load"]),
+                                        bounds)
+        return
+    # 2. The balance on the battery's grid: gross load r = sum(sources) - net battery current.
+    n = len(bat)
+    bad = gaps_to_samples(gmask["battery"], n)
+    r = -np.nan_to_num(bat.current_A, nan=0.0)
+    for name, ch in sources.items():
+        s_on_b, s_bad = _interp_on(bat.t_us, ch, np.clip(np.nan_to_num(ch.current_A, nan=0.0), 0.0, None),
+                                   gmask[name])
+        r += s_on_b
+        bad |= s_bad
+    if load is not None:
+        l_on_b, l_bad = _interp_on(bat.t_us, load, np.clip(-np.nan_to_num(load.current_A, nan=0.0), 0.0, None),
+                                   gmask["load"])
+    else:
+        l_on_b, l_bad = np.zeros(n), np.zeros(n, dtype=bool)
+    bad_iv = _bad_intervals(bad)
+    # 3. Persistent positive residual (measured load - gross load) = an unmeasured source ("other").
+    other_day, other_wh = _other_source(bat, l_on_b - r, v_b, bad_iv, system, bounds)
+    cols["charged_Ah_other"] += other_day
+    cols["charged_Wh_other"] += other_wh
+    cols["consumed_Ah"] += _day_sum(bat.t_us, trapezoid_increments(bat.t_us, r, gaps=bad_iv), bounds) + other_day
+    cols["consumed_Wh"] += _day_sum(bat.t_us, trapezoid_increments(bat.t_us, r * v_b, gaps=bad_iv), bounds) \
+        + other_wh
+    del l_bad
+
+
+def _other_source(bat: Channel, resid_A: np.ndarray, v_b: np.ndarray, bad_iv: np.ndarray, system: System,
+                  bounds: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Unmeasured charging [Ah/day, Wh/day] from a residual that stays positive.
+
+    The residual is averaged over 1-minute bins; a bin counts as an unmeasured
+    source when its mean and the 5-bin rolling median both exceed a noise
+    threshold (0.3 A or 0.2 % of C), so shunt noise and timing skew between
+    channels are not booked as charge.
+    """
+    n_days = len(bounds) - 1
+    bin_s = max(60.0, math.ceil(median_interval_s(bat.t_us) / 60.0) * 60.0)
+    inc = trapezoid_increments(bat.t_us, resid_A, gaps=bad_iv)
+    inc_wh = trapezoid_increments(bat.t_us, resid_A * v_b, gaps=bad_iv)
+    b = ((bat.t_us[:-1] - bat.t_us[0]) // int(bin_s * US_PER_S)).astype(np.int64)
+    dt_h = np.where(bad_iv, 0.0, np.diff(bat.t_us) * _H_PER_US)
+    n_bins = int(b[-1]) + 1 if len(b) else 0
+    ah = np.bincount(b, weights=inc, minlength=n_bins)
+    wh = np.bincount(b, weights=inc_wh, minlength=n_bins)
+    hrs = np.bincount(b, weights=dt_h, minlength=n_bins)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean_a = np.where(hrs > 0, ah / np.maximum(hrs, 1e-12), 0.0)
+    thr = max(0.3, 0.002 * system.battery.rated_capacity_Ah)
+    rolled = pd.Series(mean_a).rolling(5, center=True, min_periods=1).median().to_numpy()
+    on = (mean_a > thr) & (rolled > thr)
+    if not on.any():
+        return np.zeros(n_days), np.zeros(n_days)
+    t_bin = bat.t_us[0] + (np.arange(n_bins) * bin_s * US_PER_S).astype(np.int64)
+    d = np.clip(day_index(t_bin, bounds), 0, n_days - 1)
+    return (np.bincount(d[on], weights=ah[on], minlength=n_days)[:n_days],
+            np.bincount(d[on], weights=wh[on], minlength=n_days)[:n_days])
+
+
+# -- single shunt ----------------------------------------------------------------------------
+
+def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndarray, gaps: np.ndarray,
+                  cols: dict[str, np.ndarray], extras: dict[str, np.ndarray], notes: list[str]
+                  ) -> tuple[pd.Series | None, LoadModel | None]:
+    """Load model, gross charge and source attribution from the battery channel alone."""
+    import statsmodels.api as sm
+
+    n_days = len(bounds) - 1
+    cap = system.battery.rated_capacity_Ah
+    bin_s = max(60.0, math.ceil(median_interval_s(bat.t_us) / 60.0) * 60.0)
+    bin_us = int(bin_s * US_PER_S)
+    cur = np.nan_to_num(bat.current_A, nan=0.0)
+    inc = trapezoid_increments(bat.t_us, cur, gaps=gaps)
+    dt_h = np.where(gaps, 0.0, np.diff(bat.t_us) * _H_PER_US)
+    b0 = bat.t_us[0] // bin_us
+    b = (bat.t_us[:-1] // bin_us - b0).astype(np.int64)
+    n_bins = int(b[-1]) + 1
+    hrs = np.bincount(b, weights=dt_h, minlength=n_bins)
+    ah = np.bincount(b, weights=inc, minlength=n_bins)
+    vw = np.bincount(b, weights=v_b[:-1] * dt_h, minlength=n_bins)
+    has_t = np.isfinite(bat.temperature_C).any()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        net = np.where(hrs > 0, ah / np.maximum(hrs, 1e-12), np.nan)
+        v_bin = np.where(hrs > 0, vw / np.maximum(hrs, 1e-12), np.nan)
+        if has_t:
+            tt = np.nan_to_num(bat.temperature_C[:-1], nan=np.nanmean(bat.temperature_C))
+            temp = np.bincount(b, weights=tt * dt_h, minlength=n_bins) / np.maximum(hrs, 1e-12)
+    covered = hrs * 3600.0 / bin_s
+    t_mid = (b0 + np.arange(n_bins)) * bin_us + bin_us // 2
+    local = pd.DatetimeIndex(t_mid.view("M8[us]")).tz_localize("UTC").tz_convert(system.site.timezone)
+    hour = np.asarray(local.hour + local.minute / 60.0, dtype=float)
+    weekend = np.asarray(local.dayofweek >= 5, dtype=float)
+    elev = sun_elevation_deg(t_mid, system.site.latitude_deg, system.site.longitude_deg)
+    solar_possible = bool(system.solar)
+    on_thr = max(0.2, 0.001 * cap)
+    charging = np.nan_to_num(net, nan=0.0) > on_thr
+    # Widen the charging mask by a few bins: a charger's turn-off and the solar shoulders.
+    widen = pd.Series(charging.astype(float)).rolling(5, center=True, min_periods=1).max().to_numpy() > 0
+    train = (covered >= 0.5) & ~widen & np.isfinite(net)
+    if solar_possible:
+        train &= elev < -3.0
+    load_obs = np.clip(-np.nan_to_num(net, nan=0.0), 0.0, None)
+    hours_seen = len(np.unique(np.floor(hour[train]))) if train.any() else 0
+    k_harm = int(min(3, hours_seen // 6))
+    terms = ["const"] + [f"{f}{k}h" for k in range(1, k_harm + 1) for f in ("sin", "cos")]
+    feats = [np.ones(n_bins)]
+    for k in range(1, k_harm + 1):
+        feats += [np.sin(2 * np.pi * k * hour / 24), np.cos(2 * np.pi * k * hour / 24)]
+    if train.any() and 0 < weekend[train].mean() < 1:
+        terms.append("weekend")
+        feats.append(weekend)
+    if has_t and train.any() and np.nanstd(temp[train]) > 0.5:
+        tc = np.nan_to_num(temp - np.nanmean(temp[train]), nan=0.0)
+        terms.append("temperature_C")
+        feats.append(tc)
+    X = np.column_stack(feats)
+    model = None
+    if train.sum() >= max(30, 3 * X.shape[1]):
+        fit = sm.WLS(load_obs[train], X[train], weights=covered[train]).fit()
+        pred_frame = fit.get_prediction(X).summary_frame(alpha=0.05)
+        pred = np.clip(pred_frame["mean"].to_numpy(), 0.0, None)
+        se_mean = pred_frame["mean_se"].to_numpy()
+        resid_sd = float(np.sqrt(fit.scale))
+        model = LoadModel(tuple(terms), tuple(float(p) for p in fit.params), float(fit.rsquared),
+                          int(train.sum()), resid_sd, bin_s)
+        # Keep predictions within what was seen: extrapolated harmonics must not run away.
+        hi = float(np.quantile(load_obs[train], 0.99))
+        np.clip(pred, 0.0, hi, out=pred)
+    else:
+        pred = np.full(n_bins, float(np.median(load_obs[train])) if train.any() else 0.0)
+        se_mean = np.full(n_bins, float(np.std(load_obs[train])) if train.any() else 0.0)
+        resid_sd = float(np.std(load_obs[train])) if train.any() else 0.0
+        notes.append("too few non-charging periods to fit the single-shunt load model; a constant was used")
+    observed = train | (~widen & ~(solar_possible & (elev >= -3.0)))
+    load_a = np.where(observed, load_obs, np.maximum(pred, load_obs))
+    load_a = np.where(np.isfinite(net), load_a, 0.0)
+    gross = np.clip(np.nan_to_num(net, nan=0.0) + load_a, 0.0, None)
+    d_bin = np.clip(day_index(t_mid - bin_us // 2, bounds), 0, n_days - 1)
+    cols["consumed_Ah"] += np.bincount(d_bin, weights=load_a * hrs, minlength=n_days)[:n_days]
+    cols["consumed_Wh"] += np.bincount(d_bin, weights=load_a * hrs * np.nan_to_num(v_bin, nan=0.0),
+                                       minlength=n_days)[:n_days]
+    # Prediction interval per day: model (mean) error fully correlated within the day,
+    # residual noise independent per hour-long block (fridge duty cycles are ~tens of minutes).
+    pred_h = np.where(observed, 0.0, hrs)
+    sum_se = np.bincount(d_bin, weights=se_mean * pred_h, minlength=n_days)[:n_days]
+    pred_hours = np.bincount(d_bin, weights=pred_h, minlength=n_days)[:n_days]
+    half = 1.96 * np.sqrt(sum_se ** 2 + resid_sd ** 2 * pred_hours * 1.0)
+    extras["consumed_Ah_pi95_lo"] = np.maximum(cols["consumed_Ah"] - half, 0.0)
+    extras["consumed_Ah_pi95_hi"] = cols["consumed_Ah"] + half
+    parts, conf = _attribute(gross, hrs, elev, hour, system, bin_s)
+    for name in SOURCES:
+        cols[f"charged_Ah_{name}"] += np.bincount(d_bin, weights=parts[name] * hrs, minlength=n_days)[:n_days]
+        cols[f"charged_Wh_{name}"] += np.bincount(
+            d_bin, weights=parts[name] * hrs * np.nan_to_num(v_bin, nan=0.0), minlength=n_days)[:n_days]
+    cols["driving_h"] += np.bincount(d_bin, weights=np.where(parts["alternator"] > 0.5, hrs, 0.0),
+                                     minlength=n_days)[:n_days]
+    total = sum(parts[s] * hrs for s in SOURCES)
+    w = np.bincount(d_bin, weights=total, minlength=n_days)[:n_days]
+    cw = np.bincount(d_bin, weights=total * conf, minlength=n_days)[:n_days]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        extras["attribution_confidence"] = np.where(w > 0, cw / np.maximum(w, 1e-12), np.nan)
+    idx = pd.DatetimeIndex(t_mid.view("M8[us]")).tz_localize("UTC")
+    return pd.Series(parts["solar"], index=idx, name="solar_current_A"), model
+
+
+def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.ndarray, system: System,
+               bin_s: float) -> tuple[dict[str, np.ndarray], np.ndarray]:
+    """Split gross charge current per bin into sources by signature; returns (parts [A], confidence 0-1).
+
+    Charging runs are contiguous bins with gross charge. Inside a run, a step
+    up followed by a step down (or the run's end) of at least
+    ``max(3 A, 25 % of the run's peak)`` bounds a *plateau*: a charger or
+    alternator, whose current is the excess over the baseline interpolated
+    across the plateau. Plateaus that are daytime and shorter than 4 h are the
+    alternator, others shore (a declared single charger type overrides).
+    The rest follows the sun (solar) when the sun is up, else ``other``.
+    """
+    n = len(gross)
+    parts = {s: np.zeros(n) for s in SOURCES}
+    conf = np.zeros(n)
+    declared = {c.source for c in system.charger}
+    thr = max(0.3, 0.0015 * system.battery.rated_capacity_Ah)
+    on = gross > thr
+    edge = np.diff(on.astype(np.int8), prepend=0, append=0)
+    starts = np.flatnonzero(edge == 1)
+    ends = np.flatnonzero(edge == -1)  # exclusive
+    sun = np.clip(np.sin(np.deg2rad(elev)), 0.0, None)
+    plateau_mask = np.zeros(n, dtype=bool)
+    charger = np.zeros(n)
+    label = np.empty(n, dtype=object)
+    for s, e in zip(starts, ends):  # loop over charging runs (events), not over log rows
+        g = gross[s:e]
+        if len(g) < 2:
+            continue
+        jump = max(3.0, 0.25 * float(g.max()))
+        ext = np.concatenate(([0.0], g, [0.0]))
+        dg = np.diff(ext)
+        ups = np.flatnonzero(dg >= jump)
+        downs = np.flatnonzero(dg <= -jump)
+        used_down = -1
+        for u in ups:
+            if u < used_down:
+                continue
+            later = downs[downs > u]
+            d = int(later[0]) if len(later) else len(g)
+            if (d - u) * bin_s < 300:  # shorter than 5 min: a load switching off, not a charger
+                continue
+            base_l = ext[u]
+            base_r = ext[d + 1] if d + 1 < len(ext) else 0.0
+            base = np.linspace(base_l, base_r, d - u)
+            seg = slice(s + u, s + d)
+            exc = np.clip(g[u:d] - base, 0.0, None)
+            charger[seg] = exc
+            plateau_mask[seg] = True
+            dur_h = (d - u) * bin_s / 3600.0
+            mid = s + (u + d) // 2
+            daytime = elev[mid] > 0 or 7 <= hour[mid] <= 21
+            if declared == {"alternator"}:
+                name = "alternator"
+            elif declared == {"shore"}:
+                name = "shore"
+            else:
+                name = "alternator" if (daytime and dur_h < 4.0) else "shore"
+            label[seg] = name
+            conf[seg] = 0.85 if len(later) else 0.65
+            used_down = d
+    for name in ("alternator", "shore"):
+        m = plateau_mask & (label == name)
+        parts[name][m] = charger[m]
+    rest = gross - charger
+    rest[~on] = 0.0
+    day = sun > 0.02
+    parts["solar"] = np.where(day, rest, 0.0)
+    parts["other"] = np.where(day, 0.0, rest)
+    # Confidence of the solar share: how well the day's solar follows sin(elevation).
+    dayno = np.floor((np.arange(n) * bin_s) / 86400.0).astype(np.int64)
+    sol = parts["solar"]
+    if sol.any():
+        df = pd.DataFrame({"d": dayno, "s": sol, "sun": sun})
+        corr = df.groupby("d").apply(lambda x: x["s"].corr(x["sun"]) if x["s"].std() > 0 else np.nan,
+                                     include_groups=False)
+        c = np.clip(np.nan_to_num(corr.reindex(np.arange(dayno.max() + 1)).to_numpy(), nan=0.3), 0.3, 0.95)
+        conf = np.where(parts["solar"] > 0, np.maximum(conf, c[dayno]), conf)
+    conf = np.where(parts["other"] > 0, np.maximum(conf, 0.3), conf)
+    return parts, conf

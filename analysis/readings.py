@@ -1,0 +1,202 @@
+"""Per-channel arrays out of the canonical long frame; sample interval; gaps.
+
+The canonical frame (collector.canonical) is *long*: one row per (time,
+channel), ordered by channel then time when it comes from the store. Analysis
+works on one channel at a time as plain numpy arrays (time as int64
+microseconds since 1970, UTC), which keeps a year at 1 Hz within memory: a
+channel's arrays are views of the frame's columns whenever the frame is
+ordered, never copies.
+
+A *gap* is a sampling interval longer than ``GAP_FACTOR`` times the channel's
+median interval (and at least ``MIN_GAP_S``). Nothing is integrated across a
+gap: its energy is unknown, it is reported, and a local day that contains one
+is not *complete*.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+GAP_FACTOR: float = 5.0
+MIN_GAP_S: float = 5.0
+US_PER_S: float = 1e6
+
+
+@dataclass(frozen=True)
+class Channel:
+    """One channel's readings as arrays (all the same length, sorted by time).
+
+    Attributes
+    ----------
+    name : channel name
+    t_us : UTC time [int64 microseconds since 1970]
+    current_A, voltage_V, temperature_C, soc_pct : float arrays, NaN when not measured
+    """
+
+    name: str
+    t_us: np.ndarray
+    current_A: np.ndarray
+    voltage_V: np.ndarray
+    temperature_C: np.ndarray
+    soc_pct: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.t_us)
+
+    def has(self, column: str) -> bool:
+        """True when the column holds at least one value."""
+        arr = getattr(self, column)
+        return bool(len(arr)) and bool(np.isfinite(arr).any())
+
+    def frame(self) -> pd.DataFrame:
+        """The channel as a small wide frame indexed by UTC time (for plots and tests)."""
+        idx = pd.DatetimeIndex(self.t_us.view("M8[us]")).tz_localize("UTC")
+        return pd.DataFrame({"current_A": self.current_A, "voltage_V": self.voltage_V,
+                             "temperature_C": self.temperature_C, "soc_pct": self.soc_pct}, index=idx)
+
+
+@dataclass(frozen=True)
+class Gap:
+    """An interval with no readings longer than the gap threshold."""
+
+    channel: str
+    start_us: int
+    end_us: int
+
+    @property
+    def seconds(self) -> float:
+        return (self.end_us - self.start_us) / US_PER_S
+
+    def to_json(self) -> dict:
+        ts = pd.to_datetime(np.array([self.start_us, self.end_us]), unit="us", utc=True)
+        return {"start": ts[0].isoformat(), "end": ts[1].isoformat(), "seconds": round(self.seconds, 3),
+                "channel": self.channel}
+
+
+def _time_us(col: pd.Series) -> np.ndarray:
+    values = col.array
+    if isinstance(col.dtype, pd.DatetimeTZDtype):
+        return np.asarray(values.as_unit("us").asi8 if hasattr(values, "as_unit") else values.asi8)
+    raise ValueError(f"column 't' must be timezone-aware datetimes (UTC), got dtype {col.dtype}")
+
+
+def split_channels(readings: pd.DataFrame) -> dict[str, Channel]:
+    """Split a canonical long frame into one :class:`Channel` per channel name.
+
+    Rows with a missing time are dropped; each channel is sorted by time (a
+    no-op, and no copy, for frames read from the store) and repeated
+    timestamps keep their last reading.
+
+    Parameters
+    ----------
+    readings : canonical long frame (columns t, channel, voltage_V, current_A,
+        temperature_C, soc_pct; missing value columns are treated as NaN)
+    """
+    missing = {"t", "channel"} - set(readings.columns)
+    if missing:
+        raise ValueError(f"readings frame lacks column(s) {sorted(missing)}; expected the canonical "
+                         "columns t, channel, voltage_V, current_A, temperature_C, soc_pct")
+    n = len(readings)
+    if n == 0:
+        return {}
+    t_all = _time_us(readings["t"])
+    ch = readings["channel"]
+    if isinstance(ch.dtype, pd.CategoricalDtype):
+        codes = ch.cat.codes.to_numpy()
+        names = [str(c) for c in ch.cat.categories]
+    else:
+        codes_, uniques = pd.factorize(ch.astype(str), sort=True)
+        codes, names = codes_, [str(u) for u in uniques]
+    cols = {}
+    for c in ("current_A", "voltage_V", "temperature_C", "soc_pct"):
+        cols[c] = readings[c].to_numpy(dtype=float, na_value=np.nan) if c in readings.columns \
+            else np.full(n, np.nan)
+    out: dict[str, Channel] = {}
+    # Blocks: contiguous runs of one channel code (store order) give views, not copies.
+    change = np.flatnonzero(codes[1:] != codes[:-1]) + 1
+    starts = np.concatenate(([0], change))
+    ends = np.concatenate((change, [n]))
+    block_codes = codes[starts]
+    contiguous = len(np.unique(block_codes)) == len(block_codes)
+    for code in np.unique(block_codes):
+        if code < 0:
+            continue
+        if contiguous:
+            b = int(np.flatnonzero(block_codes == code)[0])
+            sel: slice | np.ndarray = slice(int(starts[b]), int(ends[b]))
+        else:
+            sel = np.flatnonzero(codes == code)
+        t = t_all[sel]
+        arrays = {c: v[sel] for c, v in cols.items()}
+        ok = t != np.iinfo(np.int64).min  # NaT
+        if len(t) > 1 and (not ok.all() or (np.diff(t) <= 0).any()):
+            t, arrays = t[ok], {c: v[ok] for c, v in arrays.items()}
+            order = np.argsort(t, kind="stable")
+            t = t[order]
+            arrays = {c: v[order] for c, v in arrays.items()}
+            keep = np.ones(len(t), dtype=bool)
+            keep[:-1] = t[1:] != t[:-1]
+            t, arrays = t[keep], {c: v[keep] for c, v in arrays.items()}
+        if len(t) == 0:
+            continue
+        out[names[code]] = Channel(names[code], t, **arrays)
+    return out
+
+
+def median_interval_s(t_us: np.ndarray) -> float:
+    """Median sampling interval [s] (NaN with fewer than two samples).
+
+    For long channels the median is taken over a strided subsample of the
+    intervals, which is exact for regular logs and a close estimate otherwise.
+    """
+    if len(t_us) < 2:
+        return float("nan")
+    step = max(1, (len(t_us) - 1) // 2_000_000)
+    d = np.diff(t_us[::step]) / step if step > 1 else np.diff(t_us)
+    return float(np.median(d)) / US_PER_S
+
+
+def gap_threshold_s(t_us: np.ndarray, *, factor: float = GAP_FACTOR) -> float:
+    """The longest interval that is still integrated [s]: ``factor`` median intervals."""
+    med = median_interval_s(t_us)
+    if not np.isfinite(med):
+        return float("inf")
+    return max(factor * med, MIN_GAP_S)
+
+
+def gap_mask(t_us: np.ndarray, *, threshold_s: float | None = None) -> np.ndarray:
+    """Boolean per interval (length ``n - 1``): True where the interval is a gap."""
+    if threshold_s is None:
+        threshold_s = gap_threshold_s(t_us)
+    return np.diff(t_us) > threshold_s * US_PER_S
+
+
+def find_gaps(channel: Channel, *, threshold_s: float | None = None) -> list[Gap]:
+    """Every gap in a channel's sampling, as :class:`Gap` records."""
+    mask = gap_mask(channel.t_us, threshold_s=threshold_s)
+    idx = np.flatnonzero(mask)
+    return [Gap(channel.name, int(channel.t_us[i]), int(channel.t_us[i + 1])) for i in idx]
+
+
+def local_day_bounds(t_first_us: int, t_last_us: int, timezone: str) -> tuple[np.ndarray, list]:
+    """UTC microsecond boundaries of the local calendar days covering a span.
+
+    Returns ``(bounds_us, dates)``: ``bounds_us[i]`` is local midnight starting
+    ``dates[i]`` and ``bounds_us[-1]`` the midnight ending the last date, so a
+    sample at ``t`` belongs to ``dates[searchsorted(bounds_us, t, 'right') - 1]``.
+    Days are 23 or 25 hours long across daylight-saving changes.
+    """
+    first = pd.Timestamp(int(t_first_us), unit="us", tz="UTC").tz_convert(timezone).normalize()
+    last = pd.Timestamp(int(t_last_us), unit="us", tz="UTC").tz_convert(timezone).normalize()
+    days = pd.date_range(first.tz_localize(None), last.tz_localize(None) + pd.Timedelta(days=1), freq="D")
+    local = days.tz_localize(timezone, ambiguous=True, nonexistent="shift_forward")
+    bounds = local.tz_convert("UTC").as_unit("us").asi8.astype(np.int64)
+    return bounds, [d.date() for d in days[:-1]]
+
+
+def day_index(t_us: np.ndarray, bounds_us: np.ndarray) -> np.ndarray:
+    """Index of the local day each time falls in (see :func:`local_day_bounds`)."""
+    return np.searchsorted(bounds_us, t_us, side="right").astype(np.int32) - 1

@@ -1,0 +1,265 @@
+"""The analysis of a stored history, as the report object (DESIGN.md report JSON: a contract).
+
+:func:`build_report` runs the whole chain on a canonical long frame:
+
+1. split into channels, find gaps (analysis.readings);
+2. state of charge with full-charge resyncs and OCV anchors (analysis.charge);
+3. anchor pairs -> Peukert exponent (fitted when rates differ) -> usable capacity
+   and state of health with a 95 % interval (analysis.capacity); the SoC is
+   then re-run against the usable capacity;
+4. the daily ledger (analysis.ledger), internal resistance per day, runtime left;
+5. the solar section from analysis.solar when that module is present.
+
+Everything that cannot be estimated is ``None`` with a sibling ``*_why``.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from analysis.capacity import (MIN_DELTA_SOC, CapacityEstimate, PeukertEstimate, ResistanceEstimate,
+                               anchor_pairs, estimate_capacity, fit_peukert, internal_resistance)
+from analysis.charge import SocResult, state_of_charge
+from analysis.ledger import SOURCES, LedgerResult, compute_ledger
+from analysis.readings import US_PER_S, split_channels
+from analysis.runtime import RuntimeEstimate, runtime_left
+from analysis.system import System
+
+#: Days whose mean |our SoC - device SoC| exceeds this are flagged [%].
+DEVICE_DISAGREEMENT_PCT: float = 5.0
+#: Points kept in the downsampled SoC series for plots.
+PLOT_POINTS: int = 2000
+
+
+def _r(x: Any, nd: int = 3) -> Any:
+    if x is None:
+        return None
+    try:
+        xf = float(x)
+    except (TypeError, ValueError):
+        return x
+    return round(xf, nd) if math.isfinite(xf) else None
+
+
+@dataclass(frozen=True)
+class Report:
+    """The report: contract sections plus extras; ``soc`` and ``ledger`` for the dashboard."""
+
+    period: dict
+    data_quality: dict
+    days: list
+    battery: dict
+    solar: dict
+    extras: dict
+    soc: pd.Series | None = field(default=None, repr=False)
+    ledger: pd.DataFrame | None = field(default=None, repr=False)
+    resistance_per_day: pd.DataFrame | None = field(default=None, repr=False)
+
+    def to_json(self) -> dict:
+        """The report JSON object (DESIGN.md keys first, then extras)."""
+        return {"period": self.period, "data_quality": self.data_quality, "days": self.days,
+                "battery": self.battery, "solar": self.solar, **self.extras}
+
+
+def _rows_stored(channels: dict) -> int:
+    ts = [c.t_us for c in channels.values()]
+    if not ts:
+        return 0
+    if all(len(t) == len(ts[0]) for t in ts) and all(np.array_equal(t, ts[0]) for t in ts[1:]):
+        return len(ts[0])
+    return int(len(np.unique(np.concatenate(ts))))
+
+
+def _downsample(t_us: np.ndarray, y: np.ndarray, n_out: int = PLOT_POINTS) -> np.ndarray:
+    if len(y) <= n_out:
+        return np.arange(len(y))
+    try:
+        from tsdownsample import MinMaxLTTBDownsampler
+
+        return np.asarray(MinMaxLTTBDownsampler().downsample(t_us, np.ascontiguousarray(y), n_out=n_out))
+    except Exception:  # noqa: BLE001 - plotting aid only; fall back to a stride
+        return np.linspace(0, len(y) - 1, n_out).astype(np.int64)
+
+
+def _iso_us(t: int) -> str:
+    return pd.Timestamp(int(t), unit="us", tz="UTC").isoformat()
+
+
+def _solar_section(readings: pd.DataFrame, system: System, solar_current: pd.Series | None) -> dict:
+    try:
+        from analysis.solar import analyse_solar  # another module; optional
+    except ImportError:
+        return {"performance_ratio": None, "performance_ratio_why": "solar analysis not available", "days": []}
+    try:
+        res = analyse_solar(readings, system, solar_current_A=solar_current)
+        out = res.to_json() if hasattr(res, "to_json") else dict(res)
+    except Exception as exc:  # noqa: BLE001 - one section must not sink the whole report
+        return {"performance_ratio": None, "performance_ratio_why": f"solar analysis failed: {exc}", "days": []}
+    out.setdefault("performance_ratio", None)
+    out.setdefault("days", [])
+    return out
+
+
+def build_report(readings: pd.DataFrame, system: System, *, rows_rejected: int = 0,
+                 start: Any = None, end: Any = None) -> Report:
+    """Analyse a canonical long frame into a :class:`Report`.
+
+    Parameters
+    ----------
+    readings : canonical long frame (collector.store.Store.read)
+    system : system description
+    rows_rejected : input lines rejected at import (from the store's import log)
+    start, end : optional UTC bounds (``start <= t < end``); anything pandas.Timestamp accepts
+
+    Raises
+    ------
+    ValueError
+        When the frame holds no usable channel (the message names what is present).
+    """
+    if start is not None or end is not None:
+        t = readings["t"]
+        keep = np.ones(len(readings), dtype=bool)
+        if start is not None:
+            keep &= (t >= pd.Timestamp(start).tz_convert("UTC") if pd.Timestamp(start).tzinfo
+                     else t >= pd.Timestamp(start).tz_localize("UTC")).to_numpy()
+        if end is not None:
+            keep &= (t < pd.Timestamp(end).tz_convert("UTC") if pd.Timestamp(end).tzinfo
+                     else t < pd.Timestamp(end).tz_localize("UTC")).to_numpy()
+        if not keep.all():
+            readings = readings.loc[keep]
+    channels = split_channels(readings)
+    if not channels:
+        raise ValueError("no readings in the selected period; import a log first or widen --from/--to")
+    b = system.battery
+    bat = channels.get("battery")
+    soc: SocResult | None = None
+    cap = CapacityEstimate(None, None, "no battery channel: capacity needs the bank's net current", None)
+    peuk = PeukertEstimate(b.effective_peukert_k, "system.toml" if b.peukert_k is not None else "chemistry default",
+                           "no battery channel")
+    if bat is not None and len(bat) > 1:
+        soc = state_of_charge(bat, system)
+        pairs = anchor_pairs(bat, soc, system, peukert_k=b.effective_peukert_k)
+        peuk = fit_peukert(pairs, system)
+        if peuk.source == "fitted" and abs(peuk.k - b.effective_peukert_k) > 1e-6:
+            soc = state_of_charge(bat, system, peukert_k=peuk.k)
+            pairs = anchor_pairs(bat, soc, system, peukert_k=peuk.k)
+        span = None
+        anchors = soc.capacity_anchors
+        span = 0.0
+        if len(anchors) >= 2:
+            vals = [a.soc_pct for a in anchors]
+            span = max(vals) - min(vals)
+        cap = estimate_capacity(pairs, system, largest_span_pct=span)
+        if cap.usable_Ah is None and len(anchors) < 2:
+            cap = CapacityEstimate(None, None, f"fewer than two known-SoC anchors ({len(anchors)}: full-charge "
+                                   f"resyncs or rested OCV); need a pair spanning >= {100 * MIN_DELTA_SOC:.0f} % SoC",
+                                   None)
+        if cap.usable_Ah is not None:
+            soc = soc.with_capacity(cap.usable_Ah)
+    led: LedgerResult = compute_ledger(channels, system, soc=soc)
+    ir = (internal_resistance(bat, led.bounds_us, list(led.days["date"])) if bat is not None and len(bat) > 1
+          else ResistanceEstimate(None, "no battery channel", pd.DataFrame()))
+    rt = _runtime(bat, soc, led, system, cap, peuk)
+    solar = _solar_section(readings, system, led.solar_current_A if "solar" not in channels else None)
+    return _assemble(channels, system, rows_rejected, soc, cap, peuk, led, ir, rt, solar)
+
+
+def _runtime(bat, soc, led, system, cap, peuk) -> RuntimeEstimate:
+    soc_now = float(soc.soc[-1]) if soc is not None and len(soc.soc) else None
+    net = None
+    if bat is not None and len(bat) > 1:
+        lo = int(np.searchsorted(bat.t_us, bat.t_us[-1] - 3600 * US_PER_S))
+        seg = bat.current_A[lo:]
+        if np.isfinite(seg).any():
+            net = float(np.nanmean(seg))
+    return runtime_left(soc_now_pct=soc_now, last_hour_net_A=net, ledger_days=led.days, system=system,
+                        capacity_Ah=cap.usable_Ah, peukert_k=peuk.k)
+
+
+def _assemble(channels, system: System, rows_rejected: int, soc: SocResult | None, cap: CapacityEstimate,
+              peuk: PeukertEstimate, led: LedgerResult, ir: ResistanceEstimate, rt: RuntimeEstimate,
+              solar: dict) -> Report:
+    b = system.battery
+    t0 = min(int(c.t_us[0]) for c in channels.values())
+    t1 = max(int(c.t_us[-1]) for c in channels.values())
+    d = led.days
+    period = {"start": _iso_us(t0), "end": _iso_us(t1), "days": int(len(d)),
+              "timezone": system.site.timezone}
+    gaps = sorted(led.gaps, key=lambda g: g.start_us)
+    data_quality = {"rows_stored": _rows_stored(channels), "rows_rejected": int(rows_rejected),
+                    "gaps": [g.to_json() for g in gaps],
+                    "channels": {name: {"rows": len(c), "first": _iso_us(c.t_us[0]), "last": _iso_us(c.t_us[-1])}
+                                 for name, c in channels.items()},
+                    "mode": led.mode, "notes": list(led.notes),
+                    "complete_days": int(d["complete"].sum()) if len(d) else 0}
+    days = []
+    for row in d.itertuples(index=False):  # one row per day
+        item = {"date": row.date.isoformat(), "complete": bool(row.complete),
+                "consumed_Ah": _r(row.consumed_Ah), "consumed_Wh": _r(row.consumed_Wh, 1),
+                "charged_Ah": {s: _r(getattr(row, f"charged_Ah_{s}")) for s in SOURCES},
+                "charged_Wh": {s: _r(getattr(row, f"charged_Wh_{s}"), 1) for s in SOURCES},
+                "soc_min_pct": _r(row.soc_min_pct, 2), "soc_end_pct": _r(row.soc_end_pct, 2),
+                "mean_temperature_C": _r(row.mean_temperature_C, 2), "driving_h": _r(row.driving_h, 3),
+                "attribution_confidence": _r(row.attribution_confidence, 2),
+                "device_soc_diff_pct": _r(row.device_soc_diff_pct, 2)}
+        if np.isfinite(row.consumed_Ah_pi95_lo):
+            item["consumed_Ah_pi95"] = [_r(row.consumed_Ah_pi95_lo), _r(row.consumed_Ah_pi95_hi)]
+        if not row.complete:
+            item["complete_why"] = (f"gap of {row.gap_s:.0f} s in this day: its charge is unknown"
+                                    if row.gap_s > 0 else "the log starts or ends within this day")
+        if soc is None:
+            item["soc_min_pct_why"] = item["soc_end_pct_why"] = "no battery channel"
+        days.append(item)
+    battery = {"rated_Ah": b.rated_capacity_Ah, "usable_Ah": _r(cap.usable_Ah, 2),
+               "usable_Ah_ci95": [_r(cap.ci95_Ah[0], 2), _r(cap.ci95_Ah[1], 2)] if cap.ci95_Ah else None,
+               "state_of_health_pct": _r(cap.state_of_health_pct, 1),
+               "peukert_k": _r(peuk.k, 4), "peukert_k_source": peuk.source,
+               "internal_resistance_ohm": _r(ir.ohm, 5),
+               "chemistry": b.chemistry, "capacity_method": cap.method,
+               "anchor_pairs": [p.to_json() for p in cap.pairs],
+               "internal_resistance_trend_ohm_per_30d": _r(ir.trend_ohm_per_30d, 6),
+               "internal_resistance_steps": ir.steps,
+               "internal_resistance_days": [{"date": r.date.isoformat(), "ohm": _r(r.ohm, 5), "steps": int(r.steps)}
+                                            for r in ir.per_day.itertuples(index=False)] if len(ir.per_day) else []}
+    if cap.usable_Ah is None:
+        battery["usable_Ah_why"] = cap.why
+        battery["usable_Ah_ci95_why"] = cap.why
+        battery["state_of_health_pct_why"] = cap.why
+    if peuk.why:
+        battery["peukert_k_why"] = peuk.why
+    if ir.ohm is None:
+        battery["internal_resistance_ohm_why"] = ir.why
+    if ir.trend_ohm_per_30d is None:
+        battery["internal_resistance_trend_ohm_per_30d_why"] = "needs resistance estimates on >= 3 days"
+    extras: dict[str, Any] = {"runtime": rt.to_json()}
+    if soc is not None:
+        idx = _downsample(soc.t_us, soc.soc)
+        extras["soc_series"] = {"t": [_iso_us(t) for t in soc.t_us[idx]],
+                                "soc_pct": [round(float(v), 2) for v in soc.soc[idx]]}
+        extras["resyncs"] = [a.time.isoformat() for a in soc.anchors if a.kind == "full"]
+        extras["ocv_anchors"] = [{"t": a.time.isoformat(), "soc_pct": round(a.soc_pct, 1), "kind": a.kind}
+                                 for a in soc.capacity_anchors if a.kind != "full"]
+        extras["soc_start"] = soc.start
+        extras["soc_capacity_Ah"] = _r(soc.capacity_Ah, 2)
+        dis = d[d["device_soc_diff_pct"] > DEVICE_DISAGREEMENT_PCT]
+        extras["device_soc_disagreement_days"] = [{"date": r.date.isoformat(),
+                                                    "mean_abs_diff_pct": _r(r.device_soc_diff_pct, 2)}
+                                                   for r in dis.itertuples(index=False)]
+        if not np.isfinite(d["device_soc_diff_pct"]).any():
+            extras["device_soc_disagreement_days_why"] = "the log has no device SoC column"
+    else:
+        extras["soc_series"] = None
+        extras["soc_series_why"] = "no battery channel"
+    if led.load_model is not None:
+        extras["load_model"] = led.load_model.to_json()
+    extras["attribution"] = {"mode": led.mode,
+                             "method": ("measured on separate shunts" if led.mode != "single-shunt"
+                                        else "single-shunt load model and charge signatures")}
+    res_days = ir.per_day if len(ir.per_day) else None
+    soc_series = soc.soc_pct if soc is not None else None
+    return Report(period, data_quality, days, battery, solar, extras, soc_series, d, res_days)

@@ -1,0 +1,161 @@
+"""The Dash app: a thin shell (title bar, page links, shared date-range store) around the pages.
+
+Layout, callbacks and data access are kept apart: each page is a module in
+``dashboard/pages/`` (``dash.register_page``, a ``layout(**kwargs)`` function
+and its ``@callback``s); component ids come from :mod:`dashboard.ids`; figures
+from :mod:`dashboard.figures`; every read of the store and every analysis call
+goes through :mod:`dashboard.data`, whose :class:`~dashboard.data.DataSource`
+hangs on the Flask app's config (not in a module global), so two apps in one
+process never share state.
+
+``serve`` binds to 127.0.0.1 by default. Bound to any other address it
+requires a token (see :mod:`dashboard.security`); a token given explicitly is
+enforced on loopback too.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+from typing import Any
+
+import dash
+from dash import dcc, html
+
+from dashboard import ids
+from dashboard.data import MAX_UPLOAD_BYTES, DataSource
+from dashboard.security import install_token_guard, is_loopback, new_token
+
+HERE = Path(__file__).resolve().parent
+
+#: (path, label) of the page links, in the order a user needs them.
+NAV_LINKS: tuple[tuple[str, str], ...] = (
+    ("/", "Now"),
+    ("/trip", "Trip review"),
+    ("/health", "Battery health"),
+    ("/solar", "Solar"),
+    ("/planner", "Upgrade planner"),
+    ("/setup", "System setup"),
+)
+
+
+def _shell() -> html.Div:
+    return html.Div(className="shell", children=[
+        html.Header(className="topbar", children=[
+            html.Div(className="brand", children=[html.Span("drawdown", className="brand-name"),
+                                                   html.Span("battery bank log review", className="brand-sub")]),
+            html.Nav(id=ids.NAV, className="nav", children=[
+                dcc.Link(label, href=path, className="nav-link") for path, label in NAV_LINKS]),
+        ]),
+        # The date range picked on the trip page, read by health/solar/planner (session-scoped).
+        dcc.Store(id=ids.RANGE_STORE, storage_type="session"),
+        html.Main(className="page", children=[dash.page_container]),
+        html.Footer(className="footer", children=[
+            "Figures come from your own logs; advice on cables, fuses and chargers must be checked against "
+            "local electrical codes by a qualified installer."]),
+    ])
+
+
+def _reset_global_callbacks() -> None:
+    """Drop callbacks that an earlier, never-served app in this process left in Dash's global list.
+
+    Page modules register their ``@callback``s in Dash's module-level list each
+    time an app imports them; the first app to serve a request takes them. A
+    second app built in the same process (tests) would otherwise inherit
+    duplicates.
+    """
+    from dash import _callback
+
+    _callback.GLOBAL_CALLBACK_LIST.clear()
+    _callback.GLOBAL_CALLBACK_MAP.clear()
+
+
+def create_app(ctx: Any, *, token: str | None = None) -> dash.Dash:
+    """Build the dashboard for a store and system description.
+
+    Parameters
+    ----------
+    ctx
+        A :class:`dashboard.context.Context` (anything with ``store_path`` and
+        ``system_path``).
+    token
+        When given, every request must carry it (``?token=`` once, then a
+        cookie, or ``Authorization: Bearer``); see :mod:`dashboard.security`.
+
+    Returns
+    -------
+    dash.Dash
+        The app; ``app.server`` is its Flask server.
+    """
+    _reset_global_callbacks()
+    app = dash.Dash(
+        "dashboard",
+        use_pages=True,
+        pages_folder=str(HERE / "pages"),
+        assets_folder=str(HERE / "assets"),
+        title="drawdown",
+        update_title=None,
+        serve_locally=True,  # no CDN: works offline, in a van, on a phone hotspot
+        meta_tags=[{"name": "viewport", "content": "width=device-width, initial-scale=1"}],
+    )
+    app.server.config["DRAWDOWN_SOURCE"] = DataSource.from_context(ctx)
+    # Uploads travel base64-encoded inside a callback request (4/3 of the file) plus JSON framing.
+    app.server.config["MAX_CONTENT_LENGTH"] = int(MAX_UPLOAD_BYTES * 4 / 3) + 1024 * 1024
+    if token is not None:
+        install_token_guard(app.server, token)
+    app.layout = _shell
+    return app
+
+
+def resolve_token(host: str, token: str | None) -> str | None:
+    """The token a server on ``host`` must enforce: the given one, a new one off loopback, else None."""
+    if token is not None:
+        return token
+    if not is_loopback(host):
+        return new_token()
+    return None
+
+
+def serve(ctx: Any, host: str = "127.0.0.1", port: int = 8050, token: str | None = None) -> int:
+    """Serve the dashboard until interrupted (used by ``drawdown serve`` and ``drawdown demo``).
+
+    Parameters
+    ----------
+    host
+        Interface to bind; loopback by default. Any other address requires a
+        token: ``token`` or one generated here and printed on stderr.
+    port
+        TCP port.
+    token
+        Access token; enforced whenever given.
+
+    Returns
+    -------
+    int
+        0 after a clean stop.
+    """
+    from werkzeug.serving import make_server
+
+    given = token
+    token = resolve_token(host, token)
+    if token is not None and given is None:
+        print(f"drawdown serve: bound to {host}, so every request needs this access token:\n  {token}",
+              file=sys.stderr)
+    app = create_app(ctx, token=token)
+    try:
+        server = make_server(host, port, app.server, threaded=True)
+    except OSError as exc:
+        from dashboard.context import UsageError
+
+        raise UsageError(f"cannot listen on {host}:{port} ({exc.strerror or exc}); "
+                         f"is another dashboard running? Try --port {port + 1}.") from None
+    shown = f"[{host}]" if ":" in host else host
+    url = f"http://{shown}:{server.server_port}/"
+    print(f"drawdown dashboard: {url}{'?token=' + token if token else ''}  (Ctrl+C stops it)", file=sys.stderr)
+    try:
+        server.serve_forever()
+    except KeyboardInterrupt:
+        pass
+    finally:
+        server.server_close()
+    return 0

@@ -1,0 +1,166 @@
+"""``drawdown demo [--no-serve] [--scenario NAME] [--days N] [--host H] [--port P]``
+
+Simulate a bundled scenario (default: ``autumn-van``) into a ``demo`` folder
+beside the store, write its system description beside the store if there is
+none, import the log, print a summary, and serve the dashboard unless
+``--no-serve``.
+
+Idempotent: the simulation uses the scenario's fixed seed, so the log is
+byte-identical every time and the importer's sha256 check stores it only once.
+"""
+
+from __future__ import annotations
+
+import importlib
+import json
+import sys
+from pathlib import Path
+from typing import Any
+
+from dashboard.context import Context, UsageError
+
+
+def _optional(module: str, name: str) -> Any | None:
+    try:
+        return getattr(importlib.import_module(module), name)
+    except ImportError:
+        return None
+    except AttributeError:
+        return None
+
+
+def _fmt(x: Any, spec: str = ".0f", unit: str = "") -> str:
+    if x is None:
+        return "n/a"
+    try:
+        return f"{float(x):{spec}}{unit}"
+    except (TypeError, ValueError):
+        return str(x)
+
+
+def _summary_from_truth(truth: dict) -> list[str]:
+    days = truth["days"]
+    n = len(days)
+    used = sum(d["consumed_Ah"] for d in days) / n
+    used_wh = sum(d["consumed_Wh"] for d in days) / n
+    by_src = {s: sum(d["charged_Ah"][s] for d in days) for s in ("solar", "alternator", "shore")}
+    total = sum(by_src.values()) or 1.0
+    b = truth["battery"]
+    clear = [s for s in truth["solar"]["days"] if s["sky"] == "clear"]
+    return [
+        f"  {n} days; mean use {used:.0f} Ah/day ({used_wh:.0f} Wh/day)",
+        "  charge by source: " + ", ".join(f"{s} {v:.0f} Ah ({100 * v / total:.0f} %)" for s, v in by_src.items()),
+        f"  battery: {b['usable_Ah']:.0f} Ah usable of {b['rated_Ah']:g} Ah rated "
+        f"(state of health {b['state_of_health_pct']:.0f} %), lowest state of charge "
+        f"{min(d['soc_min_pct'] for d in days):.0f} %",
+        f"  solar: {len(clear)} clear days, system derate {truth['solar']['derate']:g}; "
+        f"bank full {len(truth['full_charges'])} times",
+    ]
+
+
+def _summary_from_report(report: Any) -> list[str]:
+    if hasattr(report, "to_json"):
+        report = report.to_json()
+    elif hasattr(report, "__dataclass_fields__"):
+        import dataclasses
+
+        report = dataclasses.asdict(report)
+    report = json.loads(json.dumps(report, default=str))
+    days = report.get("days") or []
+    bat = report.get("battery") or {}
+    sol = report.get("solar") or {}
+    lines = []
+    if days:
+        used = [d.get("consumed_Ah") for d in days if d.get("consumed_Ah") is not None]
+        if used:
+            lines.append(f"  {len(days)} days; mean use {sum(used) / len(used):.0f} Ah/day")
+        src: dict[str, float] = {}
+        for d in days:
+            for k, v in (d.get("charged_Ah") or {}).items():
+                src[k] = src.get(k, 0.0) + (v or 0.0)
+        if src:
+            lines.append("  charge by source: " + ", ".join(f"{k} {v:.0f} Ah" for k, v in src.items() if v))
+    lines.append(f"  battery: usable {_fmt(bat.get('usable_Ah'), '.0f', ' Ah')} of "
+                 f"{_fmt(bat.get('rated_Ah'), 'g', ' Ah')} rated, state of health "
+                 f"{_fmt(bat.get('state_of_health_pct'), '.0f', ' %')}"
+                 + (f" ({bat['usable_Ah_why']})" if bat.get("usable_Ah") is None and bat.get("usable_Ah_why") else ""))
+    lines.append(f"  solar performance ratio {_fmt(sol.get('performance_ratio'), '.2f')}")
+    return lines
+
+
+def run(args: Any, ctx: Context) -> int:
+    from collector.simulated import (DEFAULT_SCENARIO, UnknownScenarioError, available_scenarios,
+                                     load_scenario, simulate, write_log)
+
+    name = args.scenario or (DEFAULT_SCENARIO if DEFAULT_SCENARIO in available_scenarios()
+                             else available_scenarios()[0])
+    try:
+        scenario = load_scenario(name)
+    except UnknownScenarioError as exc:
+        raise UsageError(str(exc)) from None
+    if args.days is not None and args.days < 1:
+        raise UsageError(f"--days must be at least 1, got {args.days}")
+
+    folder = ctx.store_path.parent / "demo"
+    folder.mkdir(parents=True, exist_ok=True)
+    days = args.days or scenario.params.scenario.default_days
+    out = folder / f"{scenario.name}-{days}d.csv"
+    print(f"simulating {scenario.name} ({scenario.params.scenario.description}), {days} days ...", file=sys.stderr)
+    sim = simulate(scenario, days=days)  # the scenario's fixed seed: the same bytes every run
+    truth_path = write_log(sim, out)
+    print(f"log: {out}\ntruth: {truth_path}", file=sys.stderr)
+
+    if ctx.system_path.exists():
+        print(f"system description: {ctx.system_path} exists, left as it is", file=sys.stderr)
+    else:
+        ctx.system_path.parent.mkdir(parents=True, exist_ok=True)
+        ctx.system_path.write_text(scenario.system_text, encoding="utf-8")
+        print(f"system description: wrote {ctx.system_path}", file=sys.stderr)
+    system = ctx.load_system()
+
+    import_file = _optional("collector.csv_file", "import_file")
+    imported = False
+    if import_file is None:
+        print("the CSV importer (collector.csv_file.import_file) is not installed: nothing imported", file=sys.stderr)
+    else:
+        with ctx.open_store() as store:
+            result = import_file(out, store, tz=system.site.timezone,
+                                 nominal_voltage_V=system.battery.nominal_voltage_V)
+        imported = True
+        if getattr(result, "already_imported", False):
+            print("import: already in the store (same content), nothing added", file=sys.stderr)
+        else:
+            print(f"import: {getattr(result, 'rows_stored', '?')} rows stored, "
+                  f"{getattr(result, 'rows_rejected', '?')} rejected", file=sys.stderr)
+
+    print(f"drawdown demo: {scenario.name}, {sim.truth['start']} .. {sim.truth['end']}")
+    build_report = _optional("analysis.report", "build_report")
+    lines: list[str] | None = None
+    if build_report is not None and imported:
+        try:
+            import pandas as pd
+
+            with ctx.open_store() as store:
+                readings = store.read(sim.truth["start"], sim.truth["end"])
+                rejected = sum(int(i.get("rows_rejected") or 0) for i in store.imports())
+            report = build_report(readings, system, rows_rejected=rejected,
+                                  start=pd.Timestamp(sim.truth["start"]), end=pd.Timestamp(sim.truth["end"]))
+            print("analysis of the stored log:")
+            lines = _summary_from_report(report)
+        except Exception as exc:  # noqa: BLE001 - the demo still shows the truth
+            print(f"the analysis could not run ({type(exc).__name__}: {exc}); showing the simulation's truth",
+                  file=sys.stderr)
+    if lines is None:
+        print("what the simulation did (its truth file):")
+        lines = _summary_from_truth(sim.truth)
+    for line in lines:
+        print(line)
+
+    if args.no_serve:
+        return 0
+    serve = _optional("dashboard.app", "serve")
+    if serve is None:
+        print("the dashboard (dashboard.app.serve) is not installed; stopping here", file=sys.stderr)
+        return 0
+    print(f"dashboard: http://{args.host}:{args.port}/ (Ctrl-C to stop)", file=sys.stderr)
+    return int(serve(ctx, args.host, args.port) or 0)

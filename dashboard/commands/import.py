@@ -1,0 +1,175 @@
+"""``drawdown import FILE... [--tz ZONE] [--channel NAME] [--map COLUMN=QUANTITY]... [--invert CHANNEL] [--json]``
+
+Ingest log files and print a data-quality summary per file. Exit 0 when every file was usable
+(also when it was already imported), 2 when any file was unusable (nothing of that file is
+stored; the other files are still imported and say so).
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+from pathlib import Path
+from typing import Any
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+from collector.columns import ColumnSpec, normalise_channel, parse_map_option
+from collector.csv_file import ImportResult, UnusableInput, import_file
+from dashboard.context import Context, UsageError, print_json, warn
+
+PROGRESS_MIN_BYTES = 16 << 20
+
+
+class _Progress:
+    """A one-line progress bar on stderr, shown only for big files on a terminal."""
+
+    def __init__(self, label: str, total: int):
+        self.label = label
+        self.total = max(total, 1)
+        self.shown = sys.stderr.isatty() and total >= PROGRESS_MIN_BYTES
+        self.t0 = time.perf_counter()
+        self.last = 0.0
+
+    def __call__(self, done: int, total: int) -> None:
+        if not self.shown:
+            return
+        now = time.perf_counter()
+        if now - self.last < 0.2 and done < total:
+            return
+        self.last = now
+        frac = min(done / self.total, 1.0)
+        width = 30
+        bar = "#" * int(frac * width) + "-" * (width - int(frac * width))
+        rate = done / max(now - self.t0, 1e-9) / 1e6
+        sys.stderr.write(f"\r{self.label} [{bar}] {100 * frac:5.1f} % {rate:6.1f} MB/s")
+        sys.stderr.flush()
+
+    def close(self) -> None:
+        if self.shown:
+            sys.stderr.write("\n")
+            sys.stderr.flush()
+
+
+def _column_map(options: list[str]) -> dict[str, ColumnSpec]:
+    out: dict[str, ColumnSpec] = {}
+    for text in options:
+        try:
+            name, spec = parse_map_option(text)
+        except ValueError as exc:
+            raise UsageError(str(exc)) from None
+        out[name] = spec
+    return out
+
+
+def _unusable_entry(path: str, message: str) -> dict[str, Any]:
+    return {"path": path, "usable": False, "error": message, "rows_stored": 0, "rows_rejected": 0,
+            "rejected_by_reason": {}, "already_imported": False, "channels": [], "sign_inverted": [],
+            "sample_interval_s": None, "gaps": [], "quarantine": None}
+
+
+def _human(r: ImportResult) -> str:
+    lines = [f"{r.path}"]
+    if r.already_imported:
+        lines.append("  already imported (same content, sha256 match): nothing added")
+        return "\n".join(lines)
+    lines.append(f"  data lines {r.data_lines}: stored {r.rows_stored}, rejected {r.rows_rejected}"
+                 + (f" (of which duplicates {r.duplicates})" if r.duplicates else ""))
+    for why, n in r.rejected_by_reason.items():
+        lines.append(f"    {why:<24} {n}")
+    extras = [f"{n} {what}" for n, what in ((r.header_lines, "header lines"), (r.blank_lines, "blank lines"),
+                                            (r.preamble_lines, "preamble lines")) if n]
+    if extras:
+        lines.append("  not data: " + ", ".join(extras))
+    if r.out_of_order_rows:
+        lines.append(f"  {r.out_of_order_rows} rows were out of time order (sorted)")
+    lines.append(f"  channels: {', '.join(r.channels) or '(none)'}")
+    lines.append("  columns: " + ", ".join(f"{k} -> {v}" for k, v in r.columns.items()))
+    if r.columns_ignored:
+        lines.append("  ignored: " + ", ".join(r.columns_ignored))
+    if r.time_span:
+        lines.append(f"  time span: {r.time_span['start']} .. {r.time_span['end']} (times read as {r.timezone_used})")
+    if r.sample_interval_s is not None:
+        lines.append(f"  sample interval: {r.sample_interval_s:g} s (median)")
+    if r.gaps_total:
+        lines.append(f"  gaps longer than 5 sample intervals: {r.gaps_total}")
+        for g in r.gaps[:5]:
+            lines.append(f"    {g.start} .. {g.end} ({g.seconds:g} s)")
+        if r.gaps_total > 5:
+            lines.append(f"    ... and {r.gaps_total - 5} more (see --json)")
+    for ch, why in r.sign_evidence.items():
+        flag = "INVERTED" if ch in r.sign_inverted else "kept"
+        lines.append(f"  sign of {ch}: {flag} - {why}")
+    if r.quarantine:
+        lines.append(f"  rejected lines with line number and reason: {r.quarantine}")
+    return "\n".join(lines)
+
+
+def run(args: Any, ctx: Context) -> int:
+    column_map = _column_map(args.map)
+    channel = None
+    if args.channel:
+        try:
+            channel = normalise_channel(args.channel)
+        except ValueError as exc:
+            raise UsageError(f"--channel: {exc}") from None
+    invert = set()
+    for name in args.invert:
+        try:
+            invert.add(normalise_channel(name))
+        except ValueError as exc:
+            raise UsageError(f"--invert: {exc}") from None
+    tz = args.tz
+    nominal = None
+    if ctx.has_system():
+        system = ctx.load_system()
+        tz = tz or system.site.timezone
+        nominal = system.battery.nominal_voltage_V
+    if tz is not None:
+        try:
+            ZoneInfo(tz)
+        except (ZoneInfoNotFoundError, ValueError):
+            raise UsageError(f"--tz {tz!r}: unknown IANA timezone (e.g. 'Europe/Oslo', 'America/Denver', 'UTC')") from None
+
+    store = ctx.open_store()
+    results: list[dict[str, Any]] = []
+    unusable = 0
+    try:
+        for name in args.files:
+            path = Path(name)
+            try:
+                size = path.stat().st_size
+            except OSError:
+                size = 0
+            bar = _Progress(path.name, size)
+            try:
+                r = import_file(path, store, tz=tz, channel=channel, column_map=column_map, invert=invert,
+                                nominal_voltage_V=nominal, progress=bar)
+            except UnusableInput as exc:
+                bar.close()
+                unusable += 1
+                results.append(_unusable_entry(str(path), str(exc)))
+                if not args.json:
+                    print(f"{path}\n  UNUSABLE, nothing stored: {exc}")
+                else:
+                    warn(f"drawdown import: {exc}")
+                continue
+            bar.close()
+            entry = {**r.to_json(), "usable": True}
+            results.append(entry)
+            if r.timezone_assumed:
+                warn(f"drawdown import: {path}: times carry no UTC offset and neither --tz nor a system.toml "
+                     "timezone was given: they were read as UTC. Re-import with --tz ZONE if that is wrong.")
+            for ch in sorted(invert - set(r.channels)):
+                if not r.already_imported:
+                    warn(f"drawdown import: {path}: --invert {ch}: no such channel in this file")
+            if not args.json:
+                print(_human(r))
+    finally:
+        store.close()
+    if args.json:
+        print_json({"files": results})
+    elif unusable:
+        ok = len(results) - unusable
+        print(f"{unusable} of {len(results)} files unusable (nothing stored from them); "
+              f"{ok} usable file(s) imported.")
+    return 2 if unusable else 0

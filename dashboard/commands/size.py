@@ -1,0 +1,187 @@
+"""``drawdown size``: right-sized battery, array, DC-DC charger and inverter, with cable runs.
+
+Reads the stored readings and ``system.toml``, builds the daily ledger
+(``analysis.ledger.daily_ledger``), measures the array's performance ratio
+when it can (``analysis.solar.analyse_solar``), and calls
+:func:`analysis.sizing.recommend`. With no readings it sizes from the
+``[[load]]`` inventory; with neither it exits 2 saying what is missing.
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+
+import numpy as np
+
+from dashboard.context import UsageError, print_json, warn
+
+
+def _ledger(readings, system):
+    """The daily ledger frame, or None (with a warning on stderr) when it cannot be built."""
+    if readings is None or len(readings) == 0:
+        return None
+    try:
+        from analysis.ledger import daily_ledger
+    except ImportError:
+        warn("drawdown size: the daily ledger (analysis.ledger) is not available in this build; "
+             "sizing from the [[load]] inventory instead")
+        return None
+    try:
+        days = daily_ledger(readings, system)
+    except Exception as exc:  # noqa: BLE001 - report it, and size from the inventory rather than nothing
+        warn(f"drawdown size: the daily ledger could not be built ({type(exc).__name__}: {exc}); "
+             "sizing from the [[load]] inventory instead")
+        return None
+    frame = getattr(days, "days", days)  # a result object or the frame itself
+    if hasattr(frame, "to_frame") and not hasattr(frame, "columns"):
+        frame = frame.to_frame()
+    return frame
+
+
+def _performance_ratio(readings, system) -> float | None:
+    if readings is None or len(readings) == 0 or not system.solar:
+        return None
+    try:
+        from analysis.solar import analyse_solar
+
+        pr = analyse_solar(readings, system).performance_ratio
+    except Exception as exc:  # noqa: BLE001 - optional: fall back to the stated default
+        warn(f"drawdown size: performance ratio not measured ({type(exc).__name__}: {exc}); using the default")
+        return None
+    if pr is None or not math.isfinite(pr) or not 0.05 <= pr <= 1.2:
+        return None
+    return float(pr)
+
+
+def _from_readings(readings) -> tuple[float | None, float | None]:
+    """Lowest logged temperature [degC] and the 99.5th percentile load current [A]."""
+    if readings is None or len(readings) == 0:
+        return None, None
+    t = readings["temperature_C"].to_numpy(dtype=float)
+    t_min = float(np.nanmin(t)) if np.isfinite(t).any() else None
+    load = readings.loc[readings["channel"] == "load", "current_A"].to_numpy(dtype=float)
+    load = np.abs(load[np.isfinite(load)])
+    peak = float(np.quantile(load, 0.995)) if load.size >= 100 else None
+    return t_min, peak
+
+
+def run(args, ctx) -> int:
+    from analysis.sizing import SizingInputError, recommend
+
+    n = 3.0 if args.autonomy_days is None else args.autonomy_days
+    if not math.isfinite(n) or not 0 < n <= 60:
+        raise UsageError(f"--autonomy-days {n:g}: expected 0 < N <= 60 days")
+    if not math.isfinite(args.percentile) or not 50 <= args.percentile < 100:
+        raise UsageError(f"--percentile {args.percentile:g}: expected 50 <= P < 100 (e.g. 90)")
+    system = ctx.load_system()
+    readings = None
+    if ctx.store_path.exists():
+        readings = ctx.open_store().read()
+    days = _ledger(readings, system)
+    pr = _performance_ratio(readings, system)
+    t_min, peak = _from_readings(readings)
+    try:
+        result = recommend(system, days, autonomy_days=n, percentile=args.percentile, performance_ratio=pr,
+                           min_temperature_C=t_min, peak_dc_load_A=peak)
+    except SizingInputError as exc:
+        raise UsageError(str(exc)) from None
+    out = result.to_json()
+    if args.json:
+        print_json(out)
+        return 0
+    print("\n".join(describe(out)))
+    return 0
+
+
+def _f(x, fmt: str = ".0f", none: str = "n/a") -> str:
+    return none if x is None else format(x, fmt)
+
+
+def describe(j: dict) -> list[str]:
+    """Readable lines for a sizing result (``SizingResult.to_json()``)."""
+    b, s, dc, inv, au, dl = j["battery"], j["solar"], j["dc_dc_charger"], j["inverter"], j["autonomy"], j["design_load"]
+    pres = j["present_system"]
+    lines = ["Right-sizing recommendation", ""]
+    a = j["assumptions"]
+    lines.append(f"Design day: {a['design_Wh_per_day']:.0f} Wh ({a['design_Ah_per_day']:.1f} Ah) per day, "
+                 f"{dl['percentile']:g}th percentile, from {dl['source']}"
+                 + (f" ({dl['n_days']} complete days; mean {dl['mean_Wh_per_day']:.0f} Wh)" if dl['n_days'] else ""))
+    pva = dl.get("planned_vs_actual")
+    if pva:
+        lines.append(f"  Planned {pva['planned_Wh_per_day']:.0f} Wh/day vs measured mean "
+                     f"{pva['actual_mean_Wh_per_day']:.0f} Wh/day ({_f(pva['difference_pct'], '+.0f')} %)")
+    lines.append(f"Battery: {b['capacity_Ah']:.0f} Ah {b['chemistry']} at {b['nominal_voltage_V']:g} V "
+                 f"(now {b['present_Ah']:.0f} Ah); usable {b['usable_Wh']:.0f} Wh at {b['max_dod'] * 100:.0f} % DoD, "
+                 f"temperature factor {b['temperature_factor']:.2f}")
+    if not b["meets_target"]:
+        lines.append(f"  {b['meets_target_why']}")
+    lines.append(f"Solar array: {_f(s['array_W'])} W (now {s['present_W']:.0f} W); refills the design day in month "
+                 f"{s['design_month']} ({s['design_month_psh_h']:.2f} clear-sky sun hours x performance ratio "
+                 f"{s['performance_ratio']:.2f}, {s['performance_ratio_source']})")
+    if s.get("array_W_why"):
+        lines.append(f"  {s['array_W_why']}")
+    if dc.get("current_A") is None:
+        lines.append(f"DC-DC charger: none - {dc['current_A_why']}")
+    else:
+        lines.append(f"DC-DC charger: {dc['current_A']:.0f} A (needs {dc['required_A']:.0f} A over "
+                     f"{dc['driving_h_per_day']:.1f} h driving, {dc['driving_h_source']}); draws about "
+                     f"{dc['input_A']:.0f} A from the alternator")
+    if inv.get("continuous_W") is None:
+        lines.append(f"Inverter: none - {inv['continuous_W_why']}")
+    else:
+        lines.append(f"Inverter: {inv['continuous_W']:.0f} W continuous, {inv['surge_W']:.0f} W surge; DC input "
+                     f"{inv['dc_input_A_nominal']:.0f} A nominal, {inv['dc_input_A_at_cutoff']:.0f} A at "
+                     f"{inv['low_voltage_cutoff_V']:g} V; idle about {inv['idle_Wh_per_day']:.0f} Wh/day")
+    p = au["percentile"]
+    h = au["horizon_days"]
+
+    def days(x: float) -> str:
+        return f">= {h:g}" if x >= h else f"{x:.1f}"
+
+    lines.append(f"Autonomy parked ({au['method']}): median {days(au['days_p50'])} days, "
+                 f"{days(au[f'days_p{p:g}'])} days in {p:g} % of spells (target {au['target_days']:g}: "
+                 f"{'met' if au['meets_target'] else 'NOT met'}); chance of reaching the floor within the target "
+                 f"{au['chance_floor_within_target'] * 100:.0f} %")
+    pa = pres["autonomy"]
+    lines.append(f"  Present system ({pres['battery_Ah']:.0f} Ah, {pres['array_W']:.0f} W): median "
+                 f"{days(pa['days_p50'])} days, {days(pa[f'days_p{p:g}'])} days in {p:g} % of spells"
+                 + (" - already meets the target" if pa["meets_target"] else " - short of the target"))
+    for key, title in (("battery", "What each battery step buys (with the recommended array):"),
+                       ("array", "What each array step buys (with the recommended battery):")):
+        rows = j["steps"].get(key, [])
+        if not rows:
+            continue
+        lines.append(title)
+        for row in rows:
+            gain = row.get("buys_days_at_percentile")
+            g = "" if gain is None else (f" (at least {gain:+.1f} days)" if row["at_horizon"]
+                                         else f" ({gain:+.1f} days)")
+            lines.append(f"  {row['battery_Ah']:.0f} Ah + {row['array_W']:.0f} W: median {days(row['days_p50'])} d, "
+                         f"p{p:g} {days(row['days_at_percentile'])} d{g}"
+                         f"{'' if row['meets_target'] else ' - short of the target'}")
+    cc = j["cross_check"]
+    if cc.get("battery_capacity_Ah") is not None:
+        lines.append(f"Cross-check ({cc['method']}): battery {cc['battery_capacity_Ah']:.0f} Ah, array "
+                     f"{cc['array_W']:.0f} W")
+        for e in cc["explanation"]:
+            lines.append(f"  {e}")
+    lines.append("Cable runs (one-way length; fuse at the source end):")
+    for r in j["runs"]:
+        if r["cross_section_mm2"] is None:
+            lines.append(f"  {r['name']}: {r['current_A']:.0f} A over {r['length_m']:g} m - {r['why']}")
+        else:
+            lines.append(f"  {r['name']}: {r['current_A']:.0f} A over {r['length_m']:g} m -> "
+                         f"{r['cross_section_mm2']:g} mm2 ({r['voltage_drop_pct']:.1f} % drop) or {r['awg']} AWG "
+                         f"({r['awg_choice']['voltage_drop_pct']:.1f} %), fuse {r['fuse_A']:g} A")
+    lines.append(f"Assumptions: conductor {a['conductor_temperature_C']:g} degC, {a['insulation_rating_C']} degC "
+                 f"insulation, not bundled; run lengths {a['run_lengths_one_way_m']}; {a['simulation']}")
+    for n in j["notes"]:
+        lines.append(f"Note: {n}")
+    for c in j["cautions"]:
+        lines.append(f"Caution: {c}")
+    return lines
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit("run through 'drawdown size'")

@@ -1,0 +1,87 @@
+"""``drawdown wire``: size one cable run - cross-section, voltage drop, fuse.
+
+``--length`` is the one-way run [m] (the return conductor doubles it),
+``--voltage`` the nominal system voltage, ``--max-drop`` the limit in % (3 by
+default: charging and critical circuits; 10 for non-critical loads).
+
+When no standard size (up to 120 mm2 / 4/0 AWG, or 800 A of fuse) satisfies
+the limits, the command still exits 0 - the input was valid - and prints the
+size keys as null with a ``..._why`` key saying why and what to do (parallel
+conductors, a shorter run, a higher system voltage). Invalid input (negative
+current, zero length, ...) exits 2 naming the option.
+"""
+
+from __future__ import annotations
+
+import math
+
+from dashboard.context import UsageError, print_json
+
+
+def _check(option: str, value: float, *, low: float = 0.0, high: float = math.inf, strict: bool = True) -> None:
+    bad = not math.isfinite(value) or (value <= low if strict else value < low) or value > high
+    if bad:
+        rng = f"> {low:g}" if strict else f">= {low:g}"
+        if math.isfinite(high):
+            rng += f" and <= {high:g}"
+        raise UsageError(f"{option} {value:g}: expected a number {rng}")
+
+
+def run(args, ctx) -> int:
+    from analysis.wiring import size_run
+
+    _check("--current", args.current, high=5000)
+    _check("--length", args.length, high=1000)
+    _check("--voltage", args.voltage, high=1000)
+    _check("--max-drop", args.max_drop, high=49)
+    _check("--ambient", args.ambient, low=-40, high=150, strict=False)
+    if args.bundled < 1:
+        raise UsageError(f"--bundled {args.bundled}: expected 1 or more conductors")
+    if args.ambient >= args.insulation:
+        raise UsageError(f"--ambient {args.ambient:g}: must be below the insulation rating "
+                         f"(--insulation {args.insulation}); choose a higher-rated insulation")
+    if args.max_drop == 3.0:
+        circuit, drop = "critical", None
+    elif args.max_drop == 10.0:
+        circuit, drop = "non-critical", None
+    else:
+        circuit, drop = "critical", args.max_drop
+    try:
+        r = size_run(args.current, args.length, args.voltage, name="run", max_drop_pct=drop, circuit=circuit,
+                     insulation_C=args.insulation, conductor_temperature_C=args.ambient,
+                     bundled=args.bundled, engine_space=args.engine_space)
+    except ValueError as exc:
+        raise UsageError(str(exc)) from None
+    if args.json:
+        print_json(r.to_json())
+        return 0
+    print("\n".join(describe(r)))
+    return 0
+
+
+def describe(r) -> list[str]:
+    """Readable lines for one sized run (used by ``size`` too)."""
+    a = r.assumptions
+    lines = [f"Run: {r.current_A:.1f} A over {r.length_m:g} m one way ({2 * r.length_m:g} m round trip) "
+             f"at {r.voltage_V:g} V, drop limit {r.max_drop_pct:g} %"]
+    if r.cross_section_mm2 is None:
+        lines.append(f"  No single standard cable fits: {r.why}.")
+    else:
+        m, g = r.metric, r.awg_choice
+        lines.append(f"  Metric: {m.size} - drop {m.voltage_drop_V:.3f} V ({m.voltage_drop_pct:.2f} %), "
+                     f"ampacity {m.ampacity_A:.0f} A after derates")
+        lines.append(f"  AWG:    {g.size} ({g.cross_section_mm2:.2f} mm2) - drop {g.voltage_drop_V:.3f} V "
+                     f"({g.voltage_drop_pct:.2f} %), ampacity {g.ampacity_A:.0f} A after derates")
+        lines.append(f"  Fuse:   {r.fuse_A:g} A (>= 125 % of {r.protect_current_A:.1f} A, <= cable ampacity "
+                     f"{r.ampacity_A:.0f} A)")
+    lines.append(f"  Drop limit: {r.drop_limit_source}")
+    lines.append(f"  Minimum area for the drop alone: {r.min_area_for_drop_mm2:.2f} mm2")
+    lines.append(f"  Placement: {r.placement}")
+    lines.append(f"  Assumptions: conductor at {a['conductor_temperature_C']:g} degC, {a['insulation_rating_C']} degC "
+                 f"insulation, {a['bundled_conductors']} bundled, engine space {'yes' if a['engine_space'] else 'no'}, "
+                 f"derate x{a['derate_total']:g}; ampacity from {a['ampacity_table']}")
+    for n in r.notes:
+        lines.append(f"  Note: {n}")
+    for c in r.cautions:
+        lines.append(f"  Caution: {c}")
+    return lines

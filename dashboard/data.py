@@ -1,0 +1,849 @@
+"""The dashboard's one door to the store and to analysis.
+
+Pages never open the store or call analysis themselves: they ask the
+:class:`DataSource` of the running app (:func:`current`), which
+
+* reads the store (:class:`collector.store.Store`) and the system description,
+* calls analysis (report, solar, sizing) and caches each result per
+  ``(store state, date range, system text)`` with :func:`functools.lru_cache`,
+  so a page's several callbacks share one analysis run and a second visit
+  costs nothing. The *store state* is the file's modification times plus the
+  chunk count and newest chunk id, so an import or a collector write
+  invalidates the cache by itself -- there is no cross-page state in module
+  globals (the cache only memoises pure results);
+* degrades section by section: when an analysis module is not installed yet or
+  fails on this data, the section's :class:`Section` carries ``why`` -- a
+  plain sentence the page shows -- instead of raising.
+
+Times are UTC inside; a *date range* is a pair of local calendar dates (the
+system's timezone), both inclusive, converted to ``[start 00:00, end+1 00:00)``.
+"""
+
+from __future__ import annotations
+
+import base64
+import binascii
+import dataclasses
+import functools
+import importlib
+import json
+import logging
+import math
+import os
+import re
+import tempfile
+import threading
+from collections.abc import Callable, Iterable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Generic, TypeVar
+
+import numpy as np
+import pandas as pd
+
+from analysis.system import System, SystemError_, parse_system
+from dashboard import figures
+
+log = logging.getLogger(__name__)
+
+T = TypeVar("T")
+
+#: Largest log file accepted by upload [bytes] (50 MB).
+MAX_UPLOAD_BYTES = 50 * 1024 * 1024
+#: Ranges longer than this are read from the store in pieces for the screen (bounded memory).
+_PIECE = pd.Timedelta(days=7)
+#: Live view: readings shown and used for "this draw".
+LIVE_WINDOW = pd.Timedelta(hours=1)
+#: The present draw is the mean battery current over this window (one sample is too noisy).
+DRAW_WINDOW = pd.Timedelta(minutes=5)
+#: The "typical day" of the live view is the median of complete days in this window before the newest reading.
+TYPICAL_DAYS = pd.Timedelta(days=14)
+
+#: Low-voltage alarm per 12 V block [V] -- common practice: ~3.0 V/cell for LiFePO4 (12.0 V per 4S);
+#: for lead-acid 11.9 V per 12 V block is about empty even at rest (FIELDREF §2 OCV table: flooded
+#: 0 % = 11.89 V, AGM 0 % = 11.80 V).
+LOW_VOLTAGE_PER_BLOCK_V: dict[str, float] = {"lifepo4": 12.0, "agm": 11.9, "gel": 11.9, "flooded": 11.9}
+#: Draw is "unusual" when the present draw exceeds this multiple of the 99th-percentile one-minute draw
+#: of the previous week (a plain, explainable rule; no product's alarm logic).
+UNUSUAL_DRAW_FACTOR = 1.5
+
+
+@dataclass(frozen=True)
+class Section(Generic[T]):
+    """One part of a page's data: either a value or the reason there is none.
+
+    Attributes
+    ----------
+    value : the result, or None
+    why : a plain sentence for the page when ``value`` is None
+    """
+
+    value: T | None = None
+    why: str | None = None
+
+    @property
+    def ok(self) -> bool:
+        return self.value is not None
+
+
+def _optional(module: str, name: str) -> tuple[Callable[..., Any] | None, str | None]:
+    """``module.name`` if it can be imported, else (None, a reason the page can show)."""
+    try:
+        mod = importlib.import_module(module)
+    except ImportError as exc:
+        return None, f"not available yet ({module} is not installed: {exc.name or exc})"
+    fn = getattr(mod, name, None)
+    if fn is None:
+        return None, f"not available yet ({module}.{name} does not exist yet)"
+    return fn, None
+
+
+def _to_json(obj: Any) -> dict[str, Any]:
+    """A result object's JSON dict (``.to_json()`` may give a dict or a string)."""
+    if obj is None:
+        return {}
+    if isinstance(obj, dict):
+        return obj
+    to_json = getattr(obj, "to_json", None)
+    if to_json is not None:
+        out = to_json()
+        return json.loads(out) if isinstance(out, str) else dict(out)
+    if dataclasses.is_dataclass(obj):
+        return dataclasses.asdict(obj)
+    raise TypeError(f"cannot turn {type(obj).__name__} into JSON")
+
+
+def _finite(x: Any) -> float | None:
+    try:
+        f = float(x)
+    except (TypeError, ValueError):
+        return None
+    return f if math.isfinite(f) else None
+
+
+# -- cached computations (pure functions of their hashable arguments) ----------------
+
+def _single_flight(maxsize: int) -> Callable[[Callable[..., T]], Callable[..., T]]:
+    """``lru_cache`` that also makes concurrent callers with the same arguments wait for one run.
+
+    A page fires several callbacks at once for the same date range; without
+    this each would start its own analysis run of the same data.
+    """
+    def wrap(fn: Callable[..., T]) -> Callable[..., T]:
+        cached = functools.lru_cache(maxsize=maxsize)(fn)
+        guard = threading.Lock()
+        locks: dict[tuple, threading.Lock] = {}
+
+        @functools.wraps(fn)
+        def run(*args: Any) -> T:
+            with guard:
+                lock = locks.setdefault(args, threading.Lock())
+            with lock:
+                try:
+                    return cached(*args)
+                finally:
+                    with guard:
+                        if len(locks) > 4 * maxsize:
+                            locks.clear()
+
+        run.cache_clear = cached.cache_clear  # type: ignore[attr-defined]
+        run.cache_info = cached.cache_info  # type: ignore[attr-defined]
+        return run
+    return wrap
+
+
+def _open_store(path: str):
+    from collector.store import Store
+
+    return Store(path)
+
+
+@_single_flight(maxsize=8)
+def _report_cached(store_path: str, key: tuple, start_iso: str, end_iso: str, system_text: str
+                   ) -> tuple[Any, str | None]:
+    build_report, why = _optional("analysis.report", "build_report")
+    if build_report is None:
+        return None, f"Analysis {why}."
+    system = parse_system(system_text)
+    with _open_store(store_path) as store:
+        readings = store.read(start_iso, end_iso)
+        rejected = sum(int(i.get("rows_rejected") or 0) for i in store.imports())
+    if readings.empty:
+        return None, "No readings stored in this date range."
+    try:
+        report = build_report(readings, system, rows_rejected=rejected,
+                              start=pd.Timestamp(start_iso), end=pd.Timestamp(end_iso))
+    except Exception as exc:  # noqa: BLE001 - a page shows the reason instead of an error
+        log.exception("build_report failed")
+        return None, f"The analysis could not run on this range: {exc}"
+    return report, None
+
+
+@_single_flight(maxsize=8)
+def _ledger_cached(store_path: str, key: tuple, start_iso: str, end_iso: str, system_text: str
+                   ) -> tuple[Any, str | None]:
+    """The daily ledger (analysis.ledger.LedgerResult): the report's own, else computed directly."""
+    report, _why = _report_cached(store_path, key, start_iso, end_iso, system_text)
+    if report is not None:
+        part = _find_part(report, "LedgerResult", "ledger", "ledger_result")
+        if part is not None:
+            return part, None
+    compute_ledger, why = _optional("analysis.ledger", "compute_ledger")
+    split_channels, why2 = _optional("analysis.readings", "split_channels")
+    if compute_ledger is None or split_channels is None:
+        return None, f"The daily ledger is {why or why2}."
+    system = parse_system(system_text)
+    with _open_store(store_path) as store:
+        readings = store.read(start_iso, end_iso)
+    if readings.empty:
+        return None, "No readings stored in this date range."
+    try:
+        return compute_ledger(split_channels(readings), system), None
+    except Exception as exc:  # noqa: BLE001
+        log.exception("compute_ledger failed")
+        return None, f"The daily ledger could not be built on this range: {exc}"
+
+
+@_single_flight(maxsize=8)
+def _solar_cached(store_path: str, key: tuple, start_iso: str, end_iso: str, system_text: str
+                  ) -> tuple[Any, str | None]:
+    analyse_solar, why = _optional("analysis.solar", "analyse_solar")
+    if analyse_solar is None:
+        return None, f"Solar analysis {why}."
+    system = parse_system(system_text)
+    if not system.solar:
+        return None, "The system description lists no solar array ([[solar]] in system.toml)."
+    with _open_store(store_path) as store:
+        readings = store.read(start_iso, end_iso)
+    if readings.empty:
+        return None, "No readings stored in this date range."
+    try:
+        return analyse_solar(readings, system), None
+    except Exception as exc:  # noqa: BLE001
+        log.exception("analyse_solar failed")
+        return None, f"The solar analysis could not run on this range: {exc}"
+
+
+@_single_flight(maxsize=32)
+def _sizing_cached(store_path: str, key: tuple, start_iso: str, end_iso: str, system_text: str,
+                   autonomy_days: float, percentile: float) -> tuple[Any, str | None]:
+    recommend, why = _optional("analysis.sizing", "recommend")
+    if recommend is None:
+        return None, f"Sizing {why}."
+    system = parse_system(system_text)
+    report, _rwhy = _report_cached(store_path, key, start_iso, end_iso, system_text)
+    ledger, _lwhy = _ledger_cached(store_path, key, start_iso, end_iso, system_text)
+    days = getattr(ledger, "days", None)
+    pr = _finite(_to_json(report).get("solar", {}).get("performance_ratio")) if report is not None else None
+    try:
+        result = recommend(system, days if days is not None else pd.DataFrame(),
+                           autonomy_days=autonomy_days, percentile=percentile, performance_ratio=pr)
+    except Exception as exc:  # noqa: BLE001
+        log.exception("recommend failed")
+        return None, f"The sizing could not run: {exc}"
+    return result, None
+
+
+@_single_flight(maxsize=64)
+def _screen_series_cached(store_path: str, key: tuple, channel: str, quantity: str,
+                          start_iso: str | None, end_iso: str | None, n_out: int
+                          ) -> tuple[pd.DatetimeIndex, np.ndarray, bool]:
+    with _open_store(store_path) as store:
+        if start_iso is None or end_iso is None:
+            span = store.time_span()
+            if span is None:
+                return pd.DatetimeIndex([], tz="UTC"), np.array([]), True
+            start = pd.Timestamp(start_iso) if start_iso else span[0]
+            end = pd.Timestamp(end_iso) if end_iso else span[1] + pd.Timedelta(microseconds=1)
+        else:
+            start, end = pd.Timestamp(start_iso), pd.Timestamp(end_iso)
+        total = end - start
+        edges = list(pd.date_range(start, end, freq=_PIECE)) if total > _PIECE else [start]
+        if edges[-1] < end:
+            edges.append(end)
+        if len(edges) == 1:
+            edges.append(end)
+        ts: list[pd.DatetimeIndex] = []
+        ys: list[np.ndarray] = []
+        full = True
+        for lo, hi in zip(edges[:-1], edges[1:]):
+            piece = store.read(lo, hi, channels=[channel])
+            if piece.empty or quantity not in piece:
+                continue
+            share = max(4, int(round(n_out * ((hi - lo) / total))))
+            y = piece[quantity].to_numpy(dtype="float64")
+            full &= np.isfinite(y).sum() <= share
+            t_d, y_d = figures.downsample(piece["t"], y, share)
+            ts.append(t_d)
+            ys.append(y_d)
+    if not ts:
+        return pd.DatetimeIndex([], tz="UTC"), np.array([]), True
+    return ts[0].append(ts[1:]) if len(ts) > 1 else ts[0], np.concatenate(ys), bool(full)
+
+
+def clear_caches() -> None:
+    """Forget every cached result (tests; after writing system.toml)."""
+    for fn in (_report_cached, _ledger_cached, _solar_cached, _sizing_cached, _screen_series_cached):
+        fn.cache_clear()
+
+
+# -- adapters from analysis results to what pages draw --------------------------------
+
+_SOURCES = ("solar", "alternator", "shore", "other")
+
+
+_DAY_COLUMNS = ["date", "complete", "consumed_Ah", "consumed_Wh", "soc_min_pct", "soc_end_pct",
+                *[f"charged_{s}_Ah" for s in _SOURCES], "charged_Ah"]
+
+
+def _ledger_days(days: pd.DataFrame) -> pd.DataFrame:
+    """analysis.ledger's day frame (``charged_Ah_<source>``) in the dashboard's flat form."""
+    out = pd.DataFrame({"date": pd.to_datetime(days["date"]).dt.strftime("%Y-%m-%d"),
+                        "complete": days["complete"].astype(bool)})
+    for col in ("consumed_Ah", "consumed_Wh", "soc_min_pct", "soc_end_pct"):
+        out[col] = pd.to_numeric(days[col], errors="coerce") if col in days else np.nan
+    for src in _SOURCES:
+        col = f"charged_Ah_{src}"
+        out[f"charged_{src}_Ah"] = pd.to_numeric(days[col], errors="coerce").fillna(0.0) if col in days else 0.0
+    out["charged_Ah"] = out[[f"charged_{s}_Ah" for s in _SOURCES]].sum(axis=1)
+    return out[_DAY_COLUMNS].reset_index(drop=True)
+
+
+def _report_days(report: Any) -> pd.DataFrame:
+    """The report's ``days`` (DESIGN.md contract keys) as a flat DataFrame.
+
+    Columns: date, complete, consumed_Ah, consumed_Wh, charged_<source>_Ah for
+    solar/alternator/shore/other, charged_Ah (total), soc_min_pct, soc_end_pct.
+    """
+    days = _to_json(report).get("days") or []
+    rows = []
+    for d in days:
+        charged = d.get("charged_Ah") or {}
+        row = {"date": d.get("date"), "complete": bool(d.get("complete", True)),
+               "consumed_Ah": _finite(d.get("consumed_Ah")), "consumed_Wh": _finite(d.get("consumed_Wh")),
+               "soc_min_pct": _finite(d.get("soc_min_pct")), "soc_end_pct": _finite(d.get("soc_end_pct"))}
+        for s in _SOURCES:
+            row[f"charged_{s}_Ah"] = _finite(charged.get(s)) or 0.0
+        row["charged_Ah"] = sum(row[f"charged_{s}_Ah"] for s in _SOURCES)
+        rows.append(row)
+    return pd.DataFrame(rows, columns=_DAY_COLUMNS)
+
+
+def _soc_of(report: Any) -> tuple[pd.Series | None, list[pd.Timestamp]]:
+    """The report's SoC series [%] and its full-charge resync times, whatever shape it has."""
+    soc = getattr(report, "soc", None)
+    resync: list[pd.Timestamp] = []
+    if soc is not None and hasattr(soc, "soc_pct") and not isinstance(soc, pd.Series):  # analysis.charge.SocResult
+        resync = list(getattr(soc, "resync_times", []) or [])
+        soc = soc.soc_pct
+    for name in ("resync_times", "resyncs"):
+        if not resync and getattr(report, name, None) is not None:
+            resync = list(getattr(report, name))
+    if soc is not None and not isinstance(soc, pd.Series):
+        soc = None
+    return soc, [pd.Timestamp(t) for t in resync]
+
+
+def _find_part(report: Any, class_name: str, *attr_names: str) -> Any:
+    """The report's sub-result of a given class (by name), looked up by attribute, tolerant of naming."""
+    for name in attr_names:
+        obj = getattr(report, name, None)
+        if obj is not None and type(obj).__name__ == class_name:
+            return obj
+    fields = getattr(report, "__dataclass_fields__", None) or getattr(report, "__dict__", {})
+    for name in fields:
+        obj = getattr(report, name, None)
+        if type(obj).__name__ == class_name:
+            return obj
+    return None
+
+
+@dataclass(frozen=True)
+class Health:
+    """What the battery-health page draws.
+
+    Attributes
+    ----------
+    battery : the report's ``battery`` JSON (DESIGN.md keys, plus ``..._why`` reasons)
+    capacity_points : per anchor pair: t (end, UTC), usable_Ah, lo_Ah, hi_Ah, delta_soc_pct
+    resistance_points : per day: t (local date), resistance_ohm, steps
+    resistance_trend_ohm_per_30d : linear trend, None when too few days
+    peukert_points : (current_A, runtime_h) pairs used in the fit
+    peukert_source : 'fitted', 'system.toml' or 'chemistry default'
+    rated_Ah, rated_hours : from system.toml
+    """
+
+    battery: dict[str, Any]
+    capacity_points: pd.DataFrame
+    resistance_points: pd.DataFrame
+    resistance_trend_ohm_per_30d: float | None
+    peukert_points: tuple[tuple[float, float], ...]
+    peukert_source: str | None
+    rated_Ah: float
+    rated_hours: float
+
+
+def _health_of(report: Any, system: System) -> Health:
+    battery = dict(_to_json(report).get("battery") or {})
+    cap = _find_part(report, "CapacityEstimate", "capacity")
+    pts = pd.DataFrame(columns=["t", "usable_Ah", "lo_Ah", "hi_Ah", "delta_soc_pct"])
+    if cap is not None and getattr(cap, "pairs", ()):
+        rows = []
+        for pair in cap.pairs:  # a loop over discharges (a handful), not over readings
+            q = float(pair.capacity_Ah)
+            # 95 % interval of one pair: y/x with relative errors added in quadrature (FIELDREF §3).
+            rel = math.hypot(pair.sigma_y / max(abs(pair.ah_moved), 1e-9), pair.sigma_x / max(abs(pair.delta_soc), 1e-9))
+            rows.append({"t": pair.end.time, "usable_Ah": q, "lo_Ah": q * (1 - 1.96 * rel),
+                         "hi_Ah": q * (1 + 1.96 * rel), "delta_soc_pct": 100 * abs(pair.delta_soc)})
+        pts = pd.DataFrame(rows)
+    res = _find_part(report, "ResistanceEstimate", "resistance", "internal_resistance")
+    rpts = pd.DataFrame(columns=["t", "resistance_ohm", "steps"])
+    trend = None
+    if res is not None:
+        per_day = getattr(res, "per_day", None)
+        if per_day is not None and len(per_day):
+            rpts = pd.DataFrame({"t": pd.to_datetime(per_day["date"]), "resistance_ohm": per_day["ohm"],
+                                 "steps": per_day.get("steps")})
+        trend = _finite(getattr(res, "trend_ohm_per_30d", None))
+    pk = _find_part(report, "PeukertEstimate", "peukert")
+    return Health(battery=battery, capacity_points=pts, resistance_points=rpts,
+                  resistance_trend_ohm_per_30d=trend,
+                  peukert_points=tuple(getattr(pk, "points", ()) or ()),
+                  peukert_source=getattr(pk, "source", None),
+                  rated_Ah=system.battery.rated_capacity_Ah, rated_hours=system.battery.rated_hours)
+
+
+@dataclass(frozen=True)
+class LiveSnapshot:
+    """What the live view shows: the newest readings and what follows from them.
+
+    Attributes
+    ----------
+    t : time of the newest battery reading (UTC)
+    voltage_V, current_A, power_W : newest battery values (current positive = charging)
+    draw_A : mean battery current over the last five minutes [A] (negative = discharging)
+    soc_pct, soc_source : state of charge and where it came from
+    temperature_C : battery temperature, if measured
+    remaining_Ah : charge left above the chemistry's usual floor [Ah]
+    runtime_at_draw_h : hours to that floor at ``draw_A`` (None when charging or unknown)
+    typical_day_Ah : median consumption of the recent complete days [Ah]
+    runtime_typical_days : days to the floor at the typical day's use
+    alarms : plain sentences (low voltage, unusual draw); empty when all is well
+    notes : why a figure is missing
+    readings : the last hour, canonical long frame
+    low_voltage_V : the alarm level used [V]
+    """
+
+    t: pd.Timestamp | None
+    voltage_V: float | None
+    current_A: float | None
+    power_W: float | None
+    draw_A: float | None
+    soc_pct: float | None
+    soc_source: str
+    temperature_C: float | None
+    remaining_Ah: float | None
+    runtime_at_draw_h: float | None
+    typical_day_Ah: float | None
+    runtime_typical_days: float | None
+    alarms: tuple[str, ...]
+    notes: tuple[str, ...]
+    readings: pd.DataFrame
+    low_voltage_V: float | None
+
+
+# -- the data source -------------------------------------------------------------------
+
+class DataSource:
+    """The store and system description of one running dashboard.
+
+    Parameters
+    ----------
+    store_path
+        The SQLite reading store.
+    system_path
+        ``system.toml``; it may not exist yet (the setup page can write it).
+    """
+
+    def __init__(self, store_path: str | Path, system_path: str | Path):
+        self.store_path = Path(store_path)
+        self.system_path = Path(system_path)
+        self._write_lock = threading.Lock()
+
+    @classmethod
+    def from_context(cls, ctx: Any) -> DataSource:
+        return cls(ctx.store_path, ctx.system_path)
+
+    # -- store -----------------------------------------------------------------
+    def store_key(self) -> tuple:
+        """What changes whenever the store's content changes (cache key).
+
+        File modification times (main file and write-ahead log, nanoseconds)
+        plus the number of chunks and the newest chunk id.
+        """
+        stamps = []
+        for suffix in ("", "-wal"):
+            try:
+                st = os.stat(f"{self.store_path}{suffix}")
+                stamps.append((st.st_mtime_ns, st.st_size))
+            except FileNotFoundError:
+                stamps.append(None)
+        if stamps[0] is None:
+            return (None,)
+        with _open_store(str(self.store_path)) as store:
+            n, last_id, rows = store.execute("SELECT COUNT(*), MAX(id), SUM(n) FROM chunks").fetchone()
+        return (*stamps, n, last_id, rows)
+
+    def has_store(self) -> bool:
+        return self.store_path.exists()
+
+    def time_span(self) -> tuple[pd.Timestamp, pd.Timestamp] | None:
+        if not self.has_store():
+            return None
+        with _open_store(str(self.store_path)) as store:
+            return store.time_span()
+
+    def channel_summary(self) -> dict[str, dict[str, Any]]:
+        if not self.has_store():
+            return {}
+        with _open_store(str(self.store_path)) as store:
+            return store.channel_summary()
+
+    def imports(self) -> list[dict[str, Any]]:
+        if not self.has_store():
+            return []
+        with _open_store(str(self.store_path)) as store:
+            return store.imports()
+
+    # -- system ----------------------------------------------------------------
+    def system_text(self) -> str | None:
+        try:
+            return self.system_path.read_text(encoding="utf-8")
+        except (FileNotFoundError, UnicodeDecodeError):
+            return None
+
+    def system(self) -> Section[System]:
+        text = self.system_text()
+        if text is None:
+            return Section(why=f"No system description at {self.system_path}: write one on the System setup page.")
+        try:
+            return Section(parse_system(text, source=str(self.system_path)))
+        except SystemError_ as exc:
+            return Section(why=str(exc))
+
+    def timezone(self) -> str:
+        s = self.system()
+        return s.value.site.timezone if s.ok else "UTC"
+
+    @staticmethod
+    def validate_system_text(text: str, *, source: str = "system.toml") -> tuple[System | None, str]:
+        """Parse edited TOML: (System, 'valid ...') or (None, the validation messages)."""
+        try:
+            system = parse_system(text, source=source)
+        except SystemError_ as exc:
+            return None, str(exc)
+        b = system.battery
+        return system, (f"{source}: valid. Battery {b.rated_capacity_Ah:g} Ah {b.chemistry} at "
+                        f"{b.nominal_voltage_V:g} V; {len(system.solar)} solar array(s), "
+                        f"{len(system.charger)} charger(s), {len(system.load)} planned load(s).")
+
+    def save_system_text(self, text: str) -> tuple[bool, str]:
+        """Write ``system.toml`` only when the text is valid; (saved, message)."""
+        system, message = self.validate_system_text(text, source=str(self.system_path))
+        if system is None:
+            return False, message + "\nNothing was written."
+        with self._write_lock:
+            self.system_path.parent.mkdir(parents=True, exist_ok=True)
+            tmp = self.system_path.with_suffix(".toml.tmp")
+            tmp.write_text(text, encoding="utf-8")
+            os.replace(tmp, self.system_path)  # atomic: a crash never leaves half a file
+        clear_caches()
+        return True, message + f"\nSaved to {self.system_path}."
+
+    # -- date ranges ---------------------------------------------------------------
+    def default_range(self, days: int = 14) -> tuple[str, str] | None:
+        """The last ``days`` local days of the store (or all of it): (start, end) dates."""
+        span = self.time_span()
+        if span is None:
+            return None
+        tz = self.timezone()
+        first, last = span[0].tz_convert(tz).date(), span[1].tz_convert(tz).date()
+        start = max(first, last - pd.Timedelta(days=days - 1))
+        return start.isoformat(), last.isoformat()
+
+    def full_range(self) -> tuple[str, str] | None:
+        span = self.time_span()
+        if span is None:
+            return None
+        tz = self.timezone()
+        return span[0].tz_convert(tz).date().isoformat(), span[1].tz_convert(tz).date().isoformat()
+
+    def utc_bounds(self, start_date: str, end_date: str) -> tuple[str, str]:
+        """Local inclusive dates to UTC ``[start, end)`` ISO strings (the cache's keys)."""
+        tz = self.timezone()
+        lo = pd.Timestamp(start_date).tz_localize(tz)
+        hi = (pd.Timestamp(end_date) + pd.Timedelta(days=1)).tz_localize(tz)
+        if hi <= lo:
+            raise ValueError(f"date range {start_date} .. {end_date}: the end is before the start")
+        return lo.tz_convert("UTC").isoformat(), hi.tz_convert("UTC").isoformat()
+
+    def _keyed(self, start_date: str, end_date: str) -> tuple[str, tuple, str, str, str] | Section:
+        sys_s = self.system()
+        if not sys_s.ok:
+            return Section(why=sys_s.why)
+        if not self.has_store():
+            return Section(why="The store is empty: import a log on the System setup page.")
+        try:
+            lo, hi = self.utc_bounds(start_date, end_date)
+        except (ValueError, TypeError) as exc:
+            return Section(why=f"Pick a valid date range ({exc}).")
+        return str(self.store_path), self.store_key(), lo, hi, self.system_text() or ""
+
+    # -- analysis sections -------------------------------------------------------------
+    def report(self, start_date: str, end_date: str) -> Section[Any]:
+        """The analysis report of a local date range (cached)."""
+        k = self._keyed(start_date, end_date)
+        if isinstance(k, Section):
+            return k
+        value, why = _report_cached(*k)
+        return Section(value, why)
+
+    def report_json(self, start_date: str, end_date: str) -> Section[dict]:
+        s = self.report(start_date, end_date)
+        return Section(_to_json(s.value), None) if s.ok else Section(why=s.why)
+
+    def ledger(self, start_date: str, end_date: str) -> Section[Any]:
+        """The analysis.ledger.LedgerResult of a range (the report's, else computed directly; cached)."""
+        k = self._keyed(start_date, end_date)
+        if isinstance(k, Section):
+            return k
+        value, why = _ledger_cached(*k)
+        return Section(value, why)
+
+    def days(self, start_date: str, end_date: str) -> Section[pd.DataFrame]:
+        """The daily ledger of a range as a flat DataFrame (columns of :func:`_ledger_days`)."""
+        led = self.ledger(start_date, end_date)
+        if led.ok and isinstance(getattr(led.value, "days", None), pd.DataFrame):
+            return Section(_ledger_days(led.value.days))
+        rep = self.report(start_date, end_date)
+        if rep.ok:
+            return Section(_report_days(rep.value))
+        return Section(why=led.why or rep.why)
+
+    def soc(self, start_date: str, end_date: str) -> Section[tuple[pd.Series, list[pd.Timestamp]]]:
+        """State of charge [%] over the range and its full-charge resync times."""
+        rep = self.report(start_date, end_date)
+        if rep.ok:
+            soc, resync = _soc_of(rep.value)
+            if soc is not None:
+                return Section((soc, resync))
+        led = self.ledger(start_date, end_date)
+        if led.ok and getattr(led.value, "soc", None) is not None:
+            return Section(_soc_of(led.value))
+        return Section(why=led.why or rep.why or "No state-of-charge estimate (no battery channel).")
+
+    def health(self, start_date: str, end_date: str) -> Section[Health]:
+        """Capacity, internal resistance and Peukert pieces of the report (see :class:`Health`)."""
+        s = self.report(start_date, end_date)
+        if not s.ok:
+            return Section(why=s.why)
+        return Section(_health_of(s.value, self.system().value))
+
+    def solar(self, start_date: str, end_date: str) -> Section[Any]:
+        """The solar analysis of a range: the report's own when it has one, else a direct run (cached)."""
+        k = self._keyed(start_date, end_date)
+        if isinstance(k, Section):
+            return k
+        report, _why = _report_cached(*k)
+        if report is not None:
+            part = _find_part(report, "SolarAnalysis", "solar")
+            if part is not None:
+                return Section(part)
+        value, why = _solar_cached(*k)
+        return Section(value, why)
+
+    def sizing(self, start_date: str, end_date: str, *, autonomy_days: float, percentile: float) -> Section[Any]:
+        k = self._keyed(start_date, end_date)
+        if isinstance(k, Section):
+            return k
+        value, why = _sizing_cached(*k, float(autonomy_days), float(percentile))
+        return Section(value, why)
+
+    # -- raw series for the screen ---------------------------------------------------------
+    def screen_series(self, channel: str, quantity: str, start: Any = None, end: Any = None, *,
+                      n_out: int = figures.SCREEN_POINTS) -> tuple[pd.DatetimeIndex, np.ndarray, bool]:
+        """One channel's quantity over ``[start, end)`` thinned to ~``n_out`` points.
+
+        Long ranges are read in week-long pieces so memory stays bounded on a
+        year of 1 Hz data. Returns (UTC times, values, full_resolution) where
+        ``full_resolution`` says that every stored reading is included.
+        """
+        if not self.has_store():
+            return pd.DatetimeIndex([], tz="UTC"), np.array([]), True
+        s = None if start is None else pd.Timestamp(start).isoformat()
+        e = None if end is None else pd.Timestamp(end).isoformat()
+        return _screen_series_cached(str(self.store_path), self.store_key(), channel, quantity, s, e, int(n_out))
+
+    # -- live view ------------------------------------------------------------------------
+    def live(self) -> LiveSnapshot:
+        """The newest stored readings and what they mean (see :class:`LiveSnapshot`)."""
+        notes: list[str] = []
+        empty = LiveSnapshot(None, None, None, None, None, None, "", None, None, None, None, None, (), (),
+                             pd.DataFrame(), None)
+        span = self.time_span()
+        if span is None:
+            return dataclasses.replace(empty, notes=("No readings stored yet: import a log on the System setup "
+                                                     "page or start `drawdown collect`.",))
+        last = span[1]
+        with _open_store(str(self.store_path)) as store:
+            recent = store.read(last - LIVE_WINDOW, last + pd.Timedelta(microseconds=1))
+            week = store.read(last - pd.Timedelta(days=7), last - LIVE_WINDOW, channels=["battery"])
+        bat = recent[recent["channel"].astype(str) == "battery"]
+        if bat.empty:
+            return dataclasses.replace(empty, readings=recent, notes=("No battery channel in the last hour.",))
+        row = bat.iloc[-1]
+        v, i = _finite(row["voltage_V"]), _finite(row["current_A"])
+        p = v * i if v is not None and i is not None else None
+        t_last = pd.Timestamp(row["t"])
+        draw_mask = bat["t"] >= t_last - DRAW_WINDOW
+        draw = _finite(np.nanmean(bat.loc[draw_mask, "current_A"].to_numpy(dtype=float))) \
+            if bat.loc[draw_mask, "current_A"].notna().any() else None
+        temp = _finite(row["temperature_C"])
+
+        sys_s = self.system()
+        system = sys_s.value
+        if system is None:
+            notes.append(sys_s.why or "No system description.")
+        low_v = None
+        if system is not None:
+            low_v = LOW_VOLTAGE_PER_BLOCK_V[system.battery.chemistry] * round(system.battery.series_12V_blocks)
+
+        # State of charge: our own estimate over the recent fortnight, else the monitor's figure.
+        soc, soc_source, usable, typical = None, "", None, None
+        if system is not None:
+            tz = system.site.timezone
+            end_date = t_last.tz_convert(tz).date()
+            start_date = (t_last - TYPICAL_DAYS).tz_convert(tz).date()
+            rng = (start_date.isoformat(), end_date.isoformat())
+            soc_s = self.soc(*rng)
+            if soc_s.ok and len(soc_s.value[0]):
+                series = soc_s.value[0]
+                if series.index[-1] >= t_last - pd.Timedelta(minutes=10):
+                    soc, soc_source = _finite(series.iloc[-1]), "estimated by coulomb counting"
+            rep = self.report(*rng)
+            if rep.ok:
+                usable = _finite(_to_json(rep.value).get("battery", {}).get("usable_Ah"))
+            days = self.days(*rng)
+            if days.ok:
+                done = days.value[days.value["complete"] & days.value["consumed_Ah"].notna()]
+                if len(done):
+                    typical = float(np.median(np.abs(done["consumed_Ah"].to_numpy(dtype=float))))
+                else:
+                    notes.append("Typical day: no whole day in the last fortnight yet.")
+            else:
+                notes.append(f"Typical day: {days.why}")
+        if soc is None and _finite(row["soc_pct"]) is not None:
+            soc, soc_source = _finite(row["soc_pct"]), "the monitor's own figure"
+
+        remaining = runtime_h = runtime_days = None
+        if system is not None and soc is not None:
+            capacity = usable or system.battery.rated_capacity_Ah
+            floor_pct = 100.0 * (1.0 - system.battery.effective_max_dod)
+            remaining = max(0.0, (soc - floor_pct) / 100.0 * capacity)
+            if draw is not None and draw < -0.05:
+                runtime_h = remaining / -draw
+            if typical:
+                runtime_days = remaining / typical
+        alarms: list[str] = []
+        if low_v is not None and v is not None and v < low_v:
+            alarms.append(f"Low voltage: {v:.2f} V is below {low_v:.1f} V. Reduce the load or charge soon.")
+        week_cur = week["current_A"].to_numpy(dtype=float) if not week.empty else np.array([])
+        if draw is not None and draw < 0 and week_cur.size > 600:
+            minute = pd.Series(week_cur, index=pd.DatetimeIndex(week["t"])).resample("1min").mean().dropna()
+            discharge = -minute[minute < 0].to_numpy()
+            if discharge.size >= 60:
+                usual = float(np.percentile(discharge, 99))
+                if -draw > UNUSUAL_DRAW_FACTOR * usual and -draw > 1.0:
+                    alarms.append(f"Unusual draw: {-draw:.1f} A is more than {UNUSUAL_DRAW_FACTOR:g}x the "
+                                  f"heaviest usual draw of the past week ({usual:.1f} A).")
+        return LiveSnapshot(t_last, v, i, p, draw, soc, soc_source, temp, remaining, runtime_h, typical,
+                            runtime_days, tuple(alarms), tuple(notes), recent, low_v)
+
+    # -- upload -----------------------------------------------------------------------------
+    def import_upload(self, filename: str, contents: str) -> dict[str, Any]:
+        """Import one uploaded log with the same importer as ``drawdown import``.
+
+        Parameters
+        ----------
+        filename
+            The name the browser gave (only its suffix is kept, for format detection).
+        contents
+            The ``dcc.Upload`` data URL (``data:<mime>;base64,<payload>``).
+
+        Returns
+        -------
+        dict
+            ``{"ok": True, "summary": <import JSON>}`` or ``{"ok": False, "error": message}``.
+            The file is written to a private temporary folder, parsed as data
+            (never executed) and deleted.
+        """
+        import_file, why = _optional("collector.csv_file", "import_file")
+        if import_file is None:
+            return {"ok": False, "error": f"Importing by upload is {why}."}
+        try:
+            _header, payload = contents.split(",", 1)
+            raw = base64.b64decode(payload, validate=True)
+        except (ValueError, binascii.Error):
+            return {"ok": False, "error": f"{filename}: the upload arrived damaged (not base64 data). Try again."}
+        if len(raw) > MAX_UPLOAD_BYTES:
+            return {"ok": False, "error": f"{filename}: {len(raw) / 1e6:.1f} MB is over the "
+                                          f"{MAX_UPLOAD_BYTES / 1e6:.0f} MB upload limit; use `drawdown import`."}
+        suffix = "".join(Path(filename).suffixes[-2:])
+        suffix = suffix if re.fullmatch(r"(\.[A-Za-z0-9]{1,8}){1,2}", suffix or "") else ".log"
+        stem = re.sub(r"[^A-Za-z0-9._-]+", "_", Path(filename).stem)[:60] or "upload"
+        with tempfile.TemporaryDirectory(prefix="drawdown-upload-") as tmp:
+            path = Path(tmp) / f"{stem}{suffix}"
+            path.write_bytes(raw)
+            try:
+                with self._write_lock, _open_store(str(self.store_path)) as store:
+                    sys_s = self.system()
+                    result = _call_importer(import_file, path, store, self.system_timezone_or_none(),
+                                            sys_s.value.battery.nominal_voltage_V if sys_s.ok else None)
+            except Exception as exc:  # noqa: BLE001 - any importer error is the file's message
+                return {"ok": False, "error": f"{filename}: {exc}"}
+        clear_caches()
+        summary = _to_json(result)
+        return {"ok": True, "summary": summary}
+
+    def system_timezone_or_none(self) -> str | None:
+        s = self.system()
+        return s.value.site.timezone if s.ok else None
+
+
+def _call_importer(import_file: Callable[..., Any], path: Path, store: Any, tz: str | None,
+                   nominal_voltage_V: float | None = None) -> Any:
+    """Call collector.csv_file.import_file with the keywords it accepts."""
+    import inspect
+
+    params = inspect.signature(import_file).parameters
+    kwargs: dict[str, Any] = {}
+    for name in ("tz", "timezone", "default_tz"):
+        if name in params and tz is not None:
+            kwargs[name] = tz
+            break
+    if nominal_voltage_V is not None and "nominal_voltage_V" in params:
+        kwargs["nominal_voltage_V"] = nominal_voltage_V
+    return import_file(path, store, **kwargs)
+
+
+def current() -> DataSource:
+    """The data source of the app handling this request (set by :func:`dashboard.app.create_app`)."""
+    import flask
+
+    return flask.current_app.config["DRAWDOWN_SOURCE"]
+
+
+def imports_table(imports: Iterable[dict[str, Any]]) -> list[dict[str, Any]]:
+    """Rows for the 'what was imported' table: path, rows stored/rejected, when."""
+    return [{"file": Path(i["path"]).name, "rows_stored": i["rows_stored"], "rows_rejected": i["rows_rejected"],
+             "imported_at": i["imported_at"]} for i in imports]
