@@ -33,7 +33,7 @@ import pandas as pd
 
 from analysis import ocv as ocv_mod
 from analysis.peukert import effective_current
-from analysis.readings import US_PER_S, Channel, gap_mask, gap_threshold_s
+from analysis.readings import US_PER_S, Channel, fill0, gap_mask, gap_threshold_s, median_interval_s
 from analysis.system import System
 
 #: One-sigma uncertainty of a full-charge resync [fraction of capacity] (common practice: ~ 2-3 %;
@@ -120,29 +120,42 @@ class SocResult:
 
     def with_capacity(self, capacity_Ah: float) -> SocResult:
         """The same history re-run against another reference capacity (cheap: no re-integration)."""
-        soc = soc_from_anchors(self.charge_Ah, self.anchors, capacity_Ah, start_soc_pct=None)
+        if len(self.charge_Ah) != len(self.t_us):
+            raise ValueError("this SocResult no longer holds its cumulative charge; re-run state_of_charge")
+        start = float(self.soc[0]) if not self.anchors and len(self.soc) else None
+        soc = soc_from_anchors(self.charge_Ah, self.anchors, capacity_Ah, start_soc_pct=start)
         return replace(self, soc=soc, capacity_Ah=float(capacity_Ah))
 
 
 def trapezoid_increments(t_us: np.ndarray, current_A: np.ndarray, *,
-                         gaps: np.ndarray | None = None) -> np.ndarray:
+                         gaps: np.ndarray | None = None, dt_h: np.ndarray | None = None) -> np.ndarray:
     """Charge moved in each sampling interval by the trapezoid rule [Ah] (length n-1).
 
-    NaN currents and gap intervals contribute 0 (unknown, not guessed).
+    NaN currents and gap intervals contribute 0 (unknown, not guessed). The
+    result keeps the input's float precision (float32 logs stay float32:
+    relative error ~1e-7 per interval; sums are taken in float64).
 
     Parameters
     ----------
     t_us : sample times [int64 us], increasing
     current_A : current at each sample [A]
     gaps : optional boolean per interval; True intervals are not integrated
+    dt_h : optional precomputed intervals [h] (``Channel.dt_h``), saves a pass
     """
     if len(t_us) < 2:
         return np.zeros(0)
     out = np.add(current_A[1:], current_A[:-1])
-    out *= np.diff(t_us) * (0.5 / (US_PER_S * 3600.0))
-    if gaps is not None:
+    if not np.issubdtype(out.dtype, np.floating):
+        out = out.astype(np.float64)
+    if dt_h is None:
+        dt_h = np.diff(t_us) * (1.0 / (US_PER_S * 3600.0))
+    np.multiply(out, dt_h, out=out, casting="same_kind")
+    out *= 0.5
+    if gaps is not None and gaps.any():
         out[gaps] = 0.0
-    np.nan_to_num(out, copy=False, nan=0.0)
+    nan = np.isnan(out)
+    if nan.any():
+        out[nan] = 0.0
     return out
 
 
@@ -168,12 +181,13 @@ def coulomb_count_Ah(t: pd.Series | pd.DatetimeIndex | np.ndarray, current_A: np
 def corrected_current_A(current_A: np.ndarray, *, charge_efficiency: float, rated_current_A: float,
                         peukert_k: float) -> np.ndarray:
     """Current as it changes the state of charge [A]: eta*I on charge, -I_eff on discharge."""
-    out = np.where(current_A > 0, current_A * charge_efficiency, 0.0)
-    dis = current_A < 0
-    if peukert_k == 1.0:
-        out[dis] = current_A[dis]
-    else:
-        out[dis] = -effective_current(current_A[dis], rated_current_A, peukert_k)
+    out = np.where(current_A > 0, current_A * charge_efficiency, current_A)
+    if peukert_k != 1.0:
+        # With the clamp I_eff >= |I| the correction only acts above the rated current,
+        # usually a small share of samples: compute it there only.
+        hi = np.flatnonzero(current_A < -rated_current_A)
+        if len(hi):
+            out[hi] = -effective_current(current_A[hi], rated_current_A, peukert_k)
     return out
 
 
@@ -272,7 +286,19 @@ def detect_quasi_ocv_anchors(ch: Channel, system: System, gaps: np.ndarray,
     cap = b.rated_capacity_Ah
     r_ohm = internal_resistance_ohm if internal_resistance_ohm else 0.01 * ocv_mod.blocks(b.chemistry,
                                                                                          b.nominal_voltage_V)
-    cur = np.nan_to_num(i, nan=0.0)
+    # Work on a ~1-minute grid (a subsample): anchors need minutes, not seconds.
+    step = max(1, int(60.0 / max(median_interval_s(ch.t_us), 1e-3)))
+    if step > 1:
+        keep = np.arange(0, len(ch), step)
+        t_s = ch.t_us[keep]
+        g = np.add.reduceat(gaps.astype(np.int64), keep[:-1]) > 0 if len(keep) > 1 else np.zeros(0, bool)
+        ch = Channel(ch.name, t_s, ch.current_A[keep], v[keep], ch.temperature_C[keep], ch.soc_pct[keep])
+        v, i, gaps = ch.voltage_V, ch.current_A, g
+        if len(ch) < 3:
+            return []
+    else:
+        keep = np.arange(len(ch))
+    cur = fill0(i)
     dt_h = np.diff(ch.t_us) / (US_PER_S * 3600.0)
     # Running integrals to get 2-hour windows with searchsorted (vectorised).
     absq = np.concatenate(([0.0], np.cumsum(np.abs(cur[:-1]) * dt_h)))
@@ -297,9 +323,10 @@ def detect_quasi_ocv_anchors(ch: Channel, system: System, gaps: np.ndarray,
     idx = idx[last]
     ocv_v = v[idx] + np.abs(cur[idx]) * r_ohm
     soc = ocv_mod.soc_from_ocv(ocv_v, b.chemistry, b.nominal_voltage_V)
-    keep = ocv_mod.trusted(soc, b.chemistry) if b.chemistry != "lifepo4" else soc <= 15.0
-    return [Anchor(int(k), int(ch.t_us[k]), float(sv), "quasi-ocv", QUASI_SIGMA)
-            for k, sv, ok in zip(idx, soc, keep) if ok]
+    trusted_ = ocv_mod.trusted(soc, b.chemistry) if b.chemistry != "lifepo4" else soc <= 15.0
+    keep_idx = keep
+    return [Anchor(int(keep_idx[k]), int(ch.t_us[k]), float(sv), "quasi-ocv", QUASI_SIGMA)
+            for k, sv, ok in zip(idx, soc, trusted_) if ok]
 
 
 def soc_from_anchors(charge_Ah: np.ndarray, anchors: tuple[Anchor, ...] | list[Anchor], capacity_Ah: float,
@@ -376,15 +403,15 @@ def state_of_charge(battery: Channel | pd.DataFrame, system: System, *, capacity
     k = float(peukert_k if peukert_k is not None else b.effective_peukert_k)
     thr = max_gap_s if max_gap_s is not None else gap_threshold_s(ch.t_us)
     gaps = gap_mask(ch.t_us, threshold_s=thr) if len(ch) > 1 else np.zeros(0, dtype=bool)
-    cur = np.nan_to_num(ch.current_A, nan=0.0)
+    cur = fill0(ch.current_A)
     corr = corrected_current_A(cur, charge_efficiency=b.effective_charge_efficiency,
                                rated_current_A=b.rated_current_A, peukert_k=k)
-    inc = trapezoid_increments(ch.t_us, corr, gaps=gaps)
+    inc = trapezoid_increments(ch.t_us, corr, gaps=gaps, dt_h=ch.dt_h if len(ch) > 1 else None)
     del corr
     q = np.empty(len(ch))
     if len(ch):
         q[0] = 0.0
-        np.cumsum(inc, out=q[1:])
+        np.cumsum(inc, out=q[1:], dtype=np.float64)
     del inc
     anchors = detect_full_charges(ch, system, gaps, q)
     if use_ocv:

@@ -32,7 +32,7 @@ import numpy as np
 import pandas as pd
 
 from analysis.charge import SocResult, device_disagreement_pct, state_of_charge, trapezoid_increments
-from analysis.readings import (US_PER_S, Channel, Gap, day_index, find_gaps, gap_mask, gap_threshold_s,
+from analysis.readings import (US_PER_S, Channel, Gap, day_index, fill0, find_gaps, gap_mask, gap_threshold_s,
                                local_day_bounds, median_interval_s, split_channels)
 from analysis.system import System
 
@@ -109,13 +109,20 @@ def daily_ledger(readings: pd.DataFrame, system: System) -> pd.DataFrame:
 # -- helpers ----------------------------------------------------------------------------------
 
 def _day_sum(t_us: np.ndarray, inc: np.ndarray, bounds_us: np.ndarray) -> np.ndarray:
-    """Sum per-interval increments into local days (interval assigned to its start)."""
+    """Sum per-interval increments into local days (interval assigned to its start), in float64.
+
+    ``np.add.reduceat`` between day boundaries: O(n), no per-sample day index, no copy.
+    """
     n_days = len(bounds_us) - 1
+    out = np.zeros(n_days)
     if len(inc) == 0:
-        return np.zeros(n_days)
-    d = day_index(t_us[:-1], bounds_us)
-    np.clip(d, 0, n_days - 1, out=d)
-    return np.bincount(d, weights=inc, minlength=n_days)[:n_days]
+        return out
+    pos = np.searchsorted(t_us[:-1], bounds_us, side="left")
+    pos[0], pos[-1] = 0, len(inc)
+    nonempty = pos[1:] > pos[:-1]
+    if nonempty.any():
+        out[nonempty] = np.add.reduceat(inc, pos[:-1][nonempty], dtype=np.float64)
+    return out
 
 
 def _coverage(ch: Channel, bounds_us: np.ndarray, thr_s: float, gaps: np.ndarray) -> np.ndarray:
@@ -138,8 +145,8 @@ def _interp_on(t_target: np.ndarray, ch: Channel, values: np.ndarray, gaps: np.n
                                                                                                 np.ndarray]:
     """A channel's values at other times (linear), and a mask of target times the channel cannot vouch for."""
     if len(ch.t_us) == len(t_target) and np.array_equal(ch.t_us, t_target):
-        return np.nan_to_num(values, nan=0.0), gaps_to_samples(gaps, len(t_target))
-    out = np.interp(t_target, ch.t_us, np.nan_to_num(values, nan=0.0), left=0.0, right=0.0)
+        return fill0(values), gaps_to_samples(gaps, len(t_target))
+    out = np.interp(t_target, ch.t_us, fill0(values), left=0.0, right=0.0)
     pos = np.searchsorted(ch.t_us, t_target, side="right")
     inside = (pos > 0) & (pos < len(ch.t_us))
     bad = np.zeros(len(t_target), dtype=bool)
@@ -217,8 +224,11 @@ def compute_ledger(channels: dict[str, Channel], system: System, *, soc: SocResu
         complete &= _coverage(c, bounds, thr[c.name], gmask[c.name])
         found = find_gaps(c, threshold_s=thr[c.name])
         gaps_all.extend(found)
+        per_channel = np.zeros(n_days)
         for gp in found:
-            extras["gap_s"] += _overlap_s(gp, bounds)
+            per_channel += _overlap_s(gp, bounds)
+        # A gap on several channels at once (one logger) counts once: the longest per day.
+        np.maximum(extras["gap_s"], per_channel, out=extras["gap_s"])
     solar_series = None
     model = None
     nominal = system.battery.nominal_voltage_V
@@ -227,9 +237,9 @@ def compute_ledger(channels: dict[str, Channel], system: System, *, soc: SocResu
             soc = state_of_charge(bat, system)
         v_b = bat.voltage_V
         if not np.isfinite(v_b).any():
-            v_b = np.full(len(bat), nominal)
+            v_b = np.full(len(bat), nominal, dtype=np.float32)
             notes.append("no battery voltage logged: Wh use the nominal voltage")
-        else:
+        elif np.isnan(v_b).any():
             v_b = pd.Series(v_b).ffill().bfill().to_numpy()
         if sources or load is not None:
             mode = "multi-channel"
@@ -294,7 +304,7 @@ def _multi_channel(bat: Channel | None, v_b: np.ndarray | None, sources: dict[st
     nominal = system.battery.nominal_voltage_V
     # 1. Each source on its own time grid: delivered Ah, Wh, driving hours.
     for name, ch in sources.items():
-        cur = np.clip(np.nan_to_num(ch.current_A, nan=0.0), 0.0, None)
+        cur = np.clip(fill0(ch.current_A), 0.0, None)
         g = gmask[name]
         cols[f"charged_Ah_{name}"] += _day_sum(ch.t_us, trapezoid_increments(ch.t_us, cur, gaps=g), bounds)
         if np.isfinite(ch.voltage_V).any():
@@ -311,7 +321,7 @@ def _multi_channel(bat: Channel | None, v_b: np.ndarray | None, sources: dict[st
     if bat is None:
         if load is None:
             return
-        cur = np.clip(-np.nan_to_num(load.current_A, nan=0.0), 0.0, None)
+        cur = np.clip(-fill0(load.current_A), 0.0, None)
         v = pd.Series(load.voltage_V).ffill().bfill().fillna(nominal).to_numpy()
         cols["consumed_Ah"] += _day_sum(load.t_us, trapezoid_increments(load.t_us, cur, gaps=gmask["load"]), bounds)
         cols["consumed_Wh"] += _day_sum(load.t_us, trapezoid_increments(load.t_us, cur * v, gaps=gmask["load"]),
@@ -320,14 +330,14 @@ def _multi_channel(bat: Channel | None, v_b: np.ndarray | None, sources: dict[st
     # 2. The balance on the battery's grid: gross load r = sum(sources) - net battery current.
     n = len(bat)
     bad = gaps_to_samples(gmask["battery"], n)
-    r = -np.nan_to_num(bat.current_A, nan=0.0)
+    r = -fill0(bat.current_A)
     for name, ch in sources.items():
-        s_on_b, s_bad = _interp_on(bat.t_us, ch, np.clip(np.nan_to_num(ch.current_A, nan=0.0), 0.0, None),
+        s_on_b, s_bad = _interp_on(bat.t_us, ch, np.clip(fill0(ch.current_A), 0.0, None),
                                    gmask[name])
         r += s_on_b
         bad |= s_bad
     if load is not None:
-        l_on_b, l_bad = _interp_on(bat.t_us, load, np.clip(-np.nan_to_num(load.current_A, nan=0.0), 0.0, None),
+        l_on_b, l_bad = _interp_on(bat.t_us, load, np.clip(-fill0(load.current_A), 0.0, None),
                                    gmask["load"])
     else:
         l_on_b, l_bad = np.zeros(n), np.zeros(n, dtype=bool)
@@ -336,9 +346,11 @@ def _multi_channel(bat: Channel | None, v_b: np.ndarray | None, sources: dict[st
     other_day, other_wh = _other_source(bat, l_on_b - r, v_b, bad_iv, system, bounds)
     cols["charged_Ah_other"] += other_day
     cols["charged_Wh_other"] += other_wh
-    cols["consumed_Ah"] += _day_sum(bat.t_us, trapezoid_increments(bat.t_us, r, gaps=bad_iv), bounds) + other_day
-    cols["consumed_Wh"] += _day_sum(bat.t_us, trapezoid_increments(bat.t_us, r * v_b, gaps=bad_iv), bounds) \
-        + other_wh
+    cols["consumed_Ah"] += _day_sum(bat.t_us, trapezoid_increments(bat.t_us, r, gaps=bad_iv, dt_h=bat.dt_h),
+                                    bounds) + other_day
+    r *= v_b  # in place: gross load power [W]
+    cols["consumed_Wh"] += _day_sum(bat.t_us, trapezoid_increments(bat.t_us, r, gaps=bad_iv, dt_h=bat.dt_h),
+                                    bounds) + other_wh
     del l_bad
 
 
@@ -353,14 +365,18 @@ def _other_source(bat: Channel, resid_A: np.ndarray, v_b: np.ndarray, bad_iv: np
     """
     n_days = len(bounds) - 1
     bin_s = max(60.0, math.ceil(median_interval_s(bat.t_us) / 60.0) * 60.0)
-    inc = trapezoid_increments(bat.t_us, resid_A, gaps=bad_iv)
-    inc_wh = trapezoid_increments(bat.t_us, resid_A * v_b, gaps=bad_iv)
-    b = ((bat.t_us[:-1] - bat.t_us[0]) // int(bin_s * US_PER_S)).astype(np.int64)
-    dt_h = np.where(bad_iv, 0.0, np.diff(bat.t_us) * _H_PER_US)
+    inc = trapezoid_increments(bat.t_us, resid_A, gaps=bad_iv, dt_h=bat.dt_h)
+    b = ((bat.t_us[:-1] - bat.t_us[0]) // int(bin_s * US_PER_S)).astype(np.int32)
+    dt_h = np.where(bad_iv, np.float32(0.0), bat.dt_h)
     n_bins = int(b[-1]) + 1 if len(b) else 0
     ah = np.bincount(b, weights=inc, minlength=n_bins)
-    wh = np.bincount(b, weights=inc_wh, minlength=n_bins)
+    del inc
+    # Energy of the residual per bin: Ah x the bin's mean voltage (the residual is small and
+    # slowly varying, so this equals the trapezoid of I*V within rounding).
+    vw = np.bincount(b, weights=v_b[:-1] * dt_h, minlength=n_bins)
     hrs = np.bincount(b, weights=dt_h, minlength=n_bins)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        wh = ah * np.where(hrs > 0, vw / np.maximum(hrs, 1e-12), 0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
         mean_a = np.where(hrs > 0, ah / np.maximum(hrs, 1e-12), 0.0)
     thr = max(0.3, 0.002 * system.battery.rated_capacity_Ah)
@@ -386,7 +402,7 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     cap = system.battery.rated_capacity_Ah
     bin_s = max(60.0, math.ceil(median_interval_s(bat.t_us) / 60.0) * 60.0)
     bin_us = int(bin_s * US_PER_S)
-    cur = np.nan_to_num(bat.current_A, nan=0.0)
+    cur = fill0(bat.current_A)
     inc = trapezoid_increments(bat.t_us, cur, gaps=gaps)
     dt_h = np.where(gaps, 0.0, np.diff(bat.t_us) * _H_PER_US)
     b0 = bat.t_us[0] // bin_us
@@ -406,7 +422,7 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     t_mid = (b0 + np.arange(n_bins)) * bin_us + bin_us // 2
     local = pd.DatetimeIndex(t_mid.view("M8[us]")).tz_localize("UTC").tz_convert(system.site.timezone)
     hour = np.asarray(local.hour + local.minute / 60.0, dtype=float)
-    weekend = np.asarray(local.dayofweek >= 5, dtype=float)
+    weekend = np.asarray(local.day_of_week >= 5, dtype=float)
     elev = sun_elevation_deg(t_mid, system.site.latitude_deg, system.site.longitude_deg)
     solar_possible = bool(system.solar)
     on_thr = max(0.2, 0.001 * cap)
@@ -520,6 +536,11 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
                 continue
             later = downs[downs > u]
             d = int(later[0]) if len(later) else len(g)
+            # A switch-off sampled mid-interval gives a two-bin ramp: the plateau (and the
+            # baseline after it) runs to the last of consecutive down-steps.
+            down_set = set(later.tolist())
+            while d + 1 in down_set:
+                d += 1
             if (d - u) * bin_s < 300:  # shorter than 5 min: a load switching off, not a charger
                 continue
             base_l = ext[u]

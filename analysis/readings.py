@@ -16,6 +16,7 @@ is not *complete*.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import pandas as pd
@@ -45,6 +46,11 @@ class Channel:
 
     def __len__(self) -> int:
         return len(self.t_us)
+
+    @cached_property
+    def dt_h(self) -> np.ndarray:
+        """Sampling intervals [h] (float32, length n-1), computed once per channel."""
+        return (np.diff(self.t_us) * (1.0 / (US_PER_S * 3600.0))).astype(np.float32)
 
     def has(self, column: str) -> bool:
         """True when the column holds at least one value."""
@@ -112,8 +118,12 @@ def split_channels(readings: pd.DataFrame) -> dict[str, Channel]:
         codes, names = codes_, [str(u) for u in uniques]
     cols = {}
     for c in ("current_A", "voltage_V", "temperature_C", "soc_pct"):
-        cols[c] = readings[c].to_numpy(dtype=float, na_value=np.nan) if c in readings.columns \
-            else np.full(n, np.nan)
+        if c not in readings.columns:
+            cols[c] = np.full(n, np.nan, dtype=np.float32)
+        elif readings[c].dtype in (np.float32, np.float64):
+            cols[c] = readings[c].to_numpy()  # float32 (as stored) or float64: no copy
+        else:
+            cols[c] = readings[c].to_numpy(dtype=float, na_value=np.nan)
     out: dict[str, Channel] = {}
     # Blocks: contiguous runs of one channel code (store order) give views, not copies.
     change = np.flatnonzero(codes[1:] != codes[:-1]) + 1
@@ -198,5 +208,23 @@ def local_day_bounds(t_first_us: int, t_last_us: int, timezone: str) -> tuple[np
 
 
 def day_index(t_us: np.ndarray, bounds_us: np.ndarray) -> np.ndarray:
-    """Index of the local day each time falls in (see :func:`local_day_bounds`)."""
+    """Index of the local day each time falls in (see :func:`local_day_bounds`).
+
+    ``t_us`` must be sorted (every channel is). For long inputs this marks the
+    day starts and takes a cumulative sum, O(n) instead of a binary search per sample.
+    """
+    n = len(t_us)
+    if n > 10_000:
+        marks = np.zeros(n + 1, dtype=np.int32)
+        np.add.at(marks, np.searchsorted(t_us, bounds_us, side="left"), 1)
+        out = np.cumsum(marks[:n], dtype=np.int32)
+        out -= 1
+        return out
     return np.searchsorted(bounds_us, t_us, side="right").astype(np.int32) - 1
+
+
+def fill0(values: np.ndarray) -> np.ndarray:
+    """``values`` with NaN as 0 (no copy when there is no NaN)."""
+    if np.isnan(values).any():
+        return np.where(np.isnan(values), 0.0, values)
+    return values

@@ -16,7 +16,7 @@ Everything that cannot be estimated is ``None`` with a sibling ``*_why``.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -72,7 +72,20 @@ def _rows_stored(channels: dict) -> int:
         return 0
     if all(len(t) == len(ts[0]) for t in ts) and all(np.array_equal(t, ts[0]) for t in ts[1:]):
         return len(ts[0])
-    return int(len(np.unique(np.concatenate(ts))))
+    # Common case: slower channels logged on a subset of the fastest channel's time stamps.
+    longest = max(ts, key=len)
+    extra: list[np.ndarray] = []
+    for t in ts:
+        if t is longest:
+            continue
+        pos = np.minimum(np.searchsorted(longest, t), len(longest) - 1)
+        miss = longest[pos] != t
+        if miss.any():
+            extra.append(t[miss])
+    if not extra:
+        return len(longest)
+    others = np.unique(np.concatenate(extra))
+    return len(longest) + len(others)
 
 
 def _downsample(t_us: np.ndarray, y: np.ndarray, n_out: int = PLOT_POINTS) -> np.ndarray:
@@ -161,6 +174,8 @@ def build_report(readings: pd.DataFrame, system: System, *, rows_rejected: int =
                                    None)
         if cap.usable_Ah is not None:
             soc = soc.with_capacity(cap.usable_Ah)
+        # The cumulative charge is no longer needed: free it before the ledger (memory at 1 Hz x 1 year).
+        soc = replace(soc, charge_Ah=np.zeros(0))
     led: LedgerResult = compute_ledger(channels, system, soc=soc)
     ir = (internal_resistance(bat, led.bounds_us, list(led.days["date"])) if bat is not None and len(bat) > 1
           else ResistanceEstimate(None, "no battery channel", pd.DataFrame()))

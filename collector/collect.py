@@ -8,8 +8,8 @@ here). A source that crashes on a bug is logged and restarted after a pause:
 the collector runs unattended for weeks.
 
 Maintenance runs in the writer's thread (the store connection is used by one
-thread at a time): every ``maintain_every_s`` the older live chunks are
-compacted and, when ``keep_full_s`` is set, readings older than that are
+thread at a time): every ``maintain_every_s`` (2 min) live chunks older than
+two minutes are compacted and, when ``keep_full_s`` is set, readings older than that are
 downsampled to one-minute summaries (:mod:`collector.downsample`).
 """
 
@@ -40,7 +40,7 @@ class CollectResult:
 
 def run_collector(source: Source, writer: BatchWriter, *, stop: threading.Event | None = None,
                   duration_s: float | None = None, keep_full_s: float | None = None,
-                  maintain_every_s: float = 600.0, summary_interval_s: int = 60,
+                  maintain_every_s: float = 120.0, summary_interval_s: int = 60,
                   on_note: Callable[[str], None] | None = None) -> CollectResult:
     """Run ``source`` into ``writer`` until stopped; flush and return the counters.
 
@@ -119,9 +119,12 @@ def run_collector(source: Source, writer: BatchWriter, *, stop: threading.Event 
 def maintain(writer: BatchWriter, *, keep_full_s: float | None, summary_interval_s: int = 60) -> None:
     """Compact older live chunks; downsample beyond ``keep_full_s`` (called from the writer thread)."""
     store = writer.store
-    merged = downsample.compact(store, older_than_s=600.0, exclude_id_ranges=writer.correctable_chunk_ids)
-    if merged:
-        log.info("compacted %d live chunks", merged)
+    ranges = writer.correctable_chunk_ids
+    # chunks the writer may still have to shift after a clock jump are merged among themselves,
+    # and the writer adopts the merged ones; all other live chunks are merged freely
+    downsample.compact(store, older_than_s=120.0, exclude_id_ranges=ranges)
+    if ranges:
+        writer.adopt_chunks(downsample.compact(store, older_than_s=120.0, only_id_ranges=ranges))
     if keep_full_s is not None:
         res = downsample.downsample(store, keep_full_s=keep_full_s, interval_s=summary_interval_s)
         if res.rows_summarised:

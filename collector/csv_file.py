@@ -21,7 +21,14 @@ the first one is kept) is counted as *rejected* and quarantined like every other
 Blank lines and the preamble before the header are reported (``blank_lines``,
 ``preamble_lines``) but are not data lines. Every rejected line is written, with its line
 number and reason, to ``store.quarantine_dir / '<file-stem>-<sha8>.csv'`` (columns
-``line,reason,text``).
+``line,reason,text``; ``line`` is the 1-based physical line of the file; in ``text`` control
+characters are written as ``\\xNN``, a run of NUL bytes as ``<N NUL bytes>``, and a line longer
+than 2,000 characters is cut and says so).
+
+Reasons: ``wrong_field_count``, ``non_numeric``, ``bad_time``, ``time_without_offset``,
+``time_out_of_range`` (before 1990 or after tomorrow), ``ambiguous_local_time``,
+``nonexistent_local_time``, ``implausible_voltage`` / ``_current`` / ``_power`` /
+``_temperature`` / ``_soc``, ``no_values``, ``binary_garbage``, ``duplicate``, ``duplicate_time``.
 
 Speed
 -----
@@ -60,6 +67,7 @@ __all__ = ["UnusableInput", "ImportResult", "Gap", "import_file", "detect_sign_i
            "sniff_format", "FileFormat", "BLOCK_BYTES"]
 
 BLOCK_BYTES = 16 << 20          # bytes per parsed block
+SLOW_PIECE_BYTES = 32 << 10     # a failing piece this small goes to the careful path
 HEAD_BYTES = 256 << 10          # bytes read for detection
 DETECT_LINES = 100              # lines used for detection
 GAP_FACTOR = 5.0                # a gap is longer than this many median sample intervals
@@ -82,6 +90,11 @@ _RE_ISO_LOCAL = re.compile(rf"^{_ISO}$")
 _RE_DATE = re.compile(r"^(\d{4}-\d{2}-\d{2}|\d{1,2}[./]\d{1,2}[./]\d{4}|\d{4}/\d{1,2}/\d{1,2})$")
 _RE_CLOCK = re.compile(r"^\d{1,2}:\d{2}(:\d{2}(\.\d+)?)?$")
 _NUMBER = re.compile(r"^\s*[+-]?(\d+([.,]\d*)?|[.,]\d+)([eE][+-]?\d+)?\s*$")
+# reasons found per line inside a block, as uint8 codes (0 = accepted)
+_REASONS = ("", "bad_time", "time_without_offset", "ambiguous_local_time", "nonexistent_local_time",
+            "non_numeric", "time_out_of_range", "no_values", "implausible_voltage", "implausible_current",
+            "implausible_power", "implausible_temperature", "implausible_soc")
+_R = {name: np.uint8(code) for code, name in enumerate(_REASONS)}
 _RE_CONTROL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f]")
 _TIME_MIN_US = int(pd.Timestamp("1990-01-01", tz="UTC").value // 1000)
 
@@ -113,6 +126,7 @@ class FileFormat:
     time_format: str | None     # strptime format for 'strptime'
     epoch_scale_s: float        # seconds per raw unit for 'epoch'
     ignored: tuple[str, ...]    # header names not used, with why
+    fast_time: bool = True      # False: times not zero-padded, arrow cannot check them; careful path
 
 
 @dataclass(frozen=True)
@@ -159,11 +173,19 @@ class ImportResult:
 # --------------------------------------------------------------------------------------------
 
 def _decode_head(raw: bytes, path: Path) -> tuple[str, str]:
+    """Decode the head of a file for detection; UnusableInput when it is empty or binary.
+
+    A run of NUL bytes is what an SD-card logger leaves after a power cut: such runs are
+    left out of the binary test (the lines holding them are later quarantined as
+    ``binary_garbage``). NUL or control bytes spread through the text mean a binary file.
+    """
     if not raw.strip():
         raise UnusableInput(f"{path}: the file is empty; nothing to import")
-    if raw[:65536].count(b"\x00") > 0.01 * min(len(raw), 65536):
-        # a few NUL bytes are what a logger leaves after a power cut: those lines are
-        # quarantined as binary_garbage; a file full of them is not a text log at all
+    probe = re.sub(rb"\x00{8,}", b"", raw)
+    if not probe.strip():
+        raise UnusableInput(f"{path}: the file holds only NUL bytes (a logger that lost power before "
+                            "writing?); nothing to import")
+    if probe[:65536].count(b"\x00") > 0.01 * min(len(probe), 65536):
         raise UnusableInput(f"{path}: this is a binary file (NUL bytes), not a text log; "
                             "export the log as CSV from the monitor or logger and import that")
     if raw.startswith(b"\xef\xbb\xbf"):
@@ -176,10 +198,11 @@ def _decode_head(raw: bytes, path: Path) -> tuple[str, str]:
     except UnicodeDecodeError:
         enc = "latin-1"
         text = cut.decode(enc)
-    bad = len(_RE_CONTROL.findall(text))
-    if bad > 0.02 * max(len(text), 1):
+    sample = re.sub("\x00{8,}", "", text)
+    bad = len(_RE_CONTROL.findall(sample))
+    if bad > 0.02 * max(len(sample), 1):
         raise UnusableInput(f"{path}: this looks like a binary file ({bad} control bytes in the first "
-                            f"{len(text)} characters), not a text log; export it as CSV first")
+                            f"{len(sample)} characters), not a text log; export it as CSV first")
     return text, enc
 
 
@@ -263,6 +286,8 @@ def sniff_format(path: Path, head: bytes, *, channel: str, column_map: dict[str,
     if len(head) == HEAD_BYTES:
         all_lines = all_lines[:-1]
     lines = [ln.rstrip("\r") for ln in all_lines[: DETECT_LINES + 20]]
+    if not lines:
+        raise UnusableInput(f"{path}: no line end in the first {HEAD_BYTES // 1024} kB: not a line-based text log")
     nonblank = [ln for ln in lines if ln.strip()]
     delim = _choose_delimiter(nonblank[1:] or nonblank) or ","
     fields = [_split(ln, delim) if ln.strip() else [] for ln in lines]
@@ -302,6 +327,9 @@ def sniff_format(path: Path, head: bytes, *, channel: str, column_map: dict[str,
     data_lines = [f for f in fields[header_idx + 1:]
                   if f and len(f) == len(header) and [x.lower() for x in f] != hdr_norm]
 
+    if not data_lines:
+        raise UnusableInput(f"{path}: a header ({delim.join(header)!r}) but no data lines after it"
+                            + ("" if len(head) < HEAD_BYTES else f" in the first {len(lines)} lines"))
     default = normalise_channel(channel)
     cols: dict[int, ColumnSpec] = {}
     ignored: list[str] = []
@@ -379,10 +407,20 @@ def sniff_format(path: Path, head: bytes, *, channel: str, column_map: dict[str,
     raw_lines = head.split(b"\n")
     for i in range(header_idx + 1):
         pos += len(raw_lines[i]) + 1
+    fast_time = True
+    if kind[0] == "strptime":
+        samples = [" ".join(f[j] for j in chosen) for f in data_lines[:DETECT_LINES]]
+        for smp in samples:
+            try:
+                if _time.strftime(kind[1], _time.strptime(smp, kind[1])) != smp:
+                    fast_time = False
+                    break
+            except ValueError:
+                continue
     return FileFormat(encoding=enc, delimiter=delim, decimal=decimal, header_line=header_idx + 1,
                       header=header, data_offset=pos, columns=cols, time_fields=chosen,
                       time_kind=kind[0], time_format=kind[1], epoch_scale_s=kind[2],
-                      ignored=tuple(ignored))
+                      ignored=tuple(ignored), fast_time=fast_time)
 
 
 # --------------------------------------------------------------------------------------------
@@ -419,6 +457,26 @@ def _iter_blocks(f: io.BufferedReader, start: int, block_bytes: int) -> Iterator
         yield offset, buf[: cut + 1]
         offset += cut + 1
         carry = buf[cut + 1:]
+
+
+class _Grow:
+    """An append-only numpy array with spare capacity (grown by a quarter when full)."""
+
+    def __init__(self, capacity: int, dtype: Any):
+        self.a = np.empty(max(capacity, 16), dtype)
+        self.n = 0
+
+    def extend(self, x: np.ndarray) -> None:
+        need = self.n + len(x)
+        if need > len(self.a):
+            new = np.empty(max(need, int(len(self.a) * 1.25)), self.a.dtype)
+            new[: self.n] = self.a[: self.n]
+            self.a = new
+        self.a[self.n:need] = x
+        self.n = need
+
+    def view(self) -> np.ndarray:
+        return self.a[: self.n]
 
 
 def _n_lines(block: bytes) -> int:
@@ -489,24 +547,23 @@ class _Parser:
         self.names = [f"c{j}" for j in range(self.n_fields)]
         self.value_fields = [j for j in fmt.columns if j not in fmt.time_fields]
         types: dict[str, pa.DataType] = {self.names[j]: pa.float64() for j in self.value_fields}
-        fmt_parsers = None
         if fmt.time_kind == "epoch":
             types[self.names[fmt.time_fields[0]]] = pa.float64()
         elif len(fmt.time_fields) == 1:
             if fmt.time_kind == "iso_utc":
                 types[self.names[fmt.time_fields[0]]] = pa.timestamp("us", "UTC")
+            elif fmt.time_kind == "strptime":
+                # read as text: arrow's strptime is lenient (31.02. becomes 02.03.), so the
+                # parse is checked by formatting it back (see _strict_strptime)
+                types[self.names[fmt.time_fields[0]]] = pa.string()
             else:
                 types[self.names[fmt.time_fields[0]]] = pa.timestamp("us")
-                if fmt.time_kind == "strptime":
-                    fmt_parsers = [fmt.time_format]
         else:
             for j in fmt.time_fields:
                 types[self.names[j]] = pa.string()
         self.read_opts = pcsv.ReadOptions(column_names=self.names, use_threads=True, block_size=4 << 20)
         self.parse_opts = pcsv.ParseOptions(delimiter=fmt.delimiter)
         kw: dict[str, Any] = {}
-        if fmt_parsers:
-            kw["timestamp_parsers"] = fmt_parsers
         self.conv_opts = pcsv.ConvertOptions(
             column_types=types, include_columns=[self.names[j] for j in sorted(fmt.columns)],
             decimal_point=fmt.decimal, null_values=NULL_VALUES, strings_can_be_null=True,
@@ -525,16 +582,20 @@ class _Parser:
         if table.num_rows != n:
             return None  # blank lines were skipped: line numbers would not match
         fmt = self.fmt
-        time_reason = np.full(n, "", dtype=object)
+        time_reason = np.zeros(n, np.uint8)
         if fmt.time_kind == "epoch":
             raw = table.column(self.names[fmt.time_fields[0]]).to_numpy(zero_copy_only=False)
             t_us, bad = _epoch_to_us(raw, fmt.epoch_scale_s)
-            time_reason[bad] = "bad_time"
+            time_reason[bad] = _R["bad_time"]
         elif len(fmt.time_fields) == 1:
             col = table.column(self.names[fmt.time_fields[0]])
+            if fmt.time_kind == "strptime":
+                col = _strict_strptime(col, fmt.time_format)
+                if col is None:
+                    return None
             null = col.is_null().to_numpy(zero_copy_only=False)
             t_us = pc.fill_null(col.cast(pa.int64()), 0).to_numpy(zero_copy_only=False).astype(np.int64)
-            time_reason[null] = "bad_time"
+            time_reason[null] = _R["bad_time"]
             if fmt.time_kind != "iso_utc":
                 t_us, time_reason = self._localise(t_us, time_reason)
         else:
@@ -543,14 +604,16 @@ class _Parser:
                                                  table.column(self.names[fmt.time_fields[1]]), " ")
             try:
                 if fmt.time_kind == "strptime":
-                    ts = pc.strptime(joined, format=fmt.time_format, unit="us", error_is_null=True)
+                    ts = _strict_strptime(joined, fmt.time_format)
+                    if ts is None:
+                        return None
                 else:
                     ts = joined.cast(pa.timestamp("us", "UTC") if fmt.time_kind == "iso_utc" else pa.timestamp("us"))
             except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
                 return None
             null = ts.is_null().to_numpy(zero_copy_only=False)
             t_us = pc.fill_null(ts.cast(pa.int64()), 0).to_numpy(zero_copy_only=False).astype(np.int64)
-            time_reason[null] = "bad_time"
+            time_reason[null] = _R["bad_time"]
             if fmt.time_kind != "iso_utc":
                 t_us, time_reason = self._localise(t_us, time_reason)
         vals = {}
@@ -560,14 +623,14 @@ class _Parser:
                             vals, {}, n, 0, 0)
 
     def _localise(self, wall_us: np.ndarray, reason: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        ok = reason == ""
+        ok = reason == 0
         out = wall_us.copy()
         if ok.any():
             utc, unplaced, nonexist = self.localise(wall_us[ok])
             out[ok] = utc
             sub = reason[ok]
-            sub[unplaced] = "ambiguous_local_time"
-            sub[nonexist] = "nonexistent_local_time"
+            sub[unplaced] = _R["ambiguous_local_time"]
+            sub[nonexist] = _R["nonexistent_local_time"]
             reason[ok] = sub
         return out, reason
 
@@ -611,12 +674,12 @@ class _Parser:
         def field_(j: int) -> pd.Series:
             return parts[j].str.strip().str.strip('"').str.strip("'").str.strip()
 
-        time_reason = np.full(n, "", dtype=object)
+        time_reason = np.zeros(n, np.uint8)
         if fmt.time_kind == "epoch":
             raw = pd.to_numeric(field_(fmt.time_fields[0]).str.replace(",", ".", regex=False),
                                 errors="coerce").to_numpy(dtype=np.float64)
             t_us, bad = _epoch_to_us(raw, fmt.epoch_scale_s)
-            time_reason[bad] = "bad_time"
+            time_reason[bad] = _R["bad_time"]
         else:
             ts = field_(fmt.time_fields[0])
             if len(fmt.time_fields) == 2:
@@ -626,22 +689,22 @@ class _Parser:
             if fmt.time_kind == "iso_utc":
                 # a time without an offset in a file whose times carry one is not guessed
                 parsed = pd.to_datetime(ts.where(has_off), utc=True, format="ISO8601", errors="coerce")
-                time_reason[~has_off] = "time_without_offset"
+                time_reason[~has_off] = _R["time_without_offset"]
                 bad = np.asarray(parsed.isna()) & has_off
-                time_reason[bad] = "bad_time"
+                time_reason[bad] = _R["bad_time"]
                 t_us = _dt_to_us(parsed)
             else:
                 if has_off.any():
                     p_off = pd.to_datetime(ts.where(has_off), utc=True, format="ISO8601", errors="coerce")
                     t_us[has_off] = _dt_to_us(p_off)[has_off]
-                    time_reason[has_off & np.asarray(p_off.isna())] = "bad_time"
+                    time_reason[has_off & np.asarray(p_off.isna())] = _R["bad_time"]
                 naive = ~has_off
                 if fmt.time_kind == "iso_local":
                     p = pd.to_datetime(ts.where(naive), format="ISO8601", errors="coerce")
                 else:
                     p = pd.to_datetime(ts.where(naive), format=fmt.time_format, errors="coerce")
                 p_bad = np.asarray(p.isna()) & naive
-                time_reason[p_bad] = "bad_time"
+                time_reason[p_bad] = _R["bad_time"]
                 wall = _dt_to_us(p)
                 todo = naive & ~p_bad
                 if todo.any():
@@ -659,7 +722,7 @@ class _Parser:
             missing = f.isin(NULL_VALUES).to_numpy() | f.isna().to_numpy()
             non_numeric |= np.isnan(num) & ~missing
             vals[j] = num
-        time_reason[(time_reason == "") & non_numeric] = "non_numeric"
+        time_reason[(time_reason == 0) & non_numeric] = _R["non_numeric"]
         return self._finish(line_no[live], t_us, time_reason, vals, reasons, int(data.sum()),
                             int(header.sum()), int(blank.sum()))
 
@@ -669,23 +732,23 @@ class _Parser:
                 blank_lines: int) -> _Block:
         fmt = self.fmt
         now_us = int(_time.time() * 1e6) + 86_400_000_000
-        ok = reason == ""
+        ok = reason == 0
         out_of_range = ok & ((t_us < _TIME_MIN_US) | (t_us > now_us))
-        reason[out_of_range] = "time_out_of_range"
+        reason[out_of_range] = _R["time_out_of_range"]
         canon: dict[tuple[str, str], np.ndarray] = {}
         any_value = np.zeros(len(line), bool)
         for j in self.value_fields:
             spec = fmt.columns[j]
             v = vals[j] * spec.scale
             lo, hi = self.bounds[spec.quantity]
-            bad = (reason == "") & (~np.isnan(v)) & ((v < lo) | (v > hi) | ~np.isfinite(v))
-            reason[bad] = f"implausible_{spec.quantity.split('_')[0]}"
+            bad = (reason == 0) & (~np.isnan(v)) & ((v < lo) | (v > hi) | ~np.isfinite(v))
+            reason[bad] = _R[f"implausible_{spec.quantity.split('_')[0]}"]
             any_value |= ~np.isnan(v)
             canon[(spec.channel, spec.quantity)] = v
-        reason[(reason == "") & ~any_value] = "no_values"
-        for why in pd.unique(reason[reason != ""]):
-            reasons.setdefault(str(why), []).append(line[reason == why])
-        keep = reason == ""
+        reason[(reason == 0) & ~any_value] = _R["no_values"]
+        for code in np.unique(reason[reason != 0]):
+            reasons.setdefault(_REASONS[code], []).append(line[reason == code])
+        keep = reason == 0
         # power -> current where a channel has power but no current (see collector.columns)
         channels = {ch for ch, _ in canon}
         for ch in channels:
@@ -699,10 +762,58 @@ class _Parser:
         return _Block(line[keep], t_us[keep], values, reasons, header_lines, blank_lines, data_lines)
 
     def parse(self, block: bytes, first_line: int) -> _Block:
+        """Parse a block: the fast path, else halve it and try again; the careful path for small pieces.
+
+        Halving keeps a few bad lines (a repeated header a day, a truncated line) from sending
+        a whole 16 MB block down the careful path, which is ~20x slower.
+        """
+        if not self.fmt.fast_time:
+            return self._slow(block, first_line)
         fast = self._fast(block, first_line)
         if fast is not None:
             return fast
-        return self._slow(block, first_line)
+        if len(block) <= SLOW_PIECE_BYTES:
+            return self._slow(block, first_line)
+        mid = block.rfind(b"\n", 0, len(block) // 2)
+        if mid < 0:
+            mid = block.find(b"\n", len(block) // 2)
+        if mid < 0 or mid >= len(block) - 1:
+            return self._slow(block, first_line)
+        head, tail = block[: mid + 1], block[mid + 1:]
+        a = self.parse(head, first_line)
+        b = self.parse(tail, first_line + _n_lines(head))
+        return _merge_blocks(a, b)
+
+
+def _merge_blocks(a: _Block, b: _Block) -> _Block:
+    keys = list(dict.fromkeys([*a.values, *b.values]))
+
+    def col(blk: _Block, k: tuple[str, str]) -> np.ndarray:
+        v = blk.values.get(k)
+        return v if v is not None else np.full(len(blk.line), np.nan, np.float32)
+
+    rejects = {why: list(arrs) for why, arrs in a.rejects.items()}
+    for why, arrs in b.rejects.items():
+        rejects.setdefault(why, []).extend(arrs)
+    return _Block(np.concatenate([a.line, b.line]), np.concatenate([a.t_us, b.t_us]),
+                  {k: np.concatenate([col(a, k), col(b, k)]) for k in keys}, rejects,
+                  a.header_lines + b.header_lines, a.blank_lines + b.blank_lines,
+                  a.data_lines + b.data_lines)
+
+
+def _strict_strptime(text: pa.ChunkedArray, fmt: str) -> pa.ChunkedArray | None:
+    """Parse with arrow's strptime, or None when any value does not format back to itself.
+
+    Arrow normalises impossible dates (31 February becomes 2 March) instead of failing; a
+    value that does not survive the round trip -- or one written without zero padding -- sends
+    the block to the careful pandas path, which rejects impossible dates.
+    """
+    ts = pc.strptime(text, format=fmt, unit="us", error_is_null=True)
+    back = pc.strftime(ts, format=fmt)
+    differs = pc.fill_null(pc.not_equal(back, text), False)
+    if pc.any(differs).as_py() or ts.null_count != text.null_count:
+        return None
+    return ts
 
 
 def _epoch_to_us(raw: np.ndarray, scale_s: float) -> tuple[np.ndarray, np.ndarray]:
@@ -977,10 +1088,16 @@ def import_file(path: Path, store: Store, *, tz: str | None = None, channel: str
     localise = _Localiser(tz_used) if needs_tz else None
     parser = _Parser(fmt, localise, _bounds(nominal_voltage_V))
 
-    lines_l, t_l = [], []
+    # Results go straight into arrays sized from the head's bytes per line (untouched pages of
+    # an over-estimate cost no memory); concatenating per-block pieces at the end would need
+    # twice the memory and fragments the heap.
+    head_lines = max(head.count(b"\n") - fmt.header_line, 1)
+    per_line = max((min(len(head), size) - fmt.data_offset) / head_lines, 8.0)
+    cap = int((size - fmt.data_offset) / per_line * 1.25) + 1024
     # line numbers as int32 (4 bytes a line) unless the file could hold more than 2**31 lines
-    line_dtype = np.int32 if size < (2**31 - 1) * 2 else np.int64
-    vals_l: dict[tuple[str, str], list[np.ndarray]] = {}
+    lines_g = _Grow(cap, np.int32 if size < (2**31 - 1) * 2 else np.int64)
+    t_g = _Grow(cap, np.int64)
+    vals_g: dict[tuple[str, str], _Grow] = {}
     rejects: dict[str, list[np.ndarray]] = {}
     header_lines = 1
     blank_lines = data_lines = 0
@@ -994,28 +1111,25 @@ def import_file(path: Path, store: Store, *, tz: str | None = None, channel: str
             data_lines += b.data_lines
             for why, arrs in b.rejects.items():
                 rejects.setdefault(why, []).extend(arrs)
-            lines_l.append(b.line.astype(line_dtype, copy=False))
-            t_l.append(b.t_us)
             n = len(b.line)
-            for k, v in b.values.items():
-                vals_l.setdefault(k, [])
-            for k in vals_l:
+            for k in b.values:
+                if k not in vals_g:  # a column first seen now: missing (NaN) before
+                    vals_g[k] = _Grow(cap, np.float32)
+                    vals_g[k].extend(np.full(t_g.n, np.nan, np.float32))
+            lines_g.extend(b.line)
+            t_g.extend(b.t_us)
+            for k, g in vals_g.items():
                 arr = b.values.get(k)
-                vals_l[k].append(arr if arr is not None else np.full(n, np.nan, np.float32))
+                g.extend(arr if arr is not None else np.full(n, np.nan, np.float32))
+            del b
             if progress is not None:
                 progress(off + len(block), size)
     if data_lines == 0:
         raise UnusableInput(f"{path}: a header ({fmt.delimiter.join(fmt.header)!r}) but no data lines")
-    t = np.concatenate(t_l)
-    del t_l
-    # pad columns that appeared only in later blocks (e.g. power->current): front-fill with NaN
-    values: dict[tuple[str, str], np.ndarray] = {}
-    for k in list(vals_l):
-        parts = vals_l.pop(k)
-        total = sum(len(p) for p in parts)
-        arr = np.concatenate(parts) if total == len(t) else np.concatenate(
-            [np.full(len(t) - total, np.nan, np.float32), *parts])
-        values[k] = arr
+    t = t_g.view()
+    values: dict[tuple[str, str], np.ndarray] = {k: g.view() for k, g in vals_g.items()}
+    lines_l = [lines_g.view()]
+    del t_g, vals_g, lines_g
 
     # order, duplicates
     out_of_order = 0
@@ -1118,9 +1232,9 @@ def import_file(path: Path, store: Store, *, tz: str | None = None, channel: str
                                         rows_rejected=rows_rejected, summary={})
         for ch in channels:
             cols = {q: values[(ch, q)] for q in VALUE_COLUMNS if (ch, q) in values}
-            stacked = np.vstack([np.isnan(c) for c in cols.values()])
-            has = ~stacked.all(axis=0)
-            del stacked
+            has = np.zeros(len(t), bool)
+            for c in cols.values():
+                has |= ~np.isnan(c)
             if has.all():
                 store.append_arrays(ch, t, cols, import_id=import_id)
             elif has.any():
@@ -1139,6 +1253,18 @@ def _replace(r: ImportResult, **kw: Any) -> ImportResult:
     return dataclasses.replace(r, **kw)
 
 
+QUARANTINE_TEXT_MAX = 2000  # characters of a rejected line kept in the quarantine file
+
+
+def _printable(text: str) -> str:
+    """A rejected line as safe text: control characters as \\xNN, runs of NUL counted, long lines cut."""
+    text = re.sub("\x00{8,}", lambda m: f"<{len(m.group())} NUL bytes>", text)
+    text = _RE_CONTROL.sub(lambda m: f"\\x{ord(m.group()):02x}", text)
+    if len(text) > QUARANTINE_TEXT_MAX:
+        text = text[:QUARANTINE_TEXT_MAX] + f"...({len(text) - QUARANTINE_TEXT_MAX} more characters)"
+    return text
+
+
 def _write_quarantine(out: Path, src: Path, rejects: dict[str, list[np.ndarray]], encoding: str) -> None:
     """``line,reason,text`` for every rejected line, in line order."""
     lines = np.concatenate([a for arrs in rejects.values() for a in arrs]) if rejects else np.empty(0, np.int64)
@@ -1152,5 +1278,5 @@ def _write_quarantine(out: Path, src: Path, rejects: dict[str, list[np.ndarray]]
     with open(tmp, "w", newline="", encoding="utf-8") as f:
         w = csv.writer(f)
         w.writerow(["line", "reason", "text"])
-        w.writerows(zip(lines.tolist(), why.tolist(), (texts.get(int(x), "") for x in lines)))
+        w.writerows(zip(lines.tolist(), why.tolist(), (_printable(texts.get(int(x), "")) for x in lines)))
     tmp.replace(out)

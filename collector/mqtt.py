@@ -8,7 +8,9 @@ Payloads understood, per message:
 * a Signal K delta (an object with ``updates``), see :mod:`collector.signalk`;
 * a JSON reading object, parsed exactly like a ``jsonl`` serial line
   (:class:`collector.lines.JsonLinesParser`): ``{"voltage_V": 13.1,
-  "current_A": -4.2}``, optional ``channel`` and time;
+  "current_A": -4.2}``, optional ``channel`` and time; without a ``channel``
+  key, a topic level naming a channel (``van/solar``) gives it, else
+  ``--channel``;
 * a bare number on a topic whose last level names the quantity
   (``van/solar/current_A`` -> channel ``solar``, or the default channel when the
   level before is not a channel word).
@@ -28,7 +30,7 @@ from collector.clock import HostClock
 from collector.columns import classify_column, normalise_channel
 from collector.lines import JsonLinesParser, LineError, classify_key
 from collector.signalk import delta_to_readings, is_delta
-from collector.source import NAN, Reading, Sink, Source, SourceUnavailable
+from collector.source import Reading, Sink, Source, SourceUnavailable
 
 _NOT_YET = "mqtt broker not reachable at start"
 _CHANNEL_WORDS = {"battery", "solar", "alternator", "shore", "load"}
@@ -79,7 +81,7 @@ class MqttSource(Source):
         self.clock = clock or HostClock()
         self.keepalive_s = keepalive_s
         self.client_id = client_id or ""
-        self._json = JsonLinesParser(channel=self.channel)
+        self._json_by_channel: dict[str, JsonLinesParser] = {}
         self.connected = threading.Event()
         self._lost_at: float | None = None
         self._lost_reason = ""
@@ -107,7 +109,7 @@ class MqttSource(Source):
             return
         if isinstance(obj, dict):
             try:
-                readings = self._json.parse(text, now)
+                readings = self._json_for(topic).parse(text, now)
             except LineError as exc:
                 sink.reject(f"{topic} {text[:300]}", str(exc), now)
                 return
@@ -121,6 +123,15 @@ class MqttSource(Source):
                 sink.put([reading])
             return
         sink.reject(f"{topic} {text[:300]}", "JSON that is neither a reading object nor a Signal K delta", now)
+
+    def _json_for(self, topic: str) -> JsonLinesParser:
+        """The JSON parser whose default channel is the topic's channel level, if it has one."""
+        levels = [lv.lower() for lv in topic.split("/") if lv]
+        channel = next((lv for lv in reversed(levels) if lv in _CHANNEL_WORDS), self.channel)
+        parser = self._json_by_channel.get(channel)
+        if parser is None:
+            parser = self._json_by_channel[channel] = JsonLinesParser(channel=channel)
+        return parser
 
     def _topic_value(self, topic: str, value: float, now: float) -> Reading | None:
         levels = [lv for lv in topic.split("/") if lv]
@@ -195,6 +206,3 @@ class MqttSource(Source):
             client.loop_stop()
         if self._lost_at is not None:
             sink.outage(self._lost_at, self.clock.now(), self._lost_reason + " (still disconnected when stopped)")
-
-
-__all__ = ["MqttSource", "parse_url", "NAN"]

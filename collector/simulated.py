@@ -534,15 +534,19 @@ def _render_day(sim: Simulation, t_s: np.ndarray, interval_s: float, rng: np.ran
         "battery_temperature_C": temp + rng.normal(0, 0.05, temp.shape),
         "battery_soc_pct": dsoc * 100.0,
         "solar_current_A": noisy_source(src["solar"]),
-        "solar_voltage_V": np.where(src["solar"] > 0.02,
-                                    np.clip(np.interp(tq, sim.step_mid_s, sim.solar_voltage_V) + rng.normal(0, 0.05, v.shape), 0.0, None), 0.0),
+        "solar_voltage_V": np.where(
+            src["solar"] > 0.02,
+            np.clip(np.interp(tq, sim.step_mid_s, sim.solar_voltage_V) + rng.normal(0, 0.05, v.shape), 0.0, None),
+            0.0),
         "alternator_current_A": noisy_source(src["alternator"]),
         "shore_current_A": noisy_source(src["shore"]),
-        "load_current_A": -np.clip(load_A * (1 + rng.normal(0, 0.003, load_A.shape)) + rng.normal(0, 0.01, load_A.shape), 0, None),
+        "load_current_A": -np.clip(load_A * (1 + rng.normal(0, 0.003, load_A.shape))
+                                   + rng.normal(0, 0.01, load_A.shape), 0, None),
     }
     # A PWM controller holds the array at the battery voltage while it delivers.
     if sim.scenario.system.solar and sim.scenario.system.solar[0].controller == "pwm":
-        meas["solar_voltage_V"] = np.where(src["solar"] > 0.02, meas["battery_voltage_V"] + 0.15, meas["solar_voltage_V"])
+        meas["solar_voltage_V"] = np.where(src["solar"] > 0.02, meas["battery_voltage_V"] + 0.15,
+                                           meas["solar_voltage_V"])
     return meas
 
 

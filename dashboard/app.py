@@ -20,7 +20,7 @@ from pathlib import Path
 from typing import Any
 
 import dash
-from dash import dcc, html
+from dash import Input, Output, dcc, html
 
 from dashboard import ids
 from dashboard.data import MAX_UPLOAD_BYTES, DataSource
@@ -39,13 +39,23 @@ NAV_LINKS: tuple[tuple[str, str], ...] = (
 )
 
 
+def nav_links(pathname: str | None) -> list[dcc.Link]:
+    """The page links, the current page marked with class 'active' and a title."""
+    links = []
+    for path, label in NAV_LINKS:
+        here = (pathname or "/").rstrip("/") == path.rstrip("/")
+        links.append(dcc.Link(label, href=path, className="nav-link active" if here else "nav-link",
+                              title=f"{label} (this page)" if here else label))
+    return links
+
+
 def _shell() -> html.Div:
     return html.Div(className="shell", children=[
+        dcc.Location(id=ids.URL, refresh=False),
         html.Header(className="topbar", children=[
             html.Div(className="brand", children=[html.Span("drawdown", className="brand-name"),
                                                    html.Span("battery bank log review", className="brand-sub")]),
-            html.Nav(id=ids.NAV, className="nav", children=[
-                dcc.Link(label, href=path, className="nav-link") for path, label in NAV_LINKS]),
+            html.Nav(id=ids.NAV, className="nav", children=nav_links("/")),
         ]),
         # The date range picked on the trip page, read by health/solar/planner (session-scoped).
         dcc.Store(id=ids.RANGE_STORE, storage_type="session"),
@@ -104,6 +114,7 @@ def create_app(ctx: Any, *, token: str | None = None) -> dash.Dash:
     if token is not None:
         install_token_guard(app.server, token)
     app.layout = _shell
+    app.callback(Output(ids.NAV, "children"), Input(ids.URL, "pathname"))(nav_links)
     return app
 
 

@@ -33,6 +33,7 @@ import os
 import re
 import tempfile
 import threading
+from types import SimpleNamespace
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 from pathlib import Path
@@ -52,6 +53,11 @@ T = TypeVar("T")
 MAX_UPLOAD_BYTES = 50 * 1024 * 1024
 #: Ranges longer than this are read from the store in pieces for the screen (bounded memory).
 _PIECE = pd.Timedelta(days=7)
+#: Most readings one analysis run may load [rows]: ~4 months of 1 Hz logging on three channels,
+#: ~1.3 GB as a canonical frame. A longer pick gets a message instead of exhausting memory.
+MAX_ANALYSIS_READINGS = 30_000_000
+#: The battery-health page looks at this much of the newest history (capacity needs long spans).
+HEALTH_DAYS = 120
 #: Live view: readings shown and used for "this draw".
 LIVE_WINDOW = pd.Timedelta(hours=1)
 #: The present draw is the mean battery current over this window (one sample is too noisy).
@@ -111,6 +117,19 @@ def _to_json(obj: Any) -> dict[str, Any]:
     if dataclasses.is_dataclass(obj):
         return dataclasses.asdict(obj)
     raise TypeError(f"cannot turn {type(obj).__name__} into JSON")
+
+
+def _us(iso: str) -> int:
+    """An ISO timestamp (naive = UTC) as int64 microseconds since 1970."""
+    ts = pd.Timestamp(iso)
+    ts = ts.tz_localize("UTC") if ts.tzinfo is None else ts.tz_convert("UTC")
+    # Not Timestamp.value: that is nanoseconds whatever the unit (pandas 3).
+    return int((ts - pd.Timestamp(0, tz="UTC")) // pd.Timedelta(microseconds=1))
+
+
+def as_json(obj: Any) -> dict[str, Any]:
+    """A result object's JSON dict (public name of :func:`_to_json` for the pages)."""
+    return _to_json(obj)
 
 
 def _finite(x: Any) -> float | None:
@@ -188,6 +207,12 @@ def _ledger_cached(store_path: str, key: tuple, start_iso: str, end_iso: str, sy
         part = _find_part(report, "LedgerResult", "ledger", "ledger_result")
         if part is not None:
             return part, None
+        if isinstance(getattr(report, "ledger", None), pd.DataFrame):
+            # analysis.report keeps the ledger's day frame; its gaps and mode are in the JSON.
+            js = _to_json(report)
+            gaps = tuple(SimpleNamespace(**g) for g in js.get("data_quality", {}).get("gaps") or [])
+            return SimpleNamespace(days=report.ledger, soc=None, gaps=gaps,
+                                   mode=(js.get("attribution") or {}).get("mode"), notes=()), None
     compute_ledger, why = _optional("analysis.ledger", "compute_ledger")
     split_channels, why2 = _optional("analysis.readings", "split_channels")
     if compute_ledger is None or split_channels is None:
@@ -245,45 +270,64 @@ def _sizing_cached(store_path: str, key: tuple, start_iso: str, end_iso: str, sy
 
 
 @_single_flight(maxsize=64)
-def _screen_series_cached(store_path: str, key: tuple, channel: str, quantity: str,
+def _screen_series_cached(store_path: str, key: tuple, channel: str, quantities: tuple[str, ...],
                           start_iso: str | None, end_iso: str | None, n_out: int
-                          ) -> tuple[pd.DatetimeIndex, np.ndarray, bool]:
+                          ) -> dict[str, tuple[pd.DatetimeIndex, np.ndarray, bool]]:
+    """Per quantity: (UTC times, values thinned to ~n_out, full resolution?); one store read per piece."""
+    empty = {q: (pd.DatetimeIndex([], tz="UTC"), np.array([]), True) for q in quantities}
     with _open_store(store_path) as store:
-        if start_iso is None or end_iso is None:
-            span = store.time_span()
-            if span is None:
-                return pd.DatetimeIndex([], tz="UTC"), np.array([]), True
-            start = pd.Timestamp(start_iso) if start_iso else span[0]
-            end = pd.Timestamp(end_iso) if end_iso else span[1] + pd.Timedelta(microseconds=1)
-        else:
-            start, end = pd.Timestamp(start_iso), pd.Timestamp(end_iso)
+        span = store.time_span()
+        if span is None:
+            return empty
+        start = pd.Timestamp(start_iso) if start_iso else span[0]
+        end = pd.Timestamp(end_iso) if end_iso else span[1] + pd.Timedelta(microseconds=1)
         total = end - start
+        if total <= pd.Timedelta(0):
+            return empty
         edges = list(pd.date_range(start, end, freq=_PIECE)) if total > _PIECE else [start]
         if edges[-1] < end:
             edges.append(end)
-        if len(edges) == 1:
-            edges.append(end)
-        ts: list[pd.DatetimeIndex] = []
-        ys: list[np.ndarray] = []
-        full = True
-        for lo, hi in zip(edges[:-1], edges[1:]):
+        ts: dict[str, list[pd.DatetimeIndex]] = {q: [] for q in quantities}
+        ys: dict[str, list[np.ndarray]] = {q: [] for q in quantities}
+        full = dict.fromkeys(quantities, True)
+        for lo, hi in zip(edges[:-1], edges[1:]):  # a loop over week-long pieces, not readings
             piece = store.read(lo, hi, channels=[channel])
-            if piece.empty or quantity not in piece:
+            if piece.empty:
                 continue
             share = max(4, int(round(n_out * ((hi - lo) / total))))
-            y = piece[quantity].to_numpy(dtype="float64")
-            full &= np.isfinite(y).sum() <= share
-            t_d, y_d = figures.downsample(piece["t"], y, share)
-            ts.append(t_d)
-            ys.append(y_d)
-    if not ts:
-        return pd.DatetimeIndex([], tz="UTC"), np.array([]), True
-    return ts[0].append(ts[1:]) if len(ts) > 1 else ts[0], np.concatenate(ys), bool(full)
+            for q in quantities:
+                y = piece[q].to_numpy(dtype="float64")
+                full[q] &= bool(np.isfinite(y).sum() <= share)
+                t_d, y_d = figures.downsample(piece["t"], y, share)
+                ts[q].append(t_d)
+                ys[q].append(y_d)
+    out = {}
+    for q in quantities:
+        if not ts[q]:
+            out[q] = empty[q]
+            continue
+        t = ts[q][0].append(ts[q][1:]) if len(ts[q]) > 1 else ts[q][0]
+        out[q] = (t, np.concatenate(ys[q]), full[q])
+    return out
+
+
+@_single_flight(maxsize=16)
+def _usual_draw_cached(store_path: str, key: tuple, start_iso: str, end_iso: str) -> float | None:
+    """99th percentile of the one-minute mean discharge current over ``[start, end)`` [A], or None."""
+    with _open_store(store_path) as store:
+        week = store.read(start_iso, end_iso, channels=["battery"])
+    cur = week["current_A"].to_numpy(dtype=float) if not week.empty else np.array([])
+    if cur.size <= 600:
+        return None
+    minute = pd.Series(cur, index=pd.DatetimeIndex(week["t"])).resample("1min").mean().dropna()
+    discharge = -minute[minute < 0].to_numpy()
+    return float(np.percentile(discharge, 99)) if discharge.size >= 60 else None
 
 
 def clear_caches() -> None:
     """Forget every cached result (tests; after writing system.toml)."""
-    for fn in (_report_cached, _ledger_cached, _solar_cached, _sizing_cached, _screen_series_cached):
+    for fn in (_report_cached, _ledger_cached, _solar_cached, _sizing_cached, _screen_series_cached,
+               _usual_draw_cached):
         fn.cache_clear()
 
 
@@ -339,6 +383,8 @@ def _soc_of(report: Any) -> tuple[pd.Series | None, list[pd.Timestamp]]:
     for name in ("resync_times", "resyncs"):
         if not resync and getattr(report, name, None) is not None:
             resync = list(getattr(report, name))
+    if not resync and hasattr(report, "to_json"):
+        resync = list(_to_json(report).get("resyncs") or [])
     if soc is not None and not isinstance(soc, pd.Series):
         soc = None
     return soc, [pd.Timestamp(t) for t in resync]
@@ -386,30 +432,43 @@ class Health:
 def _health_of(report: Any, system: System) -> Health:
     battery = dict(_to_json(report).get("battery") or {})
     cap = _find_part(report, "CapacityEstimate", "capacity")
-    pts = pd.DataFrame(columns=["t", "usable_Ah", "lo_Ah", "hi_Ah", "delta_soc_pct"])
+    rows = []
     if cap is not None and getattr(cap, "pairs", ()):
-        rows = []
         for pair in cap.pairs:  # a loop over discharges (a handful), not over readings
             q = float(pair.capacity_Ah)
             # 95 % interval of one pair: y/x with relative errors added in quadrature (FIELDREF §3).
-            rel = math.hypot(pair.sigma_y / max(abs(pair.ah_moved), 1e-9), pair.sigma_x / max(abs(pair.delta_soc), 1e-9))
+            rel = math.hypot(pair.sigma_y / max(abs(pair.ah_moved), 1e-9),
+                             pair.sigma_x / max(abs(pair.delta_soc), 1e-9))
             rows.append({"t": pair.end.time, "usable_Ah": q, "lo_Ah": q * (1 - 1.96 * rel),
-                         "hi_Ah": q * (1 + 1.96 * rel), "delta_soc_pct": 100 * abs(pair.delta_soc)})
-        pts = pd.DataFrame(rows)
+                         "hi_Ah": q * (1 + 1.96 * rel), "delta_soc_pct": 100 * abs(pair.delta_soc),
+                         "mean_discharge_A": float(pair.mean_discharge_A)})
+    else:
+        for pair in battery.get("anchor_pairs") or []:  # analysis.report's JSON form (no per-pair sigma)
+            rows.append({"t": pd.Timestamp(pair["end"]), "usable_Ah": _finite(pair.get("capacity_Ah")),
+                         "delta_soc_pct": abs(_finite(pair.get("delta_soc_pct")) or 0.0),
+                         "mean_discharge_A": _finite(pair.get("mean_discharge_A"))})
+    pts = pd.DataFrame(rows, columns=["t", "usable_Ah", "lo_Ah", "hi_Ah", "delta_soc_pct", "mean_discharge_A"])
+    if len(pts) and pts["lo_Ah"].isna().all():
+        pts = pts.drop(columns=["lo_Ah", "hi_Ah"])
     res = _find_part(report, "ResistanceEstimate", "resistance", "internal_resistance")
-    rpts = pd.DataFrame(columns=["t", "resistance_ohm", "steps"])
-    trend = None
-    if res is not None:
-        per_day = getattr(res, "per_day", None)
-        if per_day is not None and len(per_day):
-            rpts = pd.DataFrame({"t": pd.to_datetime(per_day["date"]), "resistance_ohm": per_day["ohm"],
-                                 "steps": per_day.get("steps")})
-        trend = _finite(getattr(res, "trend_ohm_per_30d", None))
+    per_day = getattr(res, "per_day", None) if res is not None else getattr(report, "resistance_per_day", None)
+    if per_day is None or not len(per_day):
+        per_day = pd.DataFrame(battery.get("internal_resistance_days") or [], columns=["date", "ohm", "steps"])
+    rpts = pd.DataFrame({"t": pd.to_datetime(per_day["date"]), "resistance_ohm": per_day["ohm"].astype(float),
+                         "steps": per_day["steps"] if "steps" in per_day else np.nan})
+    trend = _finite(getattr(res, "trend_ohm_per_30d", None)) if res is not None else \
+        _finite(battery.get("internal_resistance_trend_ohm_per_30d"))
     pk = _find_part(report, "PeukertEstimate", "peukert")
+    if pk is not None and getattr(pk, "points", ()):
+        peukert_points = tuple(pk.points)
+    else:
+        # Each discharge between two anchors: capacity Q at mean current I -> runtime to empty t = Q / I.
+        ok = pts.dropna(subset=["usable_Ah", "mean_discharge_A"])
+        ok = ok[ok["mean_discharge_A"] > 0]
+        peukert_points = tuple(zip(ok["mean_discharge_A"], ok["usable_Ah"] / ok["mean_discharge_A"]))
     return Health(battery=battery, capacity_points=pts, resistance_points=rpts,
-                  resistance_trend_ohm_per_30d=trend,
-                  peukert_points=tuple(getattr(pk, "points", ()) or ()),
-                  peukert_source=getattr(pk, "source", None),
+                  resistance_trend_ohm_per_30d=trend, peukert_points=peukert_points,
+                  peukert_source=getattr(pk, "source", None) or battery.get("peukert_k_source"),
                   rated_Ah=system.battery.rated_capacity_Ah, rated_hours=system.battery.rated_hours)
 
 
@@ -475,12 +534,24 @@ class DataSource:
         return cls(ctx.store_path, ctx.system_path)
 
     # -- store -----------------------------------------------------------------
-    def store_key(self) -> tuple:
+    def store_key(self, start_iso: str | None = None, end_iso: str | None = None) -> tuple:
         """What changes whenever the store's content changes (cache key).
 
-        File modification times (main file and write-ahead log, nanoseconds)
-        plus the number of chunks and the newest chunk id.
+        With a time range: the count, newest id and readings of the chunks
+        overlapping ``[start, end)`` -- chunks are append-only, so a live
+        collector writing *now* does not invalidate the analysis of last week.
+        Without: the file modification times (main file and write-ahead log)
+        plus the same figures over the whole store.
         """
+        if start_iso is not None and end_iso is not None:
+            if not self.has_store():
+                return (None,)
+            lo, hi = _us(start_iso), _us(end_iso)
+            with _open_store(str(self.store_path)) as store:
+                n, last_id, rows = store.execute(
+                    "SELECT COUNT(*), MAX(id), SUM(n) FROM chunks WHERE t_last_us >= ? AND t_first_us < ?",
+                    (lo, hi)).fetchone()
+            return (lo, hi, n, last_id, rows)
         stamps = []
         for suffix in ("", "-wal"):
             try:
@@ -571,6 +642,10 @@ class DataSource:
         start = max(first, last - pd.Timedelta(days=days - 1))
         return start.isoformat(), last.isoformat()
 
+    def health_range(self) -> tuple[str, str] | None:
+        """The newest :data:`HEALTH_DAYS` local days of the store (or all of it)."""
+        return self.default_range(days=HEALTH_DAYS)
+
     def full_range(self) -> tuple[str, str] | None:
         span = self.time_span()
         if span is None:
@@ -587,22 +662,33 @@ class DataSource:
             raise ValueError(f"date range {start_date} .. {end_date}: the end is before the start")
         return lo.tz_convert("UTC").isoformat(), hi.tz_convert("UTC").isoformat()
 
-    def _keyed(self, start_date: str, end_date: str) -> tuple[str, tuple, str, str, str] | Section:
+    def _keyed(self, start_date: str | None, end_date: str | None, *, utc: tuple[str, str] | None = None
+               ) -> tuple[str, tuple, str, str, str] | Section:
+        """The cache arguments of a range: local dates, or ``utc=(start, end)`` ISO bounds instead."""
         sys_s = self.system()
         if not sys_s.ok:
             return Section(why=sys_s.why)
         if not self.has_store():
             return Section(why="The store is empty: import a log on the System setup page.")
-        try:
-            lo, hi = self.utc_bounds(start_date, end_date)
-        except (ValueError, TypeError) as exc:
-            return Section(why=f"Pick a valid date range ({exc}).")
-        return str(self.store_path), self.store_key(), lo, hi, self.system_text() or ""
+        if utc is not None:
+            lo, hi = utc
+        else:
+            try:
+                lo, hi = self.utc_bounds(start_date, end_date)
+            except (ValueError, TypeError) as exc:
+                return Section(why=f"Pick a valid date range ({exc}).")
+        key = self.store_key(lo, hi)
+        if key[-1] is not None and key[-1] > MAX_ANALYSIS_READINGS:
+            return Section(why=f"this range holds {key[-1]:,} readings, more than the "
+                               f"{MAX_ANALYSIS_READINGS:,} one analysis run loads; pick a shorter range "
+                               "(or analyse it with `drawdown report --from ... --to ...`).")
+        return str(self.store_path), key, lo, hi, self.system_text() or ""
 
     # -- analysis sections -------------------------------------------------------------
-    def report(self, start_date: str, end_date: str) -> Section[Any]:
-        """The analysis report of a local date range (cached)."""
-        k = self._keyed(start_date, end_date)
+    def report(self, start_date: str | None = None, end_date: str | None = None, *,
+               utc: tuple[str, str] | None = None) -> Section[Any]:
+        """The analysis report of a local date range, or of ``utc=(start, end)`` (cached)."""
+        k = self._keyed(start_date, end_date, utc=utc)
         if isinstance(k, Section):
             return k
         value, why = _report_cached(*k)
@@ -612,32 +698,35 @@ class DataSource:
         s = self.report(start_date, end_date)
         return Section(_to_json(s.value), None) if s.ok else Section(why=s.why)
 
-    def ledger(self, start_date: str, end_date: str) -> Section[Any]:
+    def ledger(self, start_date: str | None = None, end_date: str | None = None, *,
+               utc: tuple[str, str] | None = None) -> Section[Any]:
         """The analysis.ledger.LedgerResult of a range (the report's, else computed directly; cached)."""
-        k = self._keyed(start_date, end_date)
+        k = self._keyed(start_date, end_date, utc=utc)
         if isinstance(k, Section):
             return k
         value, why = _ledger_cached(*k)
         return Section(value, why)
 
-    def days(self, start_date: str, end_date: str) -> Section[pd.DataFrame]:
+    def days(self, start_date: str | None = None, end_date: str | None = None, *,
+             utc: tuple[str, str] | None = None) -> Section[pd.DataFrame]:
         """The daily ledger of a range as a flat DataFrame (columns of :func:`_ledger_days`)."""
-        led = self.ledger(start_date, end_date)
+        led = self.ledger(start_date, end_date, utc=utc)
         if led.ok and isinstance(getattr(led.value, "days", None), pd.DataFrame):
             return Section(_ledger_days(led.value.days))
-        rep = self.report(start_date, end_date)
+        rep = self.report(start_date, end_date, utc=utc)
         if rep.ok:
             return Section(_report_days(rep.value))
         return Section(why=led.why or rep.why)
 
-    def soc(self, start_date: str, end_date: str) -> Section[tuple[pd.Series, list[pd.Timestamp]]]:
+    def soc(self, start_date: str | None = None, end_date: str | None = None, *,
+            utc: tuple[str, str] | None = None) -> Section[tuple[pd.Series, list[pd.Timestamp]]]:
         """State of charge [%] over the range and its full-charge resync times."""
-        rep = self.report(start_date, end_date)
+        rep = self.report(start_date, end_date, utc=utc)
         if rep.ok:
             soc, resync = _soc_of(rep.value)
             if soc is not None:
                 return Section((soc, resync))
-        led = self.ledger(start_date, end_date)
+        led = self.ledger(start_date, end_date, utc=utc)
         if led.ok and getattr(led.value, "soc", None) is not None:
             return Section(_soc_of(led.value))
         return Section(why=led.why or rep.why or "No state-of-charge estimate (no battery channel).")
@@ -678,11 +767,17 @@ class DataSource:
         year of 1 Hz data. Returns (UTC times, values, full_resolution) where
         ``full_resolution`` says that every stored reading is included.
         """
+        return self.screen_multi(channel, (quantity,), start, end, n_out=n_out)[quantity]
+
+    def screen_multi(self, channel: str, quantities: tuple[str, ...], start: Any = None, end: Any = None, *,
+                     n_out: int = figures.SCREEN_POINTS) -> dict[str, tuple[pd.DatetimeIndex, np.ndarray, bool]]:
+        """Several quantities of one channel from ONE read of the store (see :meth:`screen_series`)."""
         if not self.has_store():
-            return pd.DatetimeIndex([], tz="UTC"), np.array([]), True
+            return {q: (pd.DatetimeIndex([], tz="UTC"), np.array([]), True) for q in quantities}
         s = None if start is None else pd.Timestamp(start).isoformat()
         e = None if end is None else pd.Timestamp(end).isoformat()
-        return _screen_series_cached(str(self.store_path), self.store_key(), channel, quantity, s, e, int(n_out))
+        key = self.store_key(s, e) if s is not None and e is not None else self.store_key()
+        return _screen_series_cached(str(self.store_path), key, channel, tuple(quantities), s, e, int(n_out))
 
     # -- live view ------------------------------------------------------------------------
     def live(self) -> LiveSnapshot:
@@ -697,7 +792,6 @@ class DataSource:
         last = span[1]
         with _open_store(str(self.store_path)) as store:
             recent = store.read(last - LIVE_WINDOW, last + pd.Timedelta(microseconds=1))
-            week = store.read(last - pd.Timedelta(days=7), last - LIVE_WINDOW, channels=["battery"])
         bat = recent[recent["channel"].astype(str) == "battery"]
         if bat.empty:
             return dataclasses.replace(empty, readings=recent, notes=("No battery channel in the last hour.",))
@@ -718,22 +812,36 @@ class DataSource:
         if system is not None:
             low_v = LOW_VOLTAGE_PER_BLOCK_V[system.battery.chemistry] * round(system.battery.series_12V_blocks)
 
-        # State of charge: our own estimate over the recent fortnight, else the monitor's figure.
+        # The analysis context is the fortnight up to the start of the newest reading's hour: its
+        # cache stays valid while a live collector appends (store_key is per range), and the
+        # state of charge is carried forward from its end by counting the charge since.
+        hour = t_last.floor("1h")
         soc, soc_source, usable, typical = None, "", None, None
-        if system is not None:
+        ledger_days, peukert_k = None, None
+        if system is not None and hour > span[0]:
             tz = system.site.timezone
-            end_date = t_last.tz_convert(tz).date()
-            start_date = (t_last - TYPICAL_DAYS).tz_convert(tz).date()
-            rng = (start_date.isoformat(), end_date.isoformat())
-            soc_s = self.soc(*rng)
+            lo = (hour - TYPICAL_DAYS).tz_convert(tz).normalize().tz_convert("UTC")
+            ctx_utc = (max(lo, span[0].floor("1h")).isoformat(), hour.isoformat())
+            rep = self.report(utc=ctx_utc)
+            if rep.ok:
+                batt = _to_json(rep.value).get("battery", {})
+                usable, peukert_k = _finite(batt.get("usable_Ah")), _finite(batt.get("peukert_k"))
+            soc_s = self.soc(utc=ctx_utc)
             if soc_s.ok and len(soc_s.value[0]):
                 series = soc_s.value[0]
-                if series.index[-1] >= t_last - pd.Timedelta(minutes=10):
-                    soc, soc_source = _finite(series.iloc[-1]), "estimated by coulomb counting"
-            rep = self.report(*rng)
-            if rep.ok:
-                usable = _finite(_to_json(rep.value).get("battery", {}).get("usable_Ah"))
-            days = self.days(*rng)
+                t_soc = series.index[-1]
+                since = bat[bat["t"] >= t_soc]
+                coulomb_count_Ah, _why = _optional("analysis.charge", "coulomb_count_Ah")
+                if coulomb_count_Ah is not None and t_soc >= t_last - LIVE_WINDOW - pd.Timedelta(hours=1):
+                    moved = coulomb_count_Ah(since["t"], since["current_A"].fillna(0.0).to_numpy()) \
+                        if len(since) > 1 else 0.0
+                    cap = usable or system.battery.rated_capacity_Ah
+                    soc = float(np.clip(float(series.iloc[-1]) + 100.0 * moved / cap, 0.0, 100.0))
+                    soc_source = "estimated by coulomb counting"
+            led = self.ledger(utc=ctx_utc)
+            if led.ok:
+                ledger_days = getattr(led.value, "days", None)
+            days = self.days(utc=ctx_utc)
             if days.ok:
                 done = days.value[days.value["complete"] & days.value["consumed_Ah"].notna()]
                 if len(done):
@@ -746,26 +854,29 @@ class DataSource:
             soc, soc_source = _finite(row["soc_pct"]), "the monitor's own figure"
 
         remaining = runtime_h = runtime_days = None
-        if system is not None and soc is not None:
-            capacity = usable or system.battery.rated_capacity_Ah
-            floor_pct = 100.0 * (1.0 - system.battery.effective_max_dod)
-            remaining = max(0.0, (soc - floor_pct) / 100.0 * capacity)
-            if draw is not None and draw < -0.05:
-                runtime_h = remaining / -draw
-            if typical:
-                runtime_days = remaining / typical
+        runtime_left, rwhy = _optional("analysis.runtime", "runtime_left")
+        if system is not None and soc is not None and runtime_left is not None:
+            # analysis.runtime: usable charge above the chemistry's floor; Peukert-corrected present draw.
+            est = runtime_left(soc_now_pct=soc, last_hour_net_A=draw,
+                               ledger_days=ledger_days if ledger_days is not None else pd.DataFrame(),
+                               system=system, capacity_Ah=usable,
+                               peukert_k=peukert_k or system.battery.effective_peukert_k)
+            remaining, runtime_h = _finite(est.usable_left_Ah), _finite(est.hours_at_present_draw)
+            runtime_days = _finite(est.days_at_typical_day)
+            typical = _finite(est.typical_day_consumed_Ah) or typical
+            if runtime_days is None and est.days_why:
+                notes.append(f"Runtime at a typical day: {est.days_why}.")
+        elif runtime_left is None:
+            notes.append(f"Runtime left is {rwhy}.")
         alarms: list[str] = []
         if low_v is not None and v is not None and v < low_v:
             alarms.append(f"Low voltage: {v:.2f} V is below {low_v:.1f} V. Reduce the load or charge soon.")
-        week_cur = week["current_A"].to_numpy(dtype=float) if not week.empty else np.array([])
-        if draw is not None and draw < 0 and week_cur.size > 600:
-            minute = pd.Series(week_cur, index=pd.DatetimeIndex(week["t"])).resample("1min").mean().dropna()
-            discharge = -minute[minute < 0].to_numpy()
-            if discharge.size >= 60:
-                usual = float(np.percentile(discharge, 99))
-                if -draw > UNUSUAL_DRAW_FACTOR * usual and -draw > 1.0:
-                    alarms.append(f"Unusual draw: {-draw:.1f} A is more than {UNUSUAL_DRAW_FACTOR:g}x the "
-                                  f"heaviest usual draw of the past week ({usual:.1f} A).")
+        if draw is not None and draw < 0:
+            w_lo, w_hi = (hour - pd.Timedelta(days=7)).isoformat(), hour.isoformat()
+            usual = _usual_draw_cached(str(self.store_path), self.store_key(w_lo, w_hi), w_lo, w_hi)
+            if usual is not None and -draw > UNUSUAL_DRAW_FACTOR * usual and -draw > 1.0:
+                alarms.append(f"Unusual draw: {-draw:.1f} A is more than {UNUSUAL_DRAW_FACTOR:g}x the "
+                              f"heaviest usual draw of the past week ({usual:.1f} A).")
         return LiveSnapshot(t_last, v, i, p, draw, soc, soc_source, temp, remaining, runtime_h, typical,
                             runtime_days, tuple(alarms), tuple(notes), recent, low_v)
 

@@ -122,17 +122,22 @@ def downsample(t: Any, y: Any, n_out: int = SCREEN_POINTS, *, gap_factor: float 
 # -- common look ------------------------------------------------------------------
 
 def _base_layout(fig: go.Figure, *, title: str | None = None, height: int = 340,
-                 legend_below: bool = False) -> go.Figure:
+                 legend_below: bool = True, subtitle: str | None = None) -> go.Figure:
+    head: dict[str, Any] | None = None
+    if title:
+        head = {"text": title, "x": 0.0, "xanchor": "left", "font": {"size": 15}}
+        if subtitle:
+            head["subtitle"] = {"text": subtitle, "font": {"size": 11, "color": PALETTE["muted"]}}
     fig.update_layout(
-        title={"text": title, "x": 0.0, "xanchor": "left", "font": {"size": 15}} if title else None,
+        title=head,
         height=height,
-        margin={"l": 52, "r": 12, "t": 44 if title else 16, "b": 36},
+        margin={"l": 52, "r": 12, "t": (80 if subtitle else 44) if title else 16, "b": 64 if legend_below else 36},
         paper_bgcolor=PALETTE["paper"],
         plot_bgcolor=PALETTE["paper"],
         font={"family": "system-ui, -apple-system, 'Segoe UI', Roboto, sans-serif", "size": 12,
               "color": PALETTE["ink"]},
-        # Below the plot for stacked subplots (their titles sit where a top legend would).
-        legend=({"orientation": "h", "yanchor": "top", "y": -0.12, "x": 0.0, "xanchor": "left",
+        # Below the plot: on a phone a top legend runs into the title and the subplot titles.
+        legend=({"orientation": "h", "yanchor": "top", "y": -0.14, "x": 0.0, "xanchor": "left",
                  "bgcolor": "rgba(0,0,0,0)"} if legend_below else
                 {"orientation": "h", "yanchor": "bottom", "y": 1.0, "x": 1.0, "xanchor": "right",
                  "bgcolor": "rgba(0,0,0,0)"}),
@@ -201,8 +206,7 @@ def live_figure(readings: pd.DataFrame, *, low_voltage_V: float | None = None,
         fig.add_trace(_line(t_local[mask].tz_localize(None), cur, name=str(name), colour=colour,
                             n_out=n_out), row=2, col=1)
     fig.add_hline(y=0, line={"color": PALETTE["muted"], "width": 0.8}, row=2, col=1)
-    _base_layout(fig, height=440, legend_below=True)
-    fig.update_layout(margin={"b": 70})
+    _base_layout(fig, height=440)
     fig.update_annotations(font_size=12)
     return fig
 
@@ -239,7 +243,9 @@ def ledger_figure(days: pd.DataFrame) -> go.Figure:
                                      hovertemplate="partial day"))
     fig.update_layout(barmode="relative", bargap=0.25)
     fig.update_yaxes(title_text="Ah per day (charge up, use down)")
-    fig.update_xaxes(type="category")
+    # A date axis with short labels: no rotated labels on a phone, ticks thinned by plotly on long ranges.
+    fig.update_xaxes(type="date", tickformat="%d %b", hoverformat="%a %d %b %Y",
+                     dtick=86_400_000 if len(days) <= 10 else None)  # one label per day [ms]
     return _base_layout(fig, title="Daily energy ledger")
 
 
@@ -298,7 +304,7 @@ def readings_figure(series: Mapping[str, tuple[Any, Any]], *, tz: str = "UTC", t
                                      name=key.split("_")[0], line={"color": colour, "width": 1.2},
                                      connectgaps=False, showlegend=False), row=row, col=1)
     note = "every stored reading" if full_resolution else f"thinned to ~{SCREEN_POINTS} points; zoom for detail"
-    _base_layout(fig, title=f"{title} ({note})", height=420)
+    _base_layout(fig, title=title, subtitle=note, height=440)
     fig.update_annotations(font_size=12)
     return fig
 
@@ -318,8 +324,12 @@ def capacity_figure(estimates: pd.DataFrame | None, *, rated_Ah: float, overall_
     overall_Ah, overall_ci95
         The combined estimate and interval, drawn as a band when given.
     """
-    fig = go.Figure()
     has_points = estimates is not None and len(estimates) > 0
+    if not has_points and (overall_Ah is None or not np.isfinite(overall_Ah)):
+        return message_figure("No capacity estimate yet: it needs a discharge of at least 40 % between two "
+                              "known states of charge (a full charge or a rested voltage).",
+                              title="Usable capacity")
+    fig = go.Figure()
     if has_points:
         x = pd.to_datetime(estimates["t"] if "t" in estimates else estimates["date"])
         err = None
@@ -337,11 +347,6 @@ def capacity_figure(estimates: pd.DataFrame | None, *, rated_Ah: float, overall_
             fig.add_hrect(y0=overall_ci95[0], y1=overall_ci95[1], fillcolor=PALETTE["band"], line_width=0)
     fig.add_hline(y=rated_Ah, line={"color": PALETTE["muted"], "dash": "dash", "width": 1},
                   annotation_text=f"rated {rated_Ah:.0f} Ah", annotation_position="bottom right")
-    if not has_points and (overall_Ah is None or not np.isfinite(overall_Ah)):
-        fig.add_annotation(text="No capacity estimate yet: it needs a discharge of at least 40 % "
-                                "between two known states of charge.",
-                           x=0.5, y=0.5, xref="paper", yref="paper", showarrow=False,
-                           font={"color": PALETTE["muted"]})
     fig.update_yaxes(title_text="usable capacity [Ah]", rangemode="tozero")
     return _base_layout(fig, title="Usable capacity")
 
@@ -390,7 +395,7 @@ def peukert_figure(current_A: Sequence[float] | None, hours: Sequence[float] | N
     fig.add_trace(go.Scatter(x=i, y=ideal, mode="lines", name="k = 1 (no rate loss)",
                              line={"color": PALETTE["expected"], "dash": "dash"}))
     if current_A is not None and hours is not None and len(current_A):
-        fig.add_trace(go.Scatter(x=list(current_A), y=list(hours), mode="markers", name="measured",
+        fig.add_trace(go.Scatter(x=list(current_A), y=list(hours), mode="markers", name="from your discharges",
                                  marker={"color": PALETTE["consumed"], "size": 8}))
     fig.update_xaxes(type="log", title_text="discharge current [A]")
     fig.update_yaxes(type="log", title_text="runtime to empty [h]")
@@ -414,7 +419,8 @@ def solar_daily_figure(days: Sequence[Mapping[str, Any]]) -> go.Figure:
                          customdata=sat, hovertemplate="%{y:.0f} Wh" + (
                              "<br>battery full %{customdata:.0%} of daylight" if sat is not None else "")))
     fig.update_layout(barmode="overlay", bargap=0.3)
-    fig.update_xaxes(type="category")
+    fig.update_xaxes(type="date", tickformat="%d %b", hoverformat="%a %d %b %Y",
+                     dtick=86_400_000 if len(df) <= 10 else None)  # one label per day [ms]
     fig.update_yaxes(title_text="Wh per day")
     return _base_layout(fig, title="Solar per day: measured vs clear-sky expectation")
 

@@ -14,7 +14,6 @@ from __future__ import annotations
 import asyncio
 import subprocess
 import threading
-import time
 
 import pytest
 

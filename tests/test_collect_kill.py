@@ -42,7 +42,7 @@ def _max_t(store_path) -> float:
 
 
 @pytest.mark.slow
-def test_sigkill_20_times_loses_at_most_1_s_each_and_the_store_stays_intact(tmp_path):
+def test_sigkill_20_times_loses_at_most_1_s_each_and_the_store_stays_intact(tmp_path, record_property):
     store_path = tmp_path / "s.sqlite"
     pty = Pty()
     sender = Sender(pty, "jsonl", rate_hz=100.0, with_time=True, garbage_every=40)
@@ -73,12 +73,16 @@ def test_sigkill_20_times_loses_at_most_1_s_each_and_the_store_stays_intact(tmp_
     t = df["t"].astype("int64").to_numpy() / 1e6
     sent = np.array([(ts, ok) for _, ts, ok in sender.sent])
     sent_t = np.round(sent[:, 0], 6)
+    losses = []
     for before, t_kill in runs:
         in_run = t[(t > before) & (t <= t_kill)]
         last = in_run.max()
+        losses.append(t_kill - last)
         assert t_kill - last <= 1.0, f"lost {t_kill - last:.2f} s of readings at a kill"
         first = in_run.min()
         expected = sent_t[(sent_t >= first - 2e-6) & (sent_t <= last + 2e-6) & (sent[:, 1] == 1)]
         stored = np.round(in_run[(in_run >= first) & (in_run <= last)], 6)
         assert len(stored) == len(expected), "a hole inside a run's stored readings"
     assert len(runs) == KILLS
+    record_property("worst_loss_s", round(max(losses), 3))
+    record_property("median_loss_s", round(float(np.median(losses)), 3))

@@ -17,7 +17,7 @@ from pathlib import Path
 
 import pytest
 
-from conftest_collector import start_collector, stop_collector, stored_count, wait_for
+from conftest_collector import start_collector, stored_count, wait_for
 from collector.collect import run_collector
 from collector.mqtt import MqttSource, parse_url
 from collector.source import ListSink
@@ -188,3 +188,11 @@ def test_mqtt_url_with_credentials_and_default_port_is_parsed():
 def test_mqtt_url_without_host_is_rejected_with_the_expected_form():
     with pytest.raises(ValueError, match=r"expected mqtt://\[user:pass@\]host\[:port\]"):
         parse_url("http://x")
+
+
+def test_json_reading_on_a_channel_topic_takes_the_topics_channel():
+    src = MqttSource("mqtt://127.0.0.1:1")
+    sink = ListSink()
+    src.handle("van/solar", b'{"current_A": 6.5}', sink)
+    src.handle("van/monitor", b'{"channel": "fridge", "current_A": -3.0}', sink)
+    assert [(r.channel, r.current_A) for r in sink.readings] == [("solar", 6.5), ("fridge", -3.0)]

@@ -68,7 +68,12 @@ def test_collector_stores_every_line_sent_at_100_hz_in_each_format(tmp_path, fmt
         sent_t = {k: t for k, t, _ in sender.sent}
         t_stored = df["t"].astype("int64").to_numpy()[order] / 1e6
         np.testing.assert_allclose(t_stored, [round(sent_t[k], 6) for k in ks], atol=2e-6)
-    quarantine = (tmp_path / "quarantine" / "collect-serial.csv").read_text()
+    # one chunk per channel per commit: no commit held more than 1 s of data (issue 7)
+    db = sqlite3.connect(store_path)
+    longest_us = db.execute("SELECT MAX(t_last_us - t_first_us) FROM chunks").fetchone()[0]
+    db.close()
+    assert longest_us <= 1_000_000
+    quarantine = (tmp_path / "quarantine" / "collect-serial.csv").read_text(errors="replace")
     assert "garbage" in quarantine or "not text" in quarantine or "checksum" in quarantine
     assert "lines rejected" in out
 
@@ -275,3 +280,49 @@ def test_lines_arriving_in_one_read_get_distinct_microsecond_stamps():
     stamps = [stamp(now) for _ in range(1000)]
     us = [round(t * 1e6) for t in stamps]
     assert len(set(us)) == 1000
+
+
+def test_collect_with_unknown_columns_exits_2_naming_the_column(tmp_path):
+    import subprocess
+
+    from conftest_collector import ROOT, collector_cmd
+
+    proc = subprocess.run(collector_cmd(tmp_path / "s.sqlite", "--serial", "/dev/null", "--columns", "voltage_V,wobble"),
+                          cwd=ROOT, capture_output=True, text=True, timeout=60)
+    assert proc.returncode == 2
+    assert "'wobble' is not a quantity" in proc.stderr
+
+
+def test_collect_waits_for_a_missing_port_and_stops_cleanly_at_the_duration(tmp_path):
+    """An adapter not yet plugged in at boot: the collector keeps retrying (no crash, exit 0)."""
+    import subprocess
+
+    from conftest_collector import ROOT, collector_cmd
+
+    proc = subprocess.run(collector_cmd(tmp_path / "s.sqlite", "--serial", str(tmp_path / "ttyUSB9"),
+                                        "--duration", "1.5"), cwd=ROOT, capture_output=True, text=True, timeout=60)
+    assert proc.returncode == 0, proc.stderr
+    assert "cannot open" in proc.stderr and "retrying" in proc.stderr
+    with Store(tmp_path / "s.sqlite") as store:
+        (gap,) = store.events("gap")
+    assert "still disconnected when stopped" in gap["detail"]["reason"]
+
+
+def test_clock_jump_still_corrects_host_stamped_chunks_after_they_were_compacted(tmp_path):
+    from collector.collect import maintain
+
+    c = _FakeClocks(1.767e9 - 3600.0)
+    clock = HostClock(wall=c.wall, mono=c.mono)
+    with Store(tmp_path / "s.sqlite") as store:
+        w = BatchWriter(store, source_name="serial", clock=clock)
+        t_old = clock.now()
+        for b in range(5):
+            w.put([_reading(t_old + b + k * 0.01) for k in range(10)])
+            w.flush()
+        maintain(w, keep_full_s=None)  # the old-clock chunks are > 2 min old by the real clock
+        assert store.execute("SELECT COUNT(*) FROM chunks").fetchone()[0] == 1
+        c.offset += 3600.0
+        w.flush()
+        df = store.read()
+    assert len(df) == 50
+    assert (df["t"].astype("int64") / 1e6 >= t_old + 3600.0 - 0.01).all()

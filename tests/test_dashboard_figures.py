@@ -419,9 +419,47 @@ def test_readings_callback_redraws_a_zoom_at_full_resolution(app_ctx):
     src = app_ctx.source
     rng = src.full_range()
     wide = trip.render_readings(src, *rng)
-    assert "thinned" in wide.layout.title.text
+    assert "thinned" in wide.layout.title.subtitle.text
     day = pd.Timestamp(rng[0]) + pd.Timedelta(days=1)
     zoom = {"xaxis.range[0]": f"{day.date()} 10:00:00", "xaxis.range[1]": f"{day.date()} 12:00:00"}
     narrow = trip.render_readings(src, *rng, relayout=zoom)
-    assert "every stored reading" in narrow.layout.title.text
+    assert "every stored reading" in narrow.layout.title.subtitle.text
     assert len(narrow.data[0].x) == 120
+
+
+def test_range_cache_key_ignores_readings_written_after_the_range(copy_ctx):
+    # A live collector appends "now": the analysis of earlier days must stay cached.
+    src = copy_ctx.source
+    span = src.time_span()
+    lo, hi = span[0].isoformat(), (span[1] - pd.Timedelta(days=1)).isoformat()
+    before = src.store_key(lo, hi)
+    assert before[2] > 0  # the range's chunks are counted
+    _append_battery(src.store_path, span[1], 5, 13.1, -3.0)
+    assert src.store_key(lo, hi) == before
+    assert src.store_key() != before
+    # ...but a reading written inside the range does invalidate it (an import of that trip's log).
+    _append_battery(src.store_path, span[0] + pd.Timedelta(hours=1, seconds=30), 1, 13.1, -3.0)
+    assert src.store_key(lo, hi) != before
+
+
+def test_live_state_of_charge_carried_forward_matches_a_full_analysis(copy_ctx):
+    src = copy_ctx.source
+    last = src.time_span()[1]
+    _append_battery(src.store_path, last, 50, 13.0, -20.0)
+    snap = src.live()
+    assert snap.soc_source == "estimated by coulomb counting"
+    # The same instant analysed in one piece by analysis.report over the whole store.
+    full = src.soc(*src.full_range())
+    if not full.ok:
+        pytest.skip(f"no state of charge from analysis: {full.why}")
+    series = full.value[0]
+    assert snap.soc_pct == pytest.approx(float(series.iloc[-1]), abs=1.0)
+
+
+def test_a_range_too_big_for_one_analysis_gets_a_message_not_a_crash(app_ctx, monkeypatch):
+    import dashboard.data as data
+
+    monkeypatch.setattr(data, "MAX_ANALYSIS_READINGS", 1000)
+    section = app_ctx.source.days(*app_ctx.source.full_range())
+    assert not section.ok
+    assert "pick a shorter range" in section.why

@@ -416,7 +416,68 @@ def test_already_imported_result_names_the_previous_import(store):
 
 def test_separate_date_and_time_columns_bad_date_is_rejected(store, tmp_path):
     p = tmp_path / "dt.csv"
-    p.write_text("Date;Time;U (V)\n01.06.2024;12:00:00;12,5\n31.02.2024;12:00:10;12,5\n01.06.2024;12:00:20;12,4\n")
+    rows = [f"01.06.2024;12:00:{k:02d};12,5" for k in range(0, 60, 10)]
+    rows[2] = "31.02.2024;12:00:20;12,5"  # no 31 February
+    p.write_text("Date;Time;U (V)\n" + "\n".join(rows) + "\n")
     r = import_file(p, store, tz="Europe/Oslo")
     assert r.rejected_by_reason == {"bad_time": 1}
-    assert list(store.read()["t"]) == [pd.Timestamp("2024-06-01T10:00:00Z"), pd.Timestamp("2024-06-01T10:00:20Z")]
+    t = store.read()["t"]
+    assert len(t) == 5 and t.iloc[0] == pd.Timestamp("2024-06-01T10:00:00Z")
+
+
+def test_nul_padding_left_by_a_power_cut_is_quarantined_not_fatal(store, tmp_path):
+    good = [f"2024-06-01T10:00:{k:02d}Z,12.5,-1.0" for k in range(20)]
+    data = ("time,voltage_V,current_A\n" + "\n".join(good[:10]) + "\n").encode()
+    data += b"\x00" * 4096 + ("\n" + "\n".join(good[10:]) + "\n").encode()
+    p = tmp_path / "powercut.csv"
+    p.write_bytes(data)
+    r = import_file(p, store)
+    assert r.rows_stored == 20 and r.rejected_by_reason == {"binary_garbage": 1}
+    assert _quarantine_rows(r.quarantine)[0]["text"] == "<4096 NUL bytes>"
+
+
+def test_file_of_only_nul_bytes_is_unusable(store, tmp_path):
+    p = tmp_path / "zeros.csv"
+    p.write_bytes(b"\x00" * 5000)
+    with pytest.raises(UnusableInput, match="only NUL bytes"):
+        import_file(p, store)
+
+
+def test_bad_lines_in_a_big_block_are_found_by_halving_with_right_line_numbers(store, tmp_path):
+    t0 = pd.Timestamp("2024-06-01T00:00:00Z")
+    lines = [f"{(t0 + pd.Timedelta(seconds=k)).isoformat()},12.5,-1.0" for k in range(20_000)]  # ~900 kB
+    lines[1234] = "time,voltage_V,current_A"  # a logger restart
+    lines[9876] = "2024-06-01T02:44:36+00:00,twelve,-1.0"
+    lines[15000] = ""
+    p = tmp_path / "big.csv"
+    p.write_text("time,voltage_V,current_A\n" + "\n".join(lines) + "\n")
+    r = import_file(p, store)
+    assert (r.header_lines, r.blank_lines, r.data_lines, r.rows_stored) == (2, 1, 19_998, 19_997)
+    # list index k is file line k + 2 (the header is line 1)
+    assert [(int(x["line"]), x["reason"]) for x in _quarantine_rows(r.quarantine)] == [(9878, "non_numeric")]
+    assert len(store.read()) == 19_997
+
+
+def test_cli_invert_and_channel_options(tmp_path, capsys):
+    code, out, _ = _run(capsys, "--store", str(tmp_path / "s.sqlite"), "import", "--json", "--channel", "house",
+                        "--invert", "house", str(LOGS / "epoch_ms.csv"))
+    f = json.loads(out)["files"][0]
+    assert code == 0 and f["channels"] == ["house"] and f["sign_inverted"] == ["house"]
+    with Store(tmp_path / "s.sqlite") as st:
+        assert st.read()["current_A"].iloc[0] == pytest.approx(5.2, abs=1e-5)  # -5.2 A flipped
+
+
+def test_cli_map_option_reaches_the_importer(tmp_path, capsys):
+    p = tmp_path / "odd.csv"
+    p.write_text("when,X1\n2024-06-01T10:00:00Z,12.5\n2024-06-01T10:00:01Z,12.4\n")
+    code, out, _ = _run(capsys, "--store", str(tmp_path / "s.sqlite"), "import", "--json",
+                        "--map", "when=time", "--map", "X1=voltage_V", str(p))
+    assert code == 0 and json.loads(out)["files"][0]["columns"] == {"when": "time", "X1": "battery.voltage_V"}
+
+
+def test_local_dates_without_zero_padding(store, tmp_path):
+    p = tmp_path / "unpadded.csv"
+    p.write_text("Date;Time;U (V)\n1.6.2024;9:00:00;12,5\n1.6.2024;9:00:10;12,4\n")
+    r = import_file(p, store, tz="Europe/Oslo")
+    assert r.rows_stored == 2
+    assert store.read()["t"].iloc[0] == pd.Timestamp("2024-06-01T07:00:00Z")

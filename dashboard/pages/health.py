@@ -1,7 +1,8 @@
 """Battery health: usable capacity with its interval, internal resistance over time, the Peukert fit.
 
-Looks at the whole history in the store (capacity estimates need long
-discharges between known states of charge, which a short trip may not have).
+Looks at the newest ``HEALTH_DAYS`` (120) days in the store, not just the
+picked trip: capacity estimates need long discharges between known states of
+charge, which a short trip may not have.
 """
 
 from __future__ import annotations
@@ -12,8 +13,8 @@ import dash
 from dash import Input, Output, callback, html
 
 from dashboard import figures, ids
-from dashboard.data import DataSource, current
-from dashboard.pages._parts import card, fmt, graph, missing, notice, page_head
+from dashboard.data import HEALTH_DAYS, DataSource, current
+from dashboard.pages._parts import card, fmt, graph, missing, page_head
 
 dash.register_page(__name__, path="/health", name="Battery health", title="drawdown - battery health", order=2)
 
@@ -34,8 +35,8 @@ def _why(battery: dict, key: str) -> str | None:
 
 
 def render_health(source: DataSource) -> tuple[Any, Any, Any, Any]:
-    """(summary, capacity figure, resistance figure, Peukert figure) over the whole stored history."""
-    full = source.full_range()
+    """(summary, capacity figure, resistance figure, Peukert figure) over the newest stored history."""
+    full = source.health_range()
     if full is None:
         why = "No readings stored yet: import a log on the System setup page."
         return missing("Battery health", why), *(figures.message_figure(why),) * 3
@@ -59,7 +60,8 @@ def render_health(source: DataSource) -> tuple[Any, Any, Any, Any]:
         card("Internal resistance", fmt(r * 1e3 if r is not None else None, "mΩ", 1),
              (f"trend {trend * 1e3:+.2f} mΩ per 30 days" if trend is not None else None) or _why(b, "internal_resistance_ohm")),
     ], className="cards")
-    summary = html.Div([html.P(f"Whole stored history: {full[0]} to {full[1]}.", className="hint"), cards])
+    summary = html.Div([html.P(f"From the stored history {full[0]} to {full[1]} (at most the newest "
+                               f"{HEALTH_DAYS} days).", className="hint"), cards])
     cap_fig = figures.capacity_figure(h.capacity_points, rated_Ah=h.rated_Ah, overall_Ah=b.get("usable_Ah"),
                                       overall_ci95=ci)
     res_fig = figures.resistance_figure(h.resistance_points, overall_ohm=r)

@@ -15,7 +15,7 @@ import dash
 from dash import Input, Output, State, callback, dcc, html
 
 from dashboard import figures, ids
-from dashboard.data import DataSource, _to_json, current
+from dashboard.data import DataSource, as_json, current
 from dashboard.pages._parts import card, fmt, graph, missing, notice, page_head, table
 from dashboard.pages.solar import pick_range
 
@@ -81,7 +81,7 @@ def render_plan(source: DataSource, autonomy_days: float | None, percentile: flo
     sect = source.sizing(*rng, autonomy_days=float(autonomy_days), percentile=float(percentile or 90))
     if not sect.ok:
         return missing("Upgrade planner", sect.why), figures.message_figure(f"Not available: {sect.why}"), "", ""
-    js = _to_json(sect.value)
+    js = as_json(sect.value)
     bat, sol = js.get("battery") or {}, js.get("solar") or {}
     dcdc, inv = js.get("dc_dc_charger") or {}, js.get("inverter") or {}
     present_sys = js.get("present_system") or {}

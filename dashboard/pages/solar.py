@@ -14,7 +14,7 @@ import pandas as pd
 from dash import Input, Output, State, callback, html
 
 from dashboard import figures, ids
-from dashboard.data import DataSource, _to_json, current
+from dashboard.data import DataSource, as_json, current
 from dashboard.pages._parts import card, fmt, graph, missing, page_head
 
 dash.register_page(__name__, path="/solar", name="Solar", title="drawdown - solar", order=3)
@@ -39,19 +39,28 @@ def pick_range(source: DataSource, stored: dict | None) -> tuple[str, str] | Non
     return source.default_range()
 
 
+def _value_text(v: Any) -> str:
+    if isinstance(v, float):
+        return fmt(v, "", 2)
+    if isinstance(v, dict):
+        return "; ".join(f"{k.replace('_', ' ')} {_value_text(x)}" for k, x in v.items())
+    if isinstance(v, list):
+        return ", ".join(_value_text(x) for x in v)
+    return str(v)
+
+
 def _diagnostic_items(diag: dict[str, Any]) -> list[Any]:
+    """The solar analysis's diagnostics as a readable list: findings first, then the figures behind them."""
     items: list[Any] = []
     for key, value in diag.items():
         label = key.replace("_", " ")
-        if isinstance(value, list):
-            for v in value:
-                items.append(html.Li(v if isinstance(v, str) else f"{label}: {v}"))
-        elif isinstance(value, dict):
-            inner = ", ".join(f"{k.replace('_', ' ')} {fmt(v, '', 2) if isinstance(v, float) else v}"
-                              for k, v in value.items())
-            items.append(html.Li(f"{label}: {inner}"))
+        if isinstance(value, dict):
+            items.append(html.Li([html.Strong(label), html.Ul([html.Li(f"{k.replace('_', ' ')}: {_value_text(v)}")
+                                                               for k, v in value.items()])]))
+        elif isinstance(value, list) and all(isinstance(v, str) for v in value):
+            items.extend(html.Li(v) for v in value)
         else:
-            items.append(html.Li(f"{label}: {fmt(value, '', 2) if isinstance(value, float) else value}"))
+            items.append(html.Li([html.Strong(f"{label}: "), _value_text(value)]))
     return items
 
 
@@ -66,7 +75,7 @@ def render_solar(source: DataSource, stored: dict | None) -> tuple[Any, Any, Any
         m = figures.message_figure(f"Not available: {sect.why}")
         return missing("Solar", sect.why), m, m, ""
     sa = sect.value
-    js = _to_json(sa)
+    js = as_json(sa)
     days = js.get("days") or []
     measured = sum(float(d.get("measured_Wh") or 0) for d in days)
     expected = sum(float(d.get("expected_Wh") or 0) for d in days)

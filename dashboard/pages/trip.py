@@ -13,7 +13,6 @@ from __future__ import annotations
 from typing import Any
 
 import dash
-import pandas as pd
 from dash import Input, Output, callback, dcc, html, no_update
 
 from dashboard import figures, ids
@@ -37,7 +36,7 @@ def layout(**_kwargs: Any) -> html.Div:
         html.Div([html.Label("Days", htmlFor=ids.TRIP_RANGE, className="field-label"), picker,
                   html.Span(f"stored: {full[0]} to {full[1]}" if full else "nothing stored yet",
                             className="hint")], className="controls"),
-        html.Div(id=ids.TRIP_SUMMARY, className="cards"),
+        html.Div(id=ids.TRIP_SUMMARY),
         graph(ids.TRIP_LEDGER_GRAPH),
         graph(ids.TRIP_SOC_GRAPH),
         graph(ids.TRIP_READINGS_GRAPH),
@@ -197,8 +196,7 @@ def render_readings(source: DataSource, start_date: str | None, end_date: str | 
         lo, hi = window[0].isoformat(), window[1].isoformat()
     series = {}
     full = True
-    for q in ("voltage_V", "current_A"):
-        t, y, is_full = source.screen_series("battery", q, lo, hi)
+    for q, (t, y, is_full) in source.screen_multi("battery", ("voltage_V", "current_A"), lo, hi).items():
         if len(t):
             series[q] = (t, y)
             full &= is_full

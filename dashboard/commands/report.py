@@ -1,0 +1,133 @@
+"""``drawdown report [--from DATE] [--to DATE] [--json] [--html FILE]``: the analysis of what is stored.
+
+DATE is a local calendar date in the site's timezone (system.toml ``site.timezone``);
+``--to`` is inclusive. ``--json`` prints the report object only; ``--html FILE`` also
+writes a self-contained, offline HTML report (plotly.js inline).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from dashboard.context import Context, UsageError, print_json, warn
+
+
+def _local_bound(text: str | None, tz: str, *, end: bool, option: str) -> pd.Timestamp | None:
+    if text is None:
+        return None
+    try:
+        day = dt.date.fromisoformat(text)
+    except ValueError:
+        raise UsageError(f"{option} {text!r}: expected a date as YYYY-MM-DD (local, site timezone {tz})") from None
+    if end:
+        day = day + dt.timedelta(days=1)  # --to is inclusive: up to the next local midnight
+    return pd.Timestamp(day).tz_localize(tz, nonexistent="shift_forward", ambiguous=True).tz_convert("UTC")
+
+
+def run(args: Any, ctx: Context) -> int:
+    from analysis.report import build_report
+
+    system = ctx.load_system()
+    tz = system.site.timezone
+    start = _local_bound(getattr(args, "date_from", None), tz, end=False, option="--from")
+    end = _local_bound(getattr(args, "date_to", None), tz, end=True, option="--to")
+    if start is not None and end is not None and end <= start:
+        raise UsageError(f"--to {args.date_to} is before --from {args.date_from}")
+    if not ctx.store_path.exists():
+        raise UsageError(f"{ctx.store_path}: the store is empty; import a log first ('drawdown import FILE')")
+    store = ctx.open_store()
+    try:
+        readings = store.read(start, end)
+        rows_rejected = sum(int(i["rows_rejected"]) for i in store.imports())
+    finally:
+        store.close()
+    if readings.empty:
+        where = "" if start is None and end is None else " in the selected dates"
+        raise UsageError(f"{ctx.store_path}: no readings stored{where}; import a log first ('drawdown import FILE')")
+    try:
+        report = build_report(readings, system, rows_rejected=rows_rejected)
+    except ValueError as exc:
+        raise UsageError(str(exc)) from None
+    obj = report.to_json()
+    if args.html:
+        from dashboard.html_report import write_html
+
+        path = write_html(report, Path(args.html), system=system)
+        warn(f"wrote {path}")
+    if args.json:
+        print_json(obj)
+        return 0
+    print("\n".join(describe(obj)))
+    return 0
+
+
+def _f(x: Any, fmt: str = ".1f", none: str = "-") -> str:
+    return none if x is None else format(x, fmt)
+
+
+def describe(j: dict) -> list[str]:
+    """The human summary of a report object (plain text, one line per day)."""
+    p, dq, b, rt = j["period"], j["data_quality"], j["battery"], j.get("runtime", {})
+    out = [f"period: {p['start']} to {p['end']} ({p['days']} local days, {p.get('timezone', '')})",
+           f"data quality: {dq['rows_stored']} rows stored, {dq['rows_rejected']} rejected, "
+           f"{len(dq['gaps'])} gap(s); {dq.get('complete_days', 0)} complete day(s); mode: {dq.get('mode', '')}"]
+    for g in dq["gaps"][:10]:
+        out.append(f"  gap on {g.get('channel', '?')}: {g['start']} to {g['end']} ({g['seconds']:.0f} s) - energy unknown")
+    if len(dq["gaps"]) > 10:
+        out.append(f"  ... and {len(dq['gaps']) - 10} more gaps")
+    for note in dq.get("notes", []):
+        out.append(f"  note: {note}")
+    out.append("")
+    head = (f"{'date':<10} {'full':>4} {'used Ah':>8} {'used Wh':>8} {'solar Ah':>8} {'alt Ah':>7} "
+            f"{'shore Ah':>8} {'other Ah':>8} {'SoC min %':>9} {'SoC end %':>9} {'conf':>5}")
+    out += [head, "-" * len(head)]
+    for d in j["days"]:
+        c = d["charged_Ah"]
+        out.append(f"{d['date']:<10} {'yes' if d['complete'] else 'no':>4} {_f(d['consumed_Ah']):>8} "
+                   f"{_f(d['consumed_Wh'], '.0f'):>8} {_f(c['solar']):>8} {_f(c['alternator']):>7} "
+                   f"{_f(c['shore']):>8} {_f(c['other']):>8} {_f(d['soc_min_pct']):>9} {_f(d['soc_end_pct']):>9} "
+                   f"{_f(d.get('attribution_confidence'), '.2f'):>5}")
+    out.append("")
+    out.append(f"battery ({b.get('chemistry', '')}): rated {_f(b['rated_Ah'], '.0f')} Ah")
+    if b["usable_Ah"] is not None:
+        lo, hi = b["usable_Ah_ci95"] or (None, None)
+        out.append(f"  usable capacity {_f(b['usable_Ah'])} Ah (95 % interval {_f(lo)}-{_f(hi)} Ah), "
+                   f"state of health {_f(b['state_of_health_pct'], '.0f')} %")
+    else:
+        out.append(f"  usable capacity: unknown - {b.get('usable_Ah_why')}")
+    out.append(f"  Peukert exponent {_f(b['peukert_k'], '.3f')} ({b.get('peukert_k_source')})"
+               + (f" - {b['peukert_k_why']}" if b.get("peukert_k_why") else ""))
+    if b["internal_resistance_ohm"] is not None:
+        trend = b.get("internal_resistance_trend_ohm_per_30d")
+        out.append(f"  internal resistance {1000 * b['internal_resistance_ohm']:.1f} mOhm"
+                   + (f", trend {1000 * trend:+.2f} mOhm per 30 days" if trend is not None else ""))
+    else:
+        out.append(f"  internal resistance: unknown - {b.get('internal_resistance_ohm_why')}")
+    dis = j.get("device_soc_disagreement_days") or []
+    if dis:
+        out.append("  the monitor's own SoC disagrees by > 5 % on: " + ", ".join(d["date"] for d in dis))
+    out.append("")
+    if rt:
+        out.append(f"runtime left (SoC now {_f(rt.get('soc_now_pct'), '.0f')} %, {_f(rt.get('usable_left_Ah'))} Ah "
+                   f"usable above the {100 * (1 - rt.get('max_dod', 0)):.0f} % floor, {rt.get('capacity_source')}):")
+        if rt.get("hours_at_present_draw") is not None:
+            out.append(f"  at this draw ({_f(-rt['present_draw_A'], '.2f')} A): {_f(rt['hours_at_present_draw'])} h")
+        else:
+            out.append(f"  at this draw: - ({rt.get('hours_at_present_draw_why')})")
+        if rt.get("days_without_charging") is not None:
+            out.append(f"  typical day uses {_f(rt['typical_day_consumed_Ah'])} Ah: "
+                       f"{_f(rt['days_without_charging'])} days with no charging"
+                       + (f", {_f(rt['days_at_typical_day'])} days with typical charging"
+                          if rt.get("days_at_typical_day") is not None else ""))
+        if rt.get("days_why"):
+            out.append(f"  ({rt['days_why']})")
+    s = j.get("solar") or {}
+    if s.get("performance_ratio") is not None:
+        out.append(f"solar performance ratio {s['performance_ratio']:.2f} (measured / expected for the site and sky)")
+    else:
+        out.append(f"solar performance ratio: - ({s.get('performance_ratio_why', 'not available')})")
+    return out

@@ -1,0 +1,173 @@
+"""The report object (DESIGN.md contract keys) and `drawdown report` end to end on a real store."""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from test_ledger import long_frame  # noqa: E402
+
+from analysis.report import build_report  # noqa: E402
+from analysis.system import system_from_mapping  # noqa: E402
+from collector.store import Store  # noqa: E402
+from dashboard.cli import main  # noqa: E402
+
+SYSTEM_TOML = """
+[site]
+latitude_deg = 60.4
+longitude_deg = 5.3
+timezone = "Europe/Oslo"
+[battery]
+chemistry = "agm"
+nominal_voltage_V = 12
+rated_capacity_Ah = 100
+"""
+
+
+def _system():
+    import tomllib
+    return system_from_mapping(tomllib.loads(SYSTEM_TOML))
+
+
+def _frame(days=3, device_offset=0.0):
+    start = pd.Timestamp("2026-06-10", tz="Europe/Oslo").tz_convert("UTC")
+    t = pd.date_range(start, start + pd.Timedelta(days=days), freq="60s", inclusive="left")
+    n = len(t)
+    hour = np.asarray(t.tz_convert("Europe/Oslo").hour)
+    solar = np.where((hour >= 10) & (hour < 15), 8.0, 0.0)
+    bat = solar - 2.0
+    return long_frame(t, battery={"current_A": bat, "voltage_V": np.full(n, 12.6),
+                                  "soc_pct": np.full(n, 80.0 + device_offset)},
+                      solar={"current_A": solar})
+
+
+def test_report_json_has_exactly_the_contract_keys():
+    j = build_report(_frame(), _system()).to_json()
+    assert set(j["period"]) >= {"start", "end", "days"}
+    assert set(j["data_quality"]) >= {"rows_stored", "rows_rejected", "gaps"}
+    day = j["days"][0]
+    assert set(day) >= {"date", "complete", "consumed_Ah", "consumed_Wh", "charged_Ah", "soc_min_pct", "soc_end_pct"}
+    assert set(day["charged_Ah"]) == {"solar", "alternator", "shore", "other"}
+    assert set(j["battery"]) >= {"rated_Ah", "usable_Ah", "usable_Ah_ci95", "state_of_health_pct", "peukert_k",
+                                 "internal_resistance_ohm"}
+    assert set(j["solar"]) >= {"performance_ratio", "days"}
+    json.dumps(j, allow_nan=False, default=str)  # JSON-clean
+
+
+def test_unknown_values_are_null_with_a_reason():
+    b = build_report(_frame(), _system()).to_json()["battery"]
+    assert b["usable_Ah"] is None and b["usable_Ah_why"]
+    assert b["state_of_health_pct"] is None and b["state_of_health_pct_why"]
+    assert b["internal_resistance_ohm"] is None and b["internal_resistance_ohm_why"]
+
+
+def test_rows_stored_counts_time_stamps_not_rows_per_channel():
+    df = _frame(days=1)
+    j = build_report(df, _system(), rows_rejected=7).to_json()
+    assert j["data_quality"]["rows_stored"] == len(df) // 2
+    assert j["data_quality"]["rows_rejected"] == 7
+
+
+def test_days_where_the_device_soc_disagrees_by_more_than_5_percent_are_flagged():
+    rep = build_report(_frame(device_offset=-40.0), _system())
+    flagged = rep.to_json()["device_soc_disagreement_days"]
+    assert len(flagged) == 3 and all(d["mean_abs_diff_pct"] > 5 for d in flagged)
+    assert isinstance(rep.soc, pd.Series) and rep.soc.index.tz is not None
+    assert list(rep.ledger["date"]) == [pd.Timestamp(d["date"]).date() for d in rep.to_json()["days"]]
+
+
+# -- the command line on a real SQLite store ---------------------------------------------------
+
+@pytest.fixture()
+def store_dir(tmp_path):
+    (tmp_path / "system.toml").write_text(SYSTEM_TOML)
+    return tmp_path
+
+
+def test_report_on_an_empty_store_exits_2_and_says_to_import(store_dir, capsys):
+    rc = main(["--store", str(store_dir / "r.sqlite"), "report"])
+    assert rc == 2
+    assert "import a log first" in capsys.readouterr().err
+
+
+def test_report_json_prints_one_object_on_stdout(store_dir, capsys):
+    with Store(store_dir / "r.sqlite") as st:
+        st.append(_frame())
+    rc = main(["--store", str(store_dir / "r.sqlite"), "report", "--json", "--from", "2026-06-11", "--to", "2026-06-11"])
+    out = capsys.readouterr().out
+    assert rc == 0
+    j = json.loads(out)
+    assert [d["date"] for d in j["days"]] == ["2026-06-11"]
+    assert j["days"][0]["consumed_Ah"] == pytest.approx(48.0, rel=0.01)
+
+
+def test_report_human_summary_has_a_line_per_day_with_units(store_dir, capsys):
+    with Store(store_dir / "r.sqlite") as st:
+        st.append(_frame())
+    assert main(["--store", str(store_dir / "r.sqlite"), "report"]) == 0
+    out = capsys.readouterr().out
+    assert "used Ah" in out and "2026-06-10" in out and "2026-06-12" in out and "usable capacity" in out
+
+
+def test_report_html_is_self_contained_and_offline(store_dir, capsys):
+    with Store(store_dir / "r.sqlite") as st:
+        st.append(_frame())
+    page = store_dir / "out" / "report.html"
+    assert main(["--store", str(store_dir / "r.sqlite"), "report", "--html", str(page)]) == 0
+    text = page.read_text()
+    assert "<script src=" not in text and 'src="http' not in text  # nothing fetched from a network
+    assert "Plotly.newPlot" in text and len(text) > 3_000_000  # plotly.js is inline
+    assert "Daily ledger" in text and "Data quality" in text
+
+
+def test_bad_date_is_a_usage_error_naming_the_option(store_dir, capsys):
+    with Store(store_dir / "r.sqlite") as st:
+        st.append(_frame(days=1))
+    assert main(["--store", str(store_dir / "r.sqlite"), "report", "--from", "10/06/2026"]) == 2
+    assert "--from" in capsys.readouterr().err
+
+
+# -- against the simulator's truth ----------------------------------------------------------
+
+def _sim_report(name: str, days: int, *, single_shunt: bool = False):
+    sim_mod = pytest.importorskip("collector.simulated")
+    sim = sim_mod.simulate(name, days=days)
+    df = sim_mod.to_canonical(sim, interval_s=60, single_shunt=single_shunt)
+    return build_report(df, sim.scenario.system).to_json(), sim.truth
+
+
+def test_spring_truck_deep_cycle_gives_usable_capacity_within_5_percent_with_interval_containing_truth():
+    # The simulator's truth (collector.simulated): a cycle spanning > 50 % SoC on days 4-8.
+    j, truth = _sim_report("spring-truck", 14)
+    b, true_ah = j["battery"], truth["battery"]["usable_Ah"]
+    assert b["usable_Ah"] == pytest.approx(true_ah, rel=0.05)
+    lo, hi = b["usable_Ah_ci95"]
+    assert lo <= true_ah <= hi
+    assert b["state_of_health_pct"] == pytest.approx(truth["battery"]["state_of_health_pct"], abs=5)
+
+
+def test_shallow_days_leave_capacity_null_with_a_reason():
+    # autumn-van days 0-4 stay shallow: no cycle spans 50 % SoC (scenario notes).
+    j, _ = _sim_report("autumn-van", 5)
+    assert j["battery"]["usable_Ah"] is None
+    assert "40 %" in j["battery"]["usable_Ah_why"]
+
+
+@pytest.mark.xfail(strict=True, reason="known gap: the LiFePO4 van never rests near its low knee, so no "
+                   "anchor below the plateau exists; capacity stays null")
+def test_autumn_van_deep_cycle_gives_usable_capacity_within_5_percent():
+    j, truth = _sim_report("autumn-van", 14)
+    assert j["battery"]["usable_Ah"] == pytest.approx(truth["battery"]["usable_Ah"], rel=0.05)
+
+
+def test_multichannel_simulation_consumed_Ah_within_2_percent_every_day():
+    j, truth = _sim_report("spring-truck", 14)
+    for d, td in zip(j["days"], truth["days"]):
+        assert d["date"] == td["date"]
+        assert d["consumed_Ah"] == pytest.approx(td["consumed_Ah"], rel=0.02)
