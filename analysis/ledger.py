@@ -327,23 +327,49 @@ def _multi_channel(bat: Channel | None, v_b: np.ndarray | None, sources: dict[st
         cols["consumed_Wh"] += _day_sum(load.t_us, trapezoid_increments(load.t_us, cur * v, gaps=gmask["load"]),
                                         bounds)
         return
-    # 2. The balance on the battery's grid: gross load r = sum(sources) - net battery current.
+    # 2. The balance on the battery's grid, in chunks of whole local days so that the
+    #    temporaries stay small on a year at 1 Hz (a loop over chunks, not over rows).
+    pos = np.searchsorted(bat.t_us, bounds, side="left")
+    pos[0], pos[-1] = 0, len(bat)
+    start_day = 0
+    n_days = len(bounds) - 1
+    while start_day < n_days:
+        end_day = start_day + 1
+        while end_day < n_days and pos[end_day + 1] - pos[start_day] <= BALANCE_CHUNK:
+            end_day += 1
+        lo, hi = int(pos[start_day]), int(min(pos[end_day] + 1, len(bat)))  # +1: the interval into the next day
+        if hi - lo >= 2:
+            part = Channel(bat.name, bat.t_us[lo:hi], bat.current_A[lo:hi], bat.voltage_V[lo:hi],
+                           bat.temperature_C[lo:hi], bat.soc_pct[lo:hi])
+            _balance(part, v_b[lo:hi], gmask["battery"][lo:hi - 1], sources, load, system, bounds, gmask, cols)
+        start_day = end_day
+
+
+#: Battery samples per balance chunk (whole local days; ~40 MB of temporaries each).
+BALANCE_CHUNK: int = 1_000_000
+
+
+def _balance(bat: Channel, v_b: np.ndarray, bat_gaps: np.ndarray, sources: dict[str, Channel],
+             load: Channel | None, system: System, bounds: np.ndarray, gmask: dict[str, np.ndarray],
+             cols: dict[str, np.ndarray]) -> None:
+    """Gross load and unmeasured charge on one chunk of the battery's time grid."""
     n = len(bat)
-    bad = gaps_to_samples(gmask["battery"], n)
-    r = -fill0(bat.current_A)
+    bad = gaps_to_samples(bat_gaps, n)
+    r = -fill0(bat.current_A).astype(np.float64)
     for name, ch in sources.items():
-        s_on_b, s_bad = _interp_on(bat.t_us, ch, np.clip(fill0(ch.current_A), 0.0, None),
-                                   gmask[name])
+        s_on_b, s_bad = _interp_on(bat.t_us, ch, np.clip(fill0(ch.current_A), 0.0, None), gmask[name])
         r += s_on_b
         bad |= s_bad
+        del s_on_b
     if load is not None:
-        l_on_b, l_bad = _interp_on(bat.t_us, load, np.clip(-fill0(load.current_A), 0.0, None),
-                                   gmask["load"])
+        l_on_b, _ = _interp_on(bat.t_us, load, np.clip(-fill0(load.current_A), 0.0, None), gmask["load"])
     else:
-        l_on_b, l_bad = np.zeros(n), np.zeros(n, dtype=bool)
+        l_on_b = np.zeros(n)
     bad_iv = _bad_intervals(bad)
     # 3. Persistent positive residual (measured load - gross load) = an unmeasured source ("other").
-    other_day, other_wh = _other_source(bat, l_on_b - r, v_b, bad_iv, system, bounds)
+    l_on_b -= r
+    other_day, other_wh = _other_source(bat, l_on_b, v_b, bad_iv, system, bounds)
+    del l_on_b
     cols["charged_Ah_other"] += other_day
     cols["charged_Wh_other"] += other_wh
     cols["consumed_Ah"] += _day_sum(bat.t_us, trapezoid_increments(bat.t_us, r, gaps=bad_iv, dt_h=bat.dt_h),
@@ -351,7 +377,6 @@ def _multi_channel(bat: Channel | None, v_b: np.ndarray | None, sources: dict[st
     r *= v_b  # in place: gross load power [W]
     cols["consumed_Wh"] += _day_sum(bat.t_us, trapezoid_increments(bat.t_us, r, gaps=bad_iv, dt_h=bat.dt_h),
                                     bounds) + other_wh
-    del l_bad
 
 
 def _other_source(bat: Channel, resid_A: np.ndarray, v_b: np.ndarray, bad_iv: np.ndarray, system: System,

@@ -741,6 +741,11 @@ class _Parser:
             spec = fmt.columns[j]
             v = vals[j] * spec.scale
             lo, hi = self.bounds[spec.quantity]
+            if spec.quantity == "voltage_V" and spec.channel == "solar":
+                # A solar channel's voltage is the array side of the controller, not the bank:
+                # an MPPT array on a 12 V bank sits at 18-40 V, and controllers take up to
+                # ~250 V input (common practice), so the bank-scaled bound does not apply.
+                lo, hi = self.bounds["array_voltage_V"]
             bad = (reason == 0) & (~np.isnan(v)) & ((v < lo) | (v > hi) | ~np.isfinite(v))
             reason[bad] = _R[f"implausible_{spec.quantity.split('_')[0]}"]
             any_value |= ~np.isnan(v)
@@ -753,7 +758,9 @@ class _Parser:
         channels = {ch for ch, _ in canon}
         for ch in channels:
             if (ch, "power_W") in canon and (ch, "current_A") not in canon:
-                v = canon.get((ch, "voltage_V"), canon.get(("battery", "voltage_V")))
+                # Current into the bank is power over the BANK voltage; a solar channel's own
+                # voltage is the array side of an MPPT controller, so the battery's comes first.
+                v = canon.get(("battery", "voltage_V"), canon.get((ch, "voltage_V")))
                 if v is not None:
                     with np.errstate(divide="ignore", invalid="ignore"):
                         cur = np.where(v > 1.0, canon[(ch, "power_W")] / v, np.nan)
@@ -950,7 +957,7 @@ def _bounds(nominal_voltage_V: float | None) -> dict[str, tuple[float, float]]:
     """
     vmax = 1.6 * nominal_voltage_V if nominal_voltage_V else 70.0
     return {"voltage_V": (-0.5, vmax), "current_A": (-2000.0, 2000.0), "power_W": (-50_000.0, 50_000.0),
-            "temperature_C": (-50.0, 100.0), "soc_pct": (-0.5, 100.5)}
+            "temperature_C": (-50.0, 100.0), "soc_pct": (-0.5, 100.5), "array_voltage_V": (-0.5, 250.0)}
 
 
 def _fetch_lines(path: Path, wanted: np.ndarray, encoding: str) -> dict[int, str]:

@@ -159,6 +159,28 @@ def test_bounds_scale_with_nominal_voltage(store, tmp_path):
     assert r.rejected_by_reason == {"implausible_voltage": 1}
 
 
+def test_solar_array_voltage_is_not_held_to_the_bank_bound(store, tmp_path):
+    # An MPPT controller's array side sits well above the bank: a 36-cell module's
+    # Vmp is ~18 V and two in series ~36 V on a 12 V bank (common practice).
+    p = tmp_path / "mppt.csv"
+    p.write_text("time,battery_voltage_V,battery_current_A,solar_voltage_V,solar_current_A\n"
+                 "2024-06-01T10:00:00Z,13.4,8.0,36.5,10.0\n"
+                 "2024-06-01T10:00:01Z,13.4,8.1,36.4,10.1\n")
+    r = import_file(p, store, nominal_voltage_V=12.8)
+    assert r.rows_rejected == 0
+    solar = store.read(channels=["solar"])
+    assert solar["voltage_V"].iloc[0] == pytest.approx(36.5, abs=1e-4)
+
+
+def test_solar_power_becomes_bank_current_at_the_bank_voltage(store, tmp_path):
+    # I = P / V at the bank: 134 W into a 13.4 V bank is 10.0 A, whatever the array voltage.
+    p = tmp_path / "mppt_power.csv"
+    p.write_text("time,battery_voltage_V,solar_voltage_V,solar_power_W\n"
+                 "2024-06-01T10:00:00Z,13.4,36.0,134.0\n")
+    import_file(p, store, nominal_voltage_V=12.8)
+    assert store.read(channels=["solar"])["current_A"].iloc[0] == pytest.approx(10.0, rel=1e-5)
+
+
 def test_line_numbers_stay_right_across_blocks(store, tmp_path):
     lines = ["time,voltage_V,current_A"]
     bad = {57: "oops", 400: "", 733: "2024-06-01T10:00:00Z,12.0,-1.0,extra"}

@@ -123,11 +123,8 @@ def run(args: Any, ctx: Context) -> int:
         print("the CSV importer (collector.csv_file.import_file) is not installed: nothing imported", file=sys.stderr)
     else:
         with ctx.open_store() as store:
-            # No nominal voltage: the importer's plausibility bound scaled by it
-            # (1.6 x nominal) is applied to every channel's voltage, so it would
-            # reject the MPPT array voltage (36 V on a 12 V bank) of our own clean
-            # simulated log. The generic bound (70 V) is used instead.
-            result = import_file(out, store, tz=system.site.timezone, nominal_voltage_V=None)
+            result = import_file(out, store, tz=system.site.timezone,
+                                 nominal_voltage_V=system.battery.nominal_voltage_V)
         imported = True
         if getattr(result, "already_imported", False):
             print("import: already in the store (same content), nothing added", file=sys.stderr)
