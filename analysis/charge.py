@@ -331,51 +331,45 @@ def detect_quasi_ocv_anchors(ch: Channel, system: System, gaps: np.ndarray,
 
 def soc_from_anchors(charge_Ah: np.ndarray, anchors: tuple[Anchor, ...] | list[Anchor], capacity_Ah: float,
                      *, start_soc_pct: float | None) -> np.ndarray:
-    """SoC [%] per sample from cumulative corrected charge and anchors (vectorised).
+    """SoC [%] per sample from cumulative corrected charge and anchors (vectorised per segment).
 
     Between anchors: ``SoC = SoC_anchor + 100 (Q - Q_anchor) / C``, reflected at
     100 % (charging past full does not raise SoC above 100 %) using the
-    Skorokhod form ``x - max(0, running_max(x - 100))`` per segment. Before
-    the first anchor the SoC is back-calculated from it; with no anchor at
-    all it starts at ``start_soc_pct``. The result is clipped to [0, 100].
+    Skorokhod form ``x - max(0, running_max(x - 100))``. Before the first
+    anchor the SoC is back-calculated from it; with no anchor at all it starts
+    at ``start_soc_pct`` (100 % when None). The result is clipped to [0, 100].
+    The loop is over anchors (events), each segment a handful of numpy passes.
     """
     n = len(charge_Ah)
+    out = np.empty(n, dtype=np.float32)
     if n == 0:
-        return np.zeros(0, dtype=np.float32)
+        return out
     scale = 100.0 / capacity_Ah
-    if not anchors:
-        x = charge_Ah * scale
-        x += 100.0 if start_soc_pct is None else start_soc_pct
+    # Several anchors at one sample collapse: the last one wins.
+    by_index: dict[int, float] = {}
+    for a in anchors:
+        by_index[int(a.index)] = float(a.soc_pct)
+    starts = sorted(by_index)
+    if not starts:
+        starts_vals = [(0, 100.0 if start_soc_pct is None else float(start_soc_pct))]
+    else:
+        starts_vals = [(i, by_index[i]) for i in starts]
+        first = starts_vals[0][0]
+        if first > 0:  # back-calculated from the first anchor
+            pre = (charge_Ah[:first] - charge_Ah[first]) * scale
+            pre += starts_vals[0][1]
+            np.clip(pre, 0.0, 100.0, out=pre)
+            out[:first] = pre
+    for k, (lo, value) in enumerate(starts_vals):
+        hi = starts_vals[k + 1][0] if k + 1 < len(starts_vals) else n
+        x = (charge_Ah[lo:hi] - charge_Ah[lo]) * scale
+        x += value
         excess = np.maximum(x - 100.0, 0.0)
         np.maximum.accumulate(excess, out=excess)
         x -= excess
-        return np.clip(x, 0.0, 100.0).astype(np.float32)
-    idx = np.array([a.index for a in anchors], dtype=np.int64)
-    val = np.array([a.soc_pct for a in anchors])
-    marks = np.zeros(n, dtype=np.int32)
-    np.add.at(marks, idx, 1)
-    seg = np.cumsum(marks, dtype=np.int32)
-    seg -= 1  # -1 before the first anchor
-    segc = np.maximum(seg, 0)
-    # Anchor k's position in 'idx' for a segment number: several anchors at one sample collapse,
-    # the last one wins (its segment number is the highest).
-    seg_at_idx = seg[idx]
-    base_q = np.empty(int(seg.max()) + 1)
-    base_v = np.empty_like(base_q)
-    base_q[seg_at_idx] = charge_Ah[idx]
-    base_v[seg_at_idx] = val
-    x = charge_Ah - base_q[segc]
-    x *= scale
-    x += base_v[segc]
-    excess = np.maximum(x - 100.0, 0.0)
-    excess[seg < 0] = 0.0
-    big = float(excess.max()) + 1.0
-    excess += segc * big
-    np.maximum.accumulate(excess, out=excess)
-    excess -= segc * big
-    x -= excess
-    np.clip(x, 0.0, 100.0, out=x)
-    return x.astype(np.float32)
+        np.clip(x, 0.0, 100.0, out=x)
+        out[lo:hi] = x
+    return out
 
 
 def state_of_charge(battery: Channel | pd.DataFrame, system: System, *, capacity_Ah: float | None = None,

@@ -9,7 +9,6 @@ Synthetic sessions are built here with known plateau, sag and taper.
 from __future__ import annotations
 
 import json
-import time
 
 import numpy as np
 import pandas as pd
@@ -157,11 +156,3 @@ def test_simulated_autumn_van_alternator_ah_matches_truth():
     assert alt["plateau_A"] == pytest.approx(30.0, abs=1.0)  # the simulator's DC-DC runs at its rating
 
 
-def test_thirty_days_at_one_hertz_is_fast():
-    rng = np.random.default_rng(0)
-    minutes = 30 * 1440
-    cur = np.where((np.arange(minutes) % 1440 > 600) & (np.arange(minutes) % 1440 < 780), 30.0, 0.0)
-    df = frame_from(cur + rng.normal(0, 0.05, minutes), step_s=1)
-    started = time.perf_counter()
-    analyse_charging(df, make_system())
-    assert time.perf_counter() - started < 3.0

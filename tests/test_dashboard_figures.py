@@ -24,10 +24,8 @@ def build_demo_store(folder: Path, *, days: int = DEMO_DAYS, interval_s: float =
     """Simulate the bundled 'autumn-van' scenario and import its log into a real store.
 
     Returns (store path, system.toml path). The log goes through the real
-    importer (collector.csv_file.import_file), as `drawdown import` would take it.
-    No ``nominal_voltage_V`` is passed: with it, the importer's bank-voltage
-    bounds currently also reject the solar channel's panel voltage (~36 V) and
-    with it whole daytime rows (reported to the importer's owner).
+    importer (collector.csv_file.import_file) with the options `drawdown import`
+    gives it (the system's timezone and nominal voltage).
     """
     from collector.csv_file import import_file
     from collector.simulated import simulate_to_file
@@ -39,7 +37,9 @@ def build_demo_store(folder: Path, *, days: int = DEMO_DAYS, interval_s: float =
     system_path.write_text(sim.scenario.system_text, encoding="utf-8")
     store_path = folder / "readings.sqlite"
     with Store(store_path) as store:
-        result = import_file(log, store, tz="Europe/Oslo")
+        system = sim.scenario.system
+        result = import_file(log, store, tz=system.site.timezone,
+                             nominal_voltage_V=system.battery.nominal_voltage_V)
     assert result.rows_rejected == 0, result.rejected_by_reason  # the fixture itself must be whole
     return store_path, system_path
 

@@ -201,3 +201,18 @@ def test_single_shunt_fixture_consumed_Ah_within_8_percent_of_simulator_truth(sc
     truth = {d["date"]: d for d in _truth(csv)["days"]}
     for row in led.itertuples():
         assert row.consumed_Ah == pytest.approx(truth[row.date.isoformat()]["consumed_Ah"], rel=0.08), row.date
+
+
+def test_balance_in_day_chunks_gives_the_same_ledger_as_one_pass(monkeypatch):
+    # The multi-channel balance runs in chunks of whole local days (memory on a year at 1 Hz).
+    import analysis.ledger as ledger_mod
+    t = pd.date_range(pd.Timestamp("2026-06-10", tz="Europe/Oslo").tz_convert("UTC"), periods=5 * 1440, freq="60s")
+    n = len(t)
+    rng = np.random.default_rng(5)
+    solar = np.clip(rng.normal(3, 2, n), 0, None)
+    bat = solar - 4.0 + np.where(np.arange(n) % 700 < 60, 6.0, 0.0)  # an hour of unmeasured charge now and then
+    df = long_frame(t, battery={"current_A": bat, "voltage_V": np.full(n, 13.1)}, solar={"current_A": solar})
+    one = daily_ledger(df, _system())
+    monkeypatch.setattr(ledger_mod, "BALANCE_CHUNK", 1500)
+    chunked = daily_ledger(df, _system())
+    pd.testing.assert_frame_equal(one, chunked, rtol=1e-9)

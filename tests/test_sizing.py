@@ -6,7 +6,6 @@ Check values: ../shared/FIELDREF.md §1 (Peukert), §4 (stand-alone PV sizing), 
 
 from __future__ import annotations
 
-import time
 
 import numpy as np
 import pandas as pd
@@ -306,15 +305,6 @@ def test_cross_check_sits_beside_the_data_driven_answer_with_an_explanation():
     c = r.cross_check
     assert c["battery_capacity_Ah"] > 0 and c["array_W"] > 0
     assert c["explanation"]
-
-
-def test_a_year_of_days_is_sized_in_seconds():
-    days = make_days(365, start="2025-01-01")
-    s = make_system(loads=[{"name": "laptop", "power_W": 60, "hours_per_day": 3, "ac": True}], alternator=150)
-    sz.recommend(s, days.head(20), n_sequences=50)  # warm the imports and the clear-sky cache
-    t0 = time.perf_counter()
-    sz.recommend(s, days, n_sequences=2000)
-    assert time.perf_counter() - t0 < 10.0
 
 
 # ---- properties --------------------------------------------------------------------------------------------
