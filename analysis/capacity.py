@@ -144,7 +144,9 @@ def anchor_pairs(ch: Channel, soc: SocResult, system: System, *, peukert_k: floa
             continue
         if ai.index in used_starts and ai.kind != "full":
             continue
-        lo, hi = ai.last_index, aj.index
+        # A full anchor counts from the last moment the bank still met the full-charge conditions:
+        # a tail-current criterion fires a little before the bank is truly full.
+        lo, hi = ai.last_index, aj.last_index
         if hi <= lo or gap_cum[hi] - gap_cum[lo] > 0:
             continue
         seg = slice(lo, hi + 1)
@@ -286,4 +288,4 @@ def internal_resistance(ch: Channel, bounds_us: np.ndarray, dates: list, *, min_
         if np.ptp(days_f) > 0:
             fit = sm.WLS(per_day["ohm"].to_numpy(), sm.add_constant(days_f), weights=per_day["steps"]).fit()
             trend = float(fit.params[1] * 30.0)
-    return ResistanceEstimate(float(np.median(r)), None, per_day, trend, int(len(r)))
+    return ResistanceEstimate(float(np.median(r)), None, per_day, trend, len(r))

@@ -33,7 +33,15 @@ import pandas as pd
 
 from analysis import ocv as ocv_mod
 from analysis.peukert import effective_current
-from analysis.readings import US_PER_S, Channel, fill0, gap_mask, gap_threshold_s, median_interval_s
+from analysis.readings import (
+    BLOCK,
+    US_PER_S,
+    Channel,
+    fill0,
+    gap_mask,
+    gap_threshold_s,
+    median_interval_s,
+)
 from analysis.system import System
 
 #: One-sigma uncertainty of a full-charge resync [fraction of capacity] (common practice: ~ 2-3 %;
@@ -41,6 +49,9 @@ from analysis.system import System
 FULL_SIGMA: float = 0.03
 #: Discharge (fraction of rated capacity) that re-arms the full-charge detector.
 REARM_FRACTION: float = 0.02
+#: LiFePO4 quasi-OCV anchors only below this SoC [%]: the lower knee, where the OCV
+#: slope is steep enough (FIELDREF §2: 20 % = 13.0 V, 10 % = 12.8 V per 4S, common practice).
+LFP_QUASI_MAX_SOC_PCT: float = 20.0
 #: One-sigma uncertainty of a quasi-OCV (low-current night) anchor [fraction].
 QUASI_SIGMA: float = 0.06
 
@@ -273,10 +284,11 @@ def detect_quasi_ocv_anchors(ch: Channel, system: System, gaps: np.ndarray,
     """Low-current voltage anchors for capacity (lead-acid anywhere, LiFePO4 at its low knee).
 
     A van or truck is rarely at true rest (a fridge cycles all night), but
-    after three hours without charging (nor in the next half hour) and with a small mean draw (<= 2 % C per
-    hour) the bank is close to relaxed; at a sample drawing <= 0.2 % C the
-    terminal voltage plus the ohmic drop ``|I| R`` approximates the OCV. The
-    SoC from it is noisier than a true rest (sigma ~ 6 %), so these anchors
+    after a spell without charging (3 h for lead-acid, 1.5 h for LiFePO4; none
+    in the next half hour either) with a small mean draw (<= 2 % C), at a
+    sample drawing <= 1 % C the terminal voltage plus the ohmic drop ``|I| R``
+    approximates the OCV. The SoC from it is noisier than a true rest
+    (sigma ~ 6 %), so these anchors
     only enter the capacity fit, never reset the SoC. One per 6 h at most.
     """
     b = system.battery
@@ -313,7 +325,7 @@ def detect_quasi_ocv_anchors(ch: Channel, system: System, gaps: np.ndarray,
     hours = np.maximum((ch.t_us - ch.t_us[lo]) / (US_PER_S * 3600.0), 1e-9)
     mean_abs = (absq - absq[lo]) / hours
     cand = (full_window & (mean_abs <= 0.02 * cap) & ((chg[hi] - chg[lo]) == 0) & ((gapc - gapc[lo]) == 0)
-            & (cur <= 0.0) & (cur >= -max(0.1, 0.002 * cap)) & np.isfinite(v))
+            & (cur <= 0.0) & (cur >= -max(0.1, 0.01 * cap)) & np.isfinite(v))
     idx = np.flatnonzero(cand)
     if len(idx) == 0:
         return []
@@ -323,7 +335,7 @@ def detect_quasi_ocv_anchors(ch: Channel, system: System, gaps: np.ndarray,
     idx = idx[last]
     ocv_v = v[idx] + np.abs(cur[idx]) * r_ohm
     soc = ocv_mod.soc_from_ocv(ocv_v, b.chemistry, b.nominal_voltage_V)
-    trusted_ = ocv_mod.trusted(soc, b.chemistry) if b.chemistry != "lifepo4" else soc <= 15.0
+    trusted_ = ocv_mod.trusted(soc, b.chemistry) if b.chemistry != "lifepo4" else soc <= LFP_QUASI_MAX_SOC_PCT
     keep_idx = keep
     return [Anchor(int(keep_idx[k]), int(ch.t_us[k]), float(sv), "quasi-ocv", QUASI_SIGMA)
             for k, sv, ok in zip(idx, soc, trusted_) if ok]
@@ -362,13 +374,18 @@ def soc_from_anchors(charge_Ah: np.ndarray, anchors: tuple[Anchor, ...] | list[A
             out[:first] = pre
     for k, (lo, value) in enumerate(starts_vals):
         hi = starts_vals[k + 1][0] if k + 1 < len(starts_vals) else n
-        x = (charge_Ah[lo:hi] - charge_Ah[lo]) * scale
-        x += value
-        excess = np.maximum(x - 100.0, 0.0)
-        np.maximum.accumulate(excess, out=excess)
-        x -= excess
-        np.clip(x, 0.0, 100.0, out=x)
-        out[lo:hi] = x
+        q0 = charge_Ah[lo]
+        carry = 0.0  # running max of the excess over 100 %, carried across blocks
+        for b0 in range(lo, hi, BLOCK):  # blocks bound the float64 temporaries
+            b1 = min(b0 + BLOCK, hi)
+            x = (charge_Ah[b0:b1] - q0) * scale
+            x += value
+            excess = np.maximum(x - 100.0, carry)
+            np.maximum.accumulate(excess, out=excess)
+            carry = float(excess[-1])
+            x -= excess
+            np.clip(x, 0.0, 100.0, out=x)
+            out[b0:b1] = x
     return out
 
 
@@ -405,7 +422,11 @@ def state_of_charge(battery: Channel | pd.DataFrame, system: System, *, capacity
     q = np.empty(len(ch))
     if len(ch):
         q[0] = 0.0
-        np.cumsum(inc, out=q[1:], dtype=np.float64)
+        for lo in range(0, len(inc), BLOCK):  # float64 running sum in blocks: no full-length temporary
+            hi = min(lo + BLOCK, len(inc))
+            seg = np.cumsum(inc[lo:hi], dtype=np.float64)
+            seg += q[lo]
+            q[lo + 1:hi + 1] = seg
     del inc
     anchors = detect_full_charges(ch, system, gaps, q)
     if use_ocv:

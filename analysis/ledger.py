@@ -31,9 +31,25 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from analysis.charge import SocResult, device_disagreement_pct, state_of_charge, trapezoid_increments
-from analysis.readings import (US_PER_S, Channel, Gap, day_index, fill0, find_gaps, gap_mask, gap_threshold_s,
-                               local_day_bounds, median_interval_s, split_channels)
+from analysis.charge import (
+    SocResult,
+    device_disagreement_pct,
+    state_of_charge,
+    trapezoid_increments,
+)
+from analysis.readings import (
+    US_PER_S,
+    Channel,
+    Gap,
+    day_index,
+    fill0,
+    find_gaps,
+    gap_mask,
+    gap_threshold_s,
+    local_day_bounds,
+    median_interval_s,
+    split_channels,
+)
 from analysis.system import System
 
 SOURCES: tuple[str, ...] = ("solar", "alternator", "shore", "other")
@@ -479,7 +495,9 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
         pred = np.clip(pred_frame["mean"].to_numpy(), 0.0, None)
         se_mean = pred_frame["mean_se"].to_numpy()
         resid_sd = float(np.sqrt(fit.scale))
-        model = LoadModel(tuple(terms), tuple(float(p) for p in fit.params), float(fit.rsquared),
+        with np.errstate(divide="ignore", invalid="ignore"):  # a constant load has no variance to explain
+            r2 = float(fit.rsquared)
+        model = LoadModel(tuple(terms), tuple(float(p) for p in fit.params), r2 if np.isfinite(r2) else 0.0,
                           int(train.sum()), resid_sd, bin_s)
         # Keep predictions within what was seen: extrapolated harmonics must not run away.
         hi = float(np.quantile(load_obs[train], 0.99))
@@ -490,7 +508,12 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
         resid_sd = float(np.std(load_obs[train])) if train.any() else 0.0
         notes.append("too few non-charging periods to fit the single-shunt load model; a constant was used")
     observed = train | (~widen & ~(solar_possible & (elev >= -3.0)))
-    load_a = np.where(observed, load_obs, np.maximum(pred, load_obs))
+    # Daytime floor: the load is at least what the bank gives up, -net. Across days the
+    # same hour recurs; on the dullest day at that hour -net is close to the load itself.
+    # The hourly 75th percentile of -net over days floors the prediction where the
+    # night-fitted harmonics cannot see daytime-only loads.
+    floor = _hourly_floor(load_obs, hrs, hour, t_mid, bin_us, observed)
+    load_a = np.where(observed, load_obs, np.maximum(np.maximum(pred, floor), load_obs))
     load_a = np.where(np.isfinite(net), load_a, 0.0)
     gross = np.clip(np.nan_to_num(net, nan=0.0) + load_a, 0.0, None)
     d_bin = np.clip(day_index(t_mid - bin_us // 2, bounds), 0, n_days - 1)
@@ -519,6 +542,23 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
         extras["attribution_confidence"] = np.where(w > 0, cw / np.maximum(w, 1e-12), np.nan)
     idx = pd.DatetimeIndex(t_mid.view("M8[us]")).tz_localize("UTC")
     return pd.Series(parts["solar"], index=idx, name="solar_current_A"), model
+
+
+def _hourly_floor(load_obs: np.ndarray, hrs: np.ndarray, hour: np.ndarray, t_mid: np.ndarray, bin_us: int,
+                  observed: np.ndarray, *, q: float = 0.75) -> np.ndarray:
+    """Per bin, the q-quantile over days of that local hour's mean ``-net`` (0 with < 3 days)."""
+    day = (t_mid // int(86400 * US_PER_S)).astype(np.int64)
+    hr = np.floor(hour).astype(np.int64)
+    frame = pd.DataFrame({"day": day, "hr": hr, "ah": load_obs * hrs, "h": hrs})
+    per = frame.groupby(["day", "hr"]).sum()
+    per = per[per["h"] > 0.5 * per["h"].max()]
+    mean = (per["ah"] / per["h"]).rename("a").reset_index()
+    counts = mean.groupby("hr")["a"].size()
+    quant = mean.groupby("hr")["a"].quantile(q)
+    quant[counts < 3] = 0.0
+    table = np.zeros(24)
+    table[quant.index.to_numpy()] = quant.to_numpy()
+    return table[np.clip(hr, 0, 23)]
 
 
 def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.ndarray, system: System,

@@ -54,7 +54,7 @@ OCV_SIGMA: dict[str, float] = {"flooded": 0.05, "agm": 0.05, "gel": 0.05, "lifep
 def blocks(chemistry: str, nominal_voltage_V: float) -> int:
     """Number of 12 V blocks (12 V lead-acid or 12.8 V 4S LiFePO4) in the bank."""
     per = 12.8 if chemistry == "lifepo4" else 12.0
-    return max(1, int(round(nominal_voltage_V / per)))
+    return max(1, round(nominal_voltage_V / per))
 
 
 def soc_from_ocv(ocv_V: ArrayLike, chemistry: str, nominal_voltage_V: float) -> np.ndarray:

@@ -23,6 +23,8 @@ import pandas as pd
 
 GAP_FACTOR: float = 5.0
 MIN_GAP_S: float = 5.0
+#: Samples per block for long running passes (bounded temporaries on a year at 1 Hz).
+BLOCK: int = 1_000_000
 US_PER_S: float = 1e6
 
 
@@ -51,8 +53,8 @@ class Channel:
     def dt_h(self) -> np.ndarray:
         """Sampling intervals [h] (float32, length n-1), computed once per channel."""
         out = np.empty(max(len(self.t_us) - 1, 0), dtype=np.float32)
-        for lo in range(0, len(out), 4_000_000):  # blocks: no full-length int64 temporary
-            hi = min(lo + 4_000_000, len(out))
+        for lo in range(0, len(out), BLOCK):  # blocks: no full-length int64 temporary
+            hi = min(lo + BLOCK, len(out))
             out[lo:hi] = (self.t_us[lo + 1:hi + 1] - self.t_us[lo:hi]) * (1.0 / (US_PER_S * 3600.0))
         return out
 
@@ -200,7 +202,7 @@ def gap_mask(t_us: np.ndarray, *, threshold_s: float | None = None) -> np.ndarra
     n = len(t_us)
     out = np.zeros(max(n - 1, 0), dtype=bool)
     lim = threshold_s * US_PER_S
-    block = 4_000_000
+    block = BLOCK
     for lo in range(0, n - 1, block):  # a loop over blocks, not rows
         hi = min(lo + block, n - 1)
         np.greater(t_us[lo + 1:hi + 1] - t_us[lo:hi], lim, out=out[lo:hi])

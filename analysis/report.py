@@ -22,8 +22,16 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from analysis.capacity import (MIN_DELTA_SOC, CapacityEstimate, PeukertEstimate, ResistanceEstimate,
-                               anchor_pairs, estimate_capacity, fit_peukert, internal_resistance)
+from analysis.capacity import (
+    MIN_DELTA_SOC,
+    CapacityEstimate,
+    PeukertEstimate,
+    ResistanceEstimate,
+    anchor_pairs,
+    estimate_capacity,
+    fit_peukert,
+    internal_resistance,
+)
 from analysis.charge import SocResult, state_of_charge
 from analysis.ledger import SOURCES, LedgerResult, compute_ledger
 from analysis.readings import US_PER_S, split_channels
@@ -203,7 +211,7 @@ def _assemble(channels, system: System, rows_rejected: int, soc: SocResult | Non
     t0 = min(int(c.t_us[0]) for c in channels.values())
     t1 = max(int(c.t_us[-1]) for c in channels.values())
     d = led.days
-    period = {"start": _iso_us(t0), "end": _iso_us(t1), "days": int(len(d)),
+    period = {"start": _iso_us(t0), "end": _iso_us(t1), "days": len(d),
               "timezone": system.site.timezone}
     gaps = sorted(led.gaps, key=lambda g: g.start_us)
     data_quality = {"rows_stored": _rows_stored(channels), "rows_rejected": int(rows_rejected),

@@ -5,9 +5,15 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from analysis.capacity import estimate_capacity, fit_peukert, internal_resistance, plett_tls, plett_wls
+from analysis.capacity import (
+    anchor_pairs,
+    estimate_capacity,
+    fit_peukert,
+    internal_resistance,
+    plett_tls,
+    plett_wls,
+)
 from analysis.charge import state_of_charge
-from analysis.capacity import anchor_pairs
 from analysis.readings import Channel, local_day_bounds
 from analysis.system import system_from_mapping
 

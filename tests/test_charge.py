@@ -126,3 +126,26 @@ def test_state_of_charge_accepts_a_frame():
                           _system(peukert_k=1.0), use_ocv=False)
     assert isinstance(res.soc_pct, pd.Series) and res.soc_pct.index.tz is not None
     assert res.soc[0] - res.soc[-1] == pytest.approx(20.0, abs=0.01)  # 2 h at 10 A on 100 Ah
+
+
+def test_soc_over_a_record_longer_than_one_block_matches_the_closed_form():
+    # 5 M samples at 1 Hz cross the 1 M-sample blocks of the running sum: -1 mA for 5e6 s
+    # removes 1.389 Ah of 100 Ah (k = 1) - the same as one exact sum.
+    n = 5_000_000
+    t = np.arange(n, dtype=float)
+    res = state_of_charge(_channel(t, np.full(n, -0.001)), _system(peukert_k=1.0), use_ocv=False)
+    assert res.soc[0] - res.soc[-1] == pytest.approx(0.001 * (n - 1) / 3600, rel=1e-5)
+    assert res.charge_Ah[4_000_001] == pytest.approx(-0.001 * 4_000_000 / 3600, rel=1e-6)
+
+
+def test_reflection_at_full_carries_across_blocks():
+    # Charging past full for longer than one 1 M-sample block, then discharging: the SoC
+    # must drop from 100 % at once (the excess over full is not remembered across blocks).
+    n = 2_500_000
+    t = np.arange(n, dtype=float)
+    cur = np.where(t < 1_500_000, 1.0, -1.0)
+    res = state_of_charge(_channel(t, cur), _system(cap=1000.0, peukert_k=1.0, charge_efficiency=1.0),
+                          use_ocv=False)
+    assert res.soc[1_499_999] == pytest.approx(100.0)
+    # 1e6 s at 1 A = 277.8 Ah out of 1000 Ah, counted from full.
+    assert res.soc[-1] == pytest.approx(100.0 - 100.0 * 1_000_000 / 3600 / 1000.0, abs=0.01)

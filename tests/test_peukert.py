@@ -5,7 +5,13 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from analysis.peukert import capacity_at_current, effective_current, fit_exponent, peukert_capacity, runtime_h
+from analysis.peukert import (
+    capacity_at_current,
+    effective_current,
+    fit_exponent,
+    peukert_capacity,
+    runtime_h,
+)
 
 # FIELDREF §1 checks [C]: C20 = 100 Ah, H = 20 h, I_H = 5 A, k = 1.25; tolerance +-0.01.
 C, H, K = 100.0, 20.0, 1.25

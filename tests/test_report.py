@@ -11,12 +11,12 @@ import pandas as pd
 import pytest
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from test_ledger import long_frame  # noqa: E402
+from test_ledger import long_frame
 
-from analysis.report import build_report  # noqa: E402
-from analysis.system import system_from_mapping  # noqa: E402
-from collector.store import Store  # noqa: E402
-from dashboard.cli import main  # noqa: E402
+from analysis.report import build_report
+from analysis.system import system_from_mapping
+from collector.store import Store
+from dashboard.cli import main
 
 SYSTEM_TOML = """
 [site]
@@ -159,11 +159,14 @@ def test_shallow_days_leave_capacity_null_with_a_reason():
     assert "40 %" in j["battery"]["usable_Ah_why"]
 
 
-@pytest.mark.xfail(strict=True, reason="known gap: the LiFePO4 van never rests near its low knee, so no "
-                   "anchor below the plateau exists; capacity stays null")
-def test_autumn_van_deep_cycle_gives_usable_capacity_within_5_percent():
+def test_autumn_van_deep_cycle_gives_usable_capacity_within_5_percent_with_interval_containing_truth():
+    # autumn-van days 8-10 take the LiFePO4 bank from full to about a third and below (scenario notes);
+    # the low-knee voltage anchor (FIELDREF §2: LFP only near its knees) pairs with the full charges.
     j, truth = _sim_report("autumn-van", 14)
-    assert j["battery"]["usable_Ah"] == pytest.approx(truth["battery"]["usable_Ah"], rel=0.05)
+    b, true_ah = j["battery"], truth["battery"]["usable_Ah"]
+    assert b["usable_Ah"] == pytest.approx(true_ah, rel=0.05)
+    lo, hi = b["usable_Ah_ci95"]
+    assert lo <= true_ah <= hi
 
 
 def test_multichannel_simulation_consumed_Ah_within_2_percent_every_day():

@@ -73,8 +73,8 @@ def describe(j: dict) -> list[str]:
     """The human summary of a report object (plain text, one line per day)."""
     p, dq, b, rt = j["period"], j["data_quality"], j["battery"], j.get("runtime", {})
     out = [f"period: {p['start']} to {p['end']} ({p['days']} local days, {p.get('timezone', '')})",
-           f"data quality: {dq['rows_stored']} rows stored, {dq['rows_rejected']} rejected, "
-           f"{len(dq['gaps'])} gap(s); {dq.get('complete_days', 0)} complete day(s); mode: {dq.get('mode', '')}"]
+           (f"data quality: {dq['rows_stored']} rows stored, {dq['rows_rejected']} rejected, "
+            f"{len(dq['gaps'])} gap(s); {dq.get('complete_days', 0)} complete day(s); mode: {dq.get('mode', '')}")]
     for g in dq["gaps"][:10]:
         out.append(f"  gap on {g.get('channel', '?')}: {g['start']} to {g['end']} ({g['seconds']:.0f} s) - energy unknown")
     if len(dq["gaps"]) > 10:
