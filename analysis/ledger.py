@@ -323,10 +323,13 @@ def _multi_channel(bat: Channel | None, v_b: np.ndarray | None, sources: dict[st
         cur = np.clip(fill0(ch.current_A), 0.0, None)
         g = gmask[name]
         cols[f"charged_Ah_{name}"] += _day_sum(ch.t_us, trapezoid_increments(ch.t_us, cur, gaps=g), bounds)
-        if np.isfinite(ch.voltage_V).any():
-            v = pd.Series(ch.voltage_V).ffill().bfill().to_numpy()
-        elif bat is not None and v_b is not None:
+        # Energy INTO THE BANK is the source's current times the bank voltage. A source
+        # channel's own voltage may be the far side of its converter (an MPPT array at
+        # 36 V on a 12 V bank), so it is used only when no bank voltage is logged.
+        if bat is not None and v_b is not None:
             v = np.interp(ch.t_us, bat.t_us, v_b)
+        elif np.isfinite(ch.voltage_V).any():
+            v = pd.Series(ch.voltage_V).ffill().bfill().to_numpy()
         else:
             v = np.full(len(ch), nominal)
         cols[f"charged_Wh_{name}"] += _day_sum(ch.t_us, trapezoid_increments(ch.t_us, cur * v, gaps=g), bounds)
