@@ -36,6 +36,9 @@ test-fast: $(VENV)/.installed-test   ## skip the slow, browser and broker tests
 bench: $(VENV)/.installed-test       ## benchmark scripts; see DEVELOPERS.md
 	$(PY) benchmarks/import_bench.py --scale 0.1
 	$(PY) benchmarks/report_bench.py --scale 0.1
+	$(PY) benchmarks/solar_bench.py --scale 0.1
+	$(PY) benchmarks/collect_bench.py --scale 0.5
+	$(PY) benchmarks/dashboard_bench.py --scale 0.1
 
 clean:
 	rm -rf $(VENV) build *.egg-info demo-data artifacts

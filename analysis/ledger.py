@@ -59,6 +59,13 @@ LEDGER_COLUMNS: tuple[str, ...] = (
     "soc_min_pct", "soc_end_pct", "mean_temperature_C", "driving_h",
 )
 _H_PER_US = 1.0 / (US_PER_S * 3600.0)
+#: Smallest net-current step taken as a load switching [A].
+STEP_MIN_A = 0.6
+#: Net-current rolling SD below which a charging bank is taken as held (no step visible) [A].
+BLIND_SD_A = 0.15
+#: Daytime steps larger than any night load, per day, above which the steps are clouds.
+CLOUD_STEPS_PER_DAY = 6
+_DEBUG: dict = {}
 
 
 @dataclass(frozen=True)
@@ -492,7 +499,28 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
         feats.append(tc)
     X = np.column_stack(feats)
     model = None
+    # Step loads (fridge cycles, pumps, lights, inverter loads) seen as paired falls and
+    # rises of the net current; under charging they reveal the hidden load.
+    amp_max = 1.2 * float(load_obs[train].max()) if train.any() else 0.5 * cap
+    amp_max = max(amp_max, 2 * STEP_MIN_A)
+    events, step_bin, step_a = _load_step_events(net, step_min_A=STEP_MIN_A, amp_max_A=amp_max,
+                                                 max_bins=int(10 * 3600 / bin_s))
+    # Passing clouds switch solar in steps too. On a day with many daytime steps larger than
+    # any load seen at night the steps cannot be told from clouds: no events that day.
+    day_of_bin = np.clip(day_index(t_mid - bin_us // 2, bounds), 0, n_days - 1)
+    night_steps = np.abs(step_a[train[np.clip(step_bin - 1, 0, n_bins - 1)] & train[step_bin]])
+    big_load = 2.0 * float(np.quantile(night_steps, 0.9)) if len(night_steps) >= 10 else amp_max
+    sunny_step = (elev[step_bin] > 3.0) & (np.abs(step_a) > big_load)
+    _DEBUG.update(big_load=big_load, night_steps=night_steps)
+    cloud_steps = np.bincount(day_of_bin[step_bin[sunny_step]], minlength=n_days)[:n_days]
+    stepped_day = cloud_steps > CLOUD_STEPS_PER_DAY
+    _DEBUG.update(cloud_steps=cloud_steps, net=net, load_a_events=events, elev=elev, t_mid=t_mid)
+    events = np.where(stepped_day[day_of_bin], 0.0, events)
+    base_obs = np.clip(load_obs - events, 0.0, None)
+    base_pred = None
     if train.sum() >= max(30, 3 * X.shape[1]):
+        base_fit = sm.WLS(base_obs[train], X[train], weights=covered[train]).fit()
+        base_pred = np.clip(base_fit.predict(X), 0.0, float(np.quantile(base_obs[train], 0.99)))
         fit = sm.WLS(load_obs[train], X[train], weights=covered[train]).fit()
         pred_frame = fit.get_prediction(X).summary_frame(alpha=0.05)
         pred = np.clip(pred_frame["mean"].to_numpy(), 0.0, None)
@@ -516,7 +544,17 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     # The hourly 75th percentile of -net over days floors the prediction where the
     # night-fitted harmonics cannot see daytime-only loads.
     floor = _hourly_floor(load_obs, hrs, hour, t_mid, bin_us, observed)
-    load_a = np.where(observed, load_obs, np.maximum(np.maximum(pred, floor), load_obs))
+    hidden_load = np.maximum(np.maximum(pred, floor), load_obs)
+    if base_pred is not None:
+        # Where the net current moves, the hidden load is the base plus the step events seen;
+        # where the bank is held at absorption/float (net flat and small) no step is visible
+        # and the full model (which averages the events) stands.
+        net0 = np.nan_to_num(net, nan=0.0)
+        sd = pd.Series(net0).rolling(5, center=True, min_periods=1).std().fillna(0.0).to_numpy()
+        blind = (sd < BLIND_SD_A) & (np.abs(net0) < max(1.0, 0.02 * cap))
+        seen = np.maximum(base_pred + events, load_obs)
+        hidden_load = np.where(blind | stepped_day[day_of_bin], hidden_load, seen)
+    load_a = np.where(observed, load_obs, hidden_load)
     load_a = np.where(np.isfinite(net), load_a, 0.0)
     gross = np.clip(np.nan_to_num(net, nan=0.0) + load_a, 0.0, None)
     d_bin = np.clip(day_index(t_mid - bin_us // 2, bounds), 0, n_days - 1)
@@ -649,3 +687,62 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
         conf = np.where(parts["solar"] > 0, np.maximum(conf, c[dayno]), conf)
     conf = np.where(parts["other"] > 0, np.maximum(conf, 0.3), conf)
     return parts, conf
+
+
+def _load_step_events(net_A: np.ndarray, *, step_min_A: float, amp_max_A: float, max_bins: int,
+                      part_A: float = 0.25) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Load switched on and off in steps, reconstructed from the net current [A per bin].
+
+    A load switching on lowers the net current by its draw in one step (two bins
+    when it switches mid-bin); switching off raises it by the same amount. Solar
+    changes smoothly from bin to bin. Consecutive same-sign changes of at least
+    ``part_A`` are merged into one step; steps of at least ``step_min_A`` are
+    paired (a fall, then a rise within ``max_bins`` whose size agrees within
+    35 % or 0.4 A, innermost first, so a fridge cycle nests inside a long load).
+    Unpaired steps (a charger or alternator starting or stopping, the bank
+    reaching absorption) are not loads and are left out.
+
+    Returns
+    -------
+    events_A : numpy.ndarray
+        The summed draw of the paired step loads [A] per bin (0 outside events).
+    step_bin : numpy.ndarray
+        Every step of at least ``step_min_A`` (any size): the first bin after it.
+    step_A : numpy.ndarray
+        Its signed size [A] (negative: the net current fell).
+    """
+    n = len(net_A)
+    out = np.zeros(n)
+    if n < 3:
+        return out, np.zeros(0, dtype=np.int64), np.zeros(0)
+    d = np.diff(np.nan_to_num(net_A, nan=0.0))
+    s = np.where(np.abs(d) >= part_A, np.sign(d), 0.0)
+    brk = np.flatnonzero(np.diff(s) != 0) + 1
+    starts = np.concatenate(([0], brk))
+    sums = np.add.reduceat(d, starts)
+    sign = s[starts]
+    big = (sign != 0) & (np.abs(sums) >= step_min_A)
+    keep = big & (np.abs(sums) <= amp_max_A)
+    idx = starts[keep] + 1  # the first bin after the step starts
+    amp = sums[keep]
+    diff = np.zeros(n + 1)
+    stack: list[tuple[int, float]] = []
+    for i, a in zip(idx.tolist(), amp.tolist()):  # loop over detected steps, not over log rows
+        if a < 0:
+            stack.append((i, -a))
+            continue
+        for k in range(len(stack) - 1, -1, -1):
+            j, a_on = stack[k]
+            if i - j > max_bins:
+                continue
+            if abs(a_on - a) <= max(0.35 * a_on, 0.4):
+                level = 0.5 * (a_on + a)
+                diff[j] += level
+                diff[i] -= level
+                del stack[k]
+                break
+        # Steps too old to close are dropped.
+        if stack and i - stack[0][0] > max_bins:
+            stack = [(j, x) for j, x in stack if i - j <= max_bins]
+    out[:] = np.cumsum(diff[:n])
+    return out, starts[big] + 1, sums[big]
