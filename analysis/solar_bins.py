@@ -83,38 +83,50 @@ def channel_bin_mean(readings: pd.DataFrame, channel: str, column: str, grid: Gr
         return np.full(grid.n, np.nan), np.zeros(grid.n, dtype=np.int64)
     if t_us is None:
         t_us = epoch_us(readings["t"])
-    return bin_mean(t_us[mask], readings[column].to_numpy(dtype=float, na_value=np.nan)[mask], grid,
+    return bin_mean(t_us[mask], readings[column].to_numpy()[mask].astype(float), grid,
                     clip_min=clip_min)
 
 
+_BLOCK = 2_000_000  # samples per pass: bounds the float64 temporaries (~16 MB each)
+
+
+def _channel_rows(readings: pd.DataFrame, channel: str) -> slice | np.ndarray | None:
+    """The rows of one channel: a slice when they are contiguous (the store's order), else indices."""
+    col = readings["channel"]
+    if isinstance(col.dtype, pd.CategoricalDtype):
+        if channel not in col.cat.categories:
+            return None
+        codes = col.cat.codes.to_numpy()  # a view: int8/int16, no copy of the frame
+        mask = codes == col.cat.categories.get_loc(channel)
+    else:
+        mask = channel_mask(readings, channel)
+    count = int(np.count_nonzero(mask))
+    if count == 0:
+        return None
+    first = int(np.argmax(mask))
+    if mask[first:first + count].all():
+        return slice(first, first + count)
+    return np.flatnonzero(mask)
+
+
 class ChannelBinner:
-    """Interval means of several columns of a long frame, computing each channel's bins once.
+    """Interval means of several columns of a long frame, finding each channel's rows once.
 
     The store returns rows ordered by channel then time, so a channel is one
-    contiguous block: it is sliced (no copy) rather than masked when it is.
+    contiguous block: it is sliced (no copy) rather than masked when it is. Means
+    are accumulated in blocks of ``_BLOCK`` samples so that a year at 1 Hz never
+    needs a float64 copy of a whole column.
     """
 
     def __init__(self, readings: pd.DataFrame, grid: Grid, *, t_us: np.ndarray | None = None) -> None:
         self.readings = readings
         self.grid = grid
         self.t_us = epoch_us(readings["t"]) if t_us is None and not readings.empty else t_us
-        self._rows: dict[str, tuple[slice | np.ndarray, np.ndarray, np.ndarray] | None] = {}
+        self._rows: dict[str, slice | np.ndarray | None] = {}
 
-    def _channel(self, channel: str) -> tuple[slice | np.ndarray, np.ndarray, np.ndarray] | None:
+    def _channel(self, channel: str) -> slice | np.ndarray | None:
         if channel not in self._rows:
-            if self.readings.empty:
-                self._rows[channel] = None
-                return None
-            mask = channel_mask(self.readings, channel)
-            where = np.flatnonzero(mask)
-            if len(where) == 0:
-                self._rows[channel] = None
-                return None
-            rows: slice | np.ndarray = (slice(int(where[0]), int(where[-1]) + 1)
-                                        if where[-1] - where[0] + 1 == len(where) else where)
-            idx = self.grid.index_of(self.t_us[rows])
-            inside = (idx >= 0) & (idx < self.grid.n)
-            self._rows[channel] = (rows, idx, inside)
+            self._rows[channel] = None if self.readings.empty else _channel_rows(self.readings, channel)
         return self._rows[channel]
 
     def has(self, channel: str) -> bool:
@@ -123,16 +135,25 @@ class ChannelBinner:
     def mean(self, channel: str, column: str, *, clip_min: float | None = None) -> tuple[np.ndarray, np.ndarray]:
         """Mean of ``column`` of ``channel`` per interval, and the sample count."""
         n = self.grid.n
-        got = self._channel(channel)
-        if got is None or column not in self.readings:
+        rows = self._channel(channel)
+        if rows is None or column not in self.readings:
             return np.full(n, np.nan), np.zeros(n, dtype=np.int64)
-        rows, idx, inside = got
-        v = self.readings[column].to_numpy(dtype=float, na_value=np.nan)[rows]
-        if clip_min is not None:
-            v = np.maximum(v, clip_min)
-        ok = inside & np.isfinite(v)
-        counts = np.bincount(idx[ok], minlength=n)[:n]
-        sums = np.bincount(idx[ok], weights=v[ok], minlength=n)[:n]
+        values = self.readings[column].to_numpy()
+        if isinstance(rows, slice):
+            lo, hi = rows.start, rows.stop
+            pieces = ((slice(a, min(a + _BLOCK, hi))) for a in range(lo, hi, _BLOCK))
+        else:
+            pieces = (rows[a:a + _BLOCK] for a in range(0, len(rows), _BLOCK))
+        counts = np.zeros(n, dtype=np.int64)
+        sums = np.zeros(n, dtype=np.float64)
+        for piece in pieces:
+            v = values[piece].astype(np.float64)
+            if clip_min is not None:
+                v = np.maximum(v, clip_min)
+            idx = self.grid.index_of(self.t_us[piece])
+            ok = (idx >= 0) & (idx < n) & np.isfinite(v)
+            counts += np.bincount(idx[ok], minlength=n)[:n]
+            sums += np.bincount(idx[ok], weights=v[ok], minlength=n)[:n]
         with np.errstate(invalid="ignore", divide="ignore"):
             mean = np.where(counts > 0, sums / np.maximum(counts, 1), np.nan)
         return mean, counts

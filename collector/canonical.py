@@ -11,7 +11,7 @@ voltage_V   terminal voltage [V], NaN when not measured
 current_A   current [A]; **positive into the bank (charging)**, negative out.
             A charge-source channel (solar, alternator, shore) is positive
             when it delivers; a load channel is negative.
-temperature_C  [degC], NaN when not measured
+temperature_C  [degC], NaN when not measured (value columns are float32, as stored)
 soc_pct     the device's own state of charge [%], never trusted as truth
 ========== ================================================================
 """
@@ -33,7 +33,7 @@ def empty_frame() -> pd.DataFrame:
         {
             "t": pd.Series([], dtype="datetime64[us, UTC]"),
             "channel": pd.Series([], dtype="object"),
-            **{c: pd.Series([], dtype="float64") for c in VALUE_COLUMNS},
+            **{c: pd.Series([], dtype="float32") for c in VALUE_COLUMNS},
         }
     )
 
