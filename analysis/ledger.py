@@ -33,7 +33,7 @@ import pandas as pd
 
 from analysis.charge import (
     SocResult,
-    device_disagreement_pct,
+    device_disagreement_by_day,
     state_of_charge,
     trapezoid_increments,
 )
@@ -61,11 +61,20 @@ LEDGER_COLUMNS: tuple[str, ...] = (
 _H_PER_US = 1.0 / (US_PER_S * 3600.0)
 #: Smallest net-current step taken as a load switching [A].
 STEP_MIN_A = 0.6
-#: Net-current rolling SD below which a charging bank is taken as held (no step visible) [A].
-BLIND_SD_A = 0.15
-#: Daytime steps larger than any night load, per day, above which the steps are clouds.
-CLOUD_STEPS_PER_DAY = 6
-_DEBUG: dict = {}
+#: Net current [A] below which a bank at a charged voltage is held by a charger.
+HELD_A = 0.1
+#: Rolling SD of the net current [A] below which a small charge at a charged voltage is float.
+HELD_SD_A = 0.03
+#: A day's reconstructed hidden load [Ah] beyond ratio x profile + margin (or below) is not trusted.
+STRAY_RATIO = 1.4
+STRAY_AH = 3.0
+#: Shortest charger or alternator plateau [s]: sunny gaps between clouds last minutes.
+PLATEAU_MIN_S = 1200.0
+#: Quantile of the event-free load taken as the always-on base load.
+BASE_Q = 0.05
+MAX_EVENT_H = 10.0
+#: Sunlit-hours step rate over the night step rate above which a day's steps are clouds.
+CLOUD_STEP_RATE_RATIO = 1.3
 
 
 @dataclass(frozen=True)
@@ -271,8 +280,7 @@ def compute_ledger(channels: dict[str, Channel], system: System, *, soc: SocResu
             mode = "single-shunt"
             solar_series, model = _single_shunt(bat, v_b, system, bounds, gmask["battery"], cols, extras, notes)
         _soc_columns(bat, soc, bounds, cols)
-        extras["device_soc_diff_pct"] = device_disagreement_pct(
-            soc.soc, bat.soc_pct, day_index(bat.t_us, bounds), n_days)
+        extras["device_soc_diff_pct"] = device_disagreement_by_day(soc.soc, bat.soc_pct, bat.t_us, bounds)
         if np.isfinite(bat.temperature_C).any():
             cols["mean_temperature_C"] = _day_mean(bat.t_us, bat.temperature_C, bounds)
         else:
@@ -297,13 +305,15 @@ def _overlap_s(gap: Gap, bounds: np.ndarray) -> np.ndarray:
 
 
 def _day_mean(t_us: np.ndarray, values: np.ndarray, bounds: np.ndarray) -> np.ndarray:
-    n_days = len(bounds) - 1
-    ok = np.isfinite(values)
-    d = np.clip(day_index(t_us[ok], bounds), 0, n_days - 1)
-    s = np.bincount(d, weights=values[ok], minlength=n_days)[:n_days]
-    c = np.bincount(d, minlength=n_days)[:n_days]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(c > 0, s / np.maximum(c, 1), np.nan)
+    """Mean of the finite values in each local day, a day at a time (no whole-array copies)."""
+    pos = np.searchsorted(t_us, bounds, side="left")
+    out = np.full(len(bounds) - 1, np.nan)
+    for d in range(len(out)):
+        seg = values[pos[d]:pos[d + 1]]
+        ok = np.isfinite(seg)
+        if ok.any():
+            out[d] = float(seg[ok].mean(dtype=np.float64))
+    return out
 
 
 def _soc_columns(bat: Channel, soc: SocResult, bounds: np.ndarray, cols: dict[str, np.ndarray]) -> None:
@@ -480,7 +490,23 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     charging = np.nan_to_num(net, nan=0.0) > on_thr
     # Widen the charging mask by a few bins: a charger's turn-off and the solar shoulders.
     widen = pd.Series(charging.astype(float)).rolling(5, center=True, min_periods=1).max().to_numpy() > 0
-    train = (covered >= 0.5) & ~widen & np.isfinite(net)
+    # Held: a charger holds the full bank at absorption or float and exactly covers the
+    # load, so the net current sits at zero and the voltage at a charged level.
+    blocks = max(1.0, float(system.battery.series_12V_blocks))
+    v_held = (13.45 if system.battery.chemistry == "lifepo4" else 13.3) * blocks
+    # A lead-acid bank on float takes a small steady current: flat, not zero.
+    net_f = np.nan_to_num(net, nan=-1.0)
+    sd5 = pd.Series(net_f).rolling(5, center=True, min_periods=3).std().fillna(1.0).to_numpy()
+    flat = (sd5 < HELD_SD_A) & (net_f > -0.05) & (net_f < max(HELD_A, 0.03 * cap))
+    if system.battery.chemistry == "lifepo4":  # a full lithium bank takes no float current
+        flat[:] = False
+    held = ((np.abs(net_f) < HELD_A) | flat) & (np.nan_to_num(v_bin, nan=0.0) >= v_held)
+    # The charger follows a load step a moment late: a bin or two of small net current
+    # inside a hold is still the hold (morphological closing over 5 bins).
+    dil = pd.Series(held.astype(float)).rolling(5, center=True, min_periods=1).max()
+    closed = (1.0 - (1.0 - dil).rolling(5, center=True, min_periods=1).max()).to_numpy() > 0.5
+    held |= closed & (np.abs(net_f) < max(1.0, 0.01 * cap))
+    train = (covered >= 0.5) & ~widen & np.isfinite(net) & ~held
     if solar_possible:
         train &= elev < -3.0
     load_obs = np.clip(-np.nan_to_num(net, nan=0.0), 0.0, None)
@@ -503,24 +529,29 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     # rises of the net current; under charging they reveal the hidden load.
     amp_max = 1.2 * float(load_obs[train].max()) if train.any() else 0.5 * cap
     amp_max = max(amp_max, 2 * STEP_MIN_A)
-    events, step_bin, step_a = _load_step_events(net, step_min_A=STEP_MIN_A, amp_max_A=amp_max,
-                                                 max_bins=int(10 * 3600 / bin_s))
-    # Passing clouds switch solar in steps too. On a day with many daytime steps larger than
-    # any load seen at night the steps cannot be told from clouds: no events that day.
-    day_of_bin = np.clip(day_index(t_mid - bin_us // 2, bounds), 0, n_days - 1)
-    night_steps = np.abs(step_a[train[np.clip(step_bin - 1, 0, n_bins - 1)] & train[step_bin]])
+    _, step_bin, step_a = _load_step_events(net, step_min_A=STEP_MIN_A, amp_max_A=amp_max, max_bins=1)
+    at_night = train[np.clip(step_bin - 1, 0, n_bins - 1)] & train[step_bin]
+    night_steps = np.abs(step_a[at_night])
     big_load = 2.0 * float(np.quantile(night_steps, 0.9)) if len(night_steps) >= 10 else amp_max
-    sunny_step = (elev[step_bin] > 3.0) & (np.abs(step_a) > big_load)
-    _DEBUG.update(big_load=big_load, night_steps=night_steps)
-    cloud_steps = np.bincount(day_of_bin[step_bin[sunny_step]], minlength=n_days)[:n_days]
-    stepped_day = cloud_steps > CLOUD_STEPS_PER_DAY
-    _DEBUG.update(cloud_steps=cloud_steps, net=net, load_a_events=events, elev=elev, t_mid=t_mid)
+    dark = (elev < -3.0) if solar_possible else np.zeros(n_bins, dtype=bool)
+    dark_load = np.where(dark & np.isfinite(net), load_obs, np.inf)
+    events, step_bin, step_a = _load_step_events(
+        net, step_min_A=STEP_MIN_A, amp_max_A=amp_max, max_bins=int(MAX_EVENT_H * 3600 / bin_s),
+        big_A=big_load, big_max_bins=int(900 / bin_s), dark_load_A=dark_load)
+    # Passing clouds switch solar in steps too. On a day whose sunlit hours show steps
+    # markedly more often than the nights (loads alone), the steps cannot be told from
+    # clouds: no step events that day.
+    day_of_bin = np.clip(day_index(t_mid - bin_us // 2, bounds), 0, n_days - 1)
+    sunlit = elev > 10.0
+    night_rate = at_night.sum() / max(float(hrs[train].sum()), 1e-9)
+    day_steps = np.bincount(day_of_bin[step_bin[sunlit[step_bin]]], minlength=n_days)[:n_days]
+    day_hours = np.bincount(day_of_bin[sunlit], weights=hrs[sunlit], minlength=n_days)[:n_days]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        day_rate = np.where(day_hours > 0.5, day_steps / np.maximum(day_hours, 1e-9), 0.0)
+    stepped_day = (day_rate > CLOUD_STEP_RATE_RATIO * night_rate) if night_rate > 0 else np.ones(n_days, bool)
     events = np.where(stepped_day[day_of_bin], 0.0, events)
     base_obs = np.clip(load_obs - events, 0.0, None)
-    base_pred = None
     if train.sum() >= max(30, 3 * X.shape[1]):
-        base_fit = sm.WLS(base_obs[train], X[train], weights=covered[train]).fit()
-        base_pred = np.clip(base_fit.predict(X), 0.0, float(np.quantile(base_obs[train], 0.99)))
         fit = sm.WLS(load_obs[train], X[train], weights=covered[train]).fit()
         pred_frame = fit.get_prediction(X).summary_frame(alpha=0.05)
         pred = np.clip(pred_frame["mean"].to_numpy(), 0.0, None)
@@ -538,23 +569,30 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
         se_mean = np.full(n_bins, float(np.std(load_obs[train])) if train.any() else 0.0)
         resid_sd = float(np.std(load_obs[train])) if train.any() else 0.0
         notes.append("too few non-charging periods to fit the single-shunt load model; a constant was used")
-    observed = train | (~widen & ~(solar_possible & (elev >= -3.0)))
+    observed = (train | (~widen & ~(solar_possible & (elev >= -3.0)))) & ~held
     # Daytime floor: the load is at least what the bank gives up, -net. Across days the
     # same hour recurs; on the dullest day at that hour -net is close to the load itself.
     # The hourly 75th percentile of -net over days floors the prediction where the
     # night-fitted harmonics cannot see daytime-only loads.
     floor = _hourly_floor(load_obs, hrs, hour, t_mid, bin_us, observed)
-    hidden_load = np.maximum(np.maximum(pred, floor), load_obs)
-    if base_pred is not None:
-        # Where the net current moves, the hidden load is the base plus the step events seen;
-        # where the bank is held at absorption/float (net flat and small) no step is visible
-        # and the full model (which averages the events) stands.
-        net0 = np.nan_to_num(net, nan=0.0)
-        sd = pd.Series(net0).rolling(5, center=True, min_periods=1).std().fillna(0.0).to_numpy()
-        blind = (sd < BLIND_SD_A) & (np.abs(net0) < max(1.0, 0.02 * cap))
-        seen = np.maximum(base_pred + events, load_obs)
-        hidden_load = np.where(blind | stepped_day[day_of_bin], hidden_load, seen)
-    load_a = np.where(observed, load_obs, hidden_load)
+    # Where the net current moves, the hidden load is the base plus the step events seen.
+    # Where the bank is held (a charger exactly covering the load) or a day's steps are
+    # clouds, the load is the hour-of-day mean of the load known or reconstructed on the
+    # other days; the model and the floor stand in for hours never seen.
+    base_level = _base_level(base_obs, train)
+    readable = ~held & ~stepped_day[day_of_bin]
+    recon = np.where(observed, load_obs, np.maximum(base_level + events, load_obs))
+    known = (observed | readable) & ~held & np.isfinite(net) & (covered >= 0.5)
+    profile = _hourly_median(recon, hrs, hour, t_mid, known)
+    # A day whose reconstruction strays far from the other days at the same hours has
+    # mis-paired steps: it takes the hour-of-day profile instead.
+    hid_read = readable & ~observed & np.isfinite(profile)
+    r_day = np.bincount(day_of_bin[hid_read], weights=(recon * hrs)[hid_read], minlength=n_days)[:n_days]
+    p_day = np.bincount(day_of_bin[hid_read], weights=(profile * hrs)[hid_read], minlength=n_days)[:n_days]
+    stray = (r_day > STRAY_RATIO * p_day + STRAY_AH) | (r_day < p_day / STRAY_RATIO - STRAY_AH)
+    readable &= ~stray[day_of_bin]
+    fallback = np.maximum(np.where(np.isfinite(profile), profile, np.maximum(pred, floor)), load_obs)
+    load_a = np.where(observed, load_obs, np.where(readable, recon, fallback))
     load_a = np.where(np.isfinite(net), load_a, 0.0)
     gross = np.clip(np.nan_to_num(net, nan=0.0) + load_a, 0.0, None)
     d_bin = np.clip(day_index(t_mid - bin_us // 2, bounds), 0, n_days - 1)
@@ -569,7 +607,7 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     half = 1.96 * np.sqrt(sum_se ** 2 + resid_sd ** 2 * pred_hours * 1.0)
     extras["consumed_Ah_pi95_lo"] = np.maximum(cols["consumed_Ah"] - half, 0.0)
     extras["consumed_Ah_pi95_hi"] = cols["consumed_Ah"] + half
-    parts, conf = _attribute(gross, hrs, elev, hour, system, bin_s)
+    parts, conf = _attribute(gross, hrs, elev, hour, system, bin_s, held)
     for name in SOURCES:
         cols[f"charged_Ah_{name}"] += np.bincount(d_bin, weights=parts[name] * hrs, minlength=n_days)[:n_days]
         cols[f"charged_Wh_{name}"] += np.bincount(
@@ -583,6 +621,43 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
         extras["attribution_confidence"] = np.where(w > 0, cw / np.maximum(w, 1e-12), np.nan)
     idx = pd.DatetimeIndex(t_mid.view("M8[us]")).tz_localize("UTC")
     return pd.Series(parts["solar"], index=idx, name="solar_current_A"), model
+
+
+def _base_level(base_A: np.ndarray, use: np.ndarray) -> float:
+    """The always-on load [A] under the step events, from the bins ``use`` (0 if none).
+
+    The :data:`BASE_Q` quantile of the load left when the step events are taken
+    out, corrected for measurement noise: for Gaussian noise of SD sigma the
+    5 % quantile lies 1.645 sigma below the mean, and sigma is estimated from the
+    median absolute bin-to-bin change (median |d| = 0.954 sigma for the
+    difference of two independent draws).
+    """
+    if not use.any():
+        return 0.0
+    x = base_A[use]
+    pair = use[:-1] & use[1:]
+    d = np.abs(np.diff(base_A))[pair]
+    sigma = float(np.median(d)) / 0.954 if len(d) else 0.0
+    return float(np.quantile(x, BASE_Q)) + 1.645 * sigma
+
+
+def _hourly_median(load_A: np.ndarray, hrs: np.ndarray, hour: np.ndarray, t_mid: np.ndarray,
+                   use: np.ndarray) -> np.ndarray:
+    """Per bin, the median over days of that local hour's mean load [A] over the bins ``use``
+    (NaN for an hour seen on no day); a day counts for an hour it covers at least half of."""
+    hr = np.clip(np.floor(hour).astype(np.int64), 0, 23)
+    if not use.any():
+        return np.full(len(hr), np.nan)
+    day = (t_mid // int(86400 * US_PER_S)).astype(np.int64)
+    frame = pd.DataFrame({"day": day[use], "hr": hr[use], "ah": (np.nan_to_num(load_A) * hrs)[use],
+                          "h": hrs[use]})
+    per = frame.groupby(["day", "hr"]).sum()
+    per = per[per["h"] >= 0.5]
+    table = np.full(24, np.nan)
+    if len(per):
+        med = (per["ah"] / per["h"]).groupby(level="hr").median()
+        table[med.index.to_numpy()] = med.to_numpy()
+    return table[hr]
 
 
 def _hourly_floor(load_obs: np.ndarray, hrs: np.ndarray, hour: np.ndarray, t_mid: np.ndarray, bin_us: int,
@@ -603,7 +678,7 @@ def _hourly_floor(load_obs: np.ndarray, hrs: np.ndarray, hour: np.ndarray, t_mid
 
 
 def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.ndarray, system: System,
-               bin_s: float) -> tuple[dict[str, np.ndarray], np.ndarray]:
+               bin_s: float, held: np.ndarray | None = None) -> tuple[dict[str, np.ndarray], np.ndarray]:
     """Split gross charge current per bin into sources by signature; returns (parts [A], confidence 0-1).
 
     Charging runs are contiguous bins with gross charge. Inside a run, a step
@@ -613,13 +688,16 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
     across the plateau. Plateaus that are daytime and shorter than 4 h are the
     alternator, others shore (a declared single charger type overrides).
     The rest follows the sun (solar) when the sun is up, else ``other``.
+    Bins where a charger holds the full bank (``held``) end a run: what they
+    carry is solar while the sun is up, else the source of the last plateau.
     """
     n = len(gross)
     parts = {s: np.zeros(n) for s in SOURCES}
     conf = np.zeros(n)
     declared = {c.source for c in system.charger}
     thr = max(0.3, 0.0015 * system.battery.rated_capacity_Ah)
-    on = gross > thr
+    held = np.zeros(n, dtype=bool) if held is None else held
+    on = (gross > thr) & ~held
     edge = np.diff(on.astype(np.int8), prepend=0, append=0)
     starts = np.flatnonzero(edge == 1)
     ends = np.flatnonzero(edge == -1)  # exclusive
@@ -627,6 +705,13 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
     plateau_mask = np.zeros(n, dtype=bool)
     charger = np.zeros(n)
     label = np.empty(n, dtype=object)
+    # A charger plateau that ends in a bank held through the night goes on (shore power):
+    # its duration includes the held dark bins of the next hours.
+    hedge = np.diff(held.astype(np.int8), prepend=0, append=0)
+    dark_held = np.concatenate(([0], np.cumsum(held & (sun <= 0.02))))
+    held_cum = np.concatenate(([0], np.cumsum(held)))
+    look = int(900 / bin_s)
+    win = int(4 * 3600 / bin_s)
     for s, e in zip(starts, ends):  # loop over charging runs (events), not over log rows
         g = gross[s:e]
         if len(g) < 2:
@@ -647,7 +732,7 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
             down_set = set(later.tolist())
             while d + 1 in down_set:
                 d += 1
-            if (d - u) * bin_s < 300:  # shorter than 5 min: a load switching off, not a charger
+            if (d - u) * bin_s < PLATEAU_MIN_S:  # a load switching off or a gap in the clouds
                 continue
             base_l = ext[u]
             base_r = ext[d + 1] if d + 1 < len(ext) else 0.0
@@ -656,7 +741,11 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
             exc = np.clip(g[u:d] - base, 0.0, None)
             charger[seg] = exc
             plateau_mask[seg] = True
-            dur_h = (d - u) * bin_s / 3600.0
+            k = s + d
+            extra = 0
+            if held_cum[min(n, k + look)] > held_cum[k]:
+                extra = int(dark_held[min(n, k + win)] - dark_held[k])
+            dur_h = (d - u + extra) * bin_s / 3600.0
             mid = s + (u + d) // 2
             daytime = elev[mid] > 0 or 7 <= hour[mid] <= 21
             if declared == {"alternator"}:
@@ -672,8 +761,19 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
         m = plateau_mask & (label == name)
         parts[name][m] = charger[m]
     rest = gross - charger
-    rest[~on] = 0.0
+    rest[~on & ~held] = 0.0
     day = sun > 0.02
+    # A bank held in the dark keeps the source of the last plateau, until the hold ends.
+    last = pd.Series(np.where(plateau_mask, label, None), dtype=object).ffill().to_numpy()
+    dark_hold = np.zeros(n, dtype=bool)
+    for hs, he in zip(np.flatnonzero(hedge == 1), np.flatnonzero(hedge == -1)):  # loop over held runs
+        first_dark = hs + int(np.argmax(~day[hs:he])) if (~day[hs:he]).any() else he
+        dark_hold[first_dark:he] = True
+    for name in ("alternator", "shore"):
+        m = held & dark_hold & (last == name)
+        parts[name][m] = rest[m]
+        conf[m] = 0.6
+        rest[m] = 0.0
     parts["solar"] = np.where(day, rest, 0.0)
     parts["other"] = np.where(day, 0.0, rest)
     # Confidence of the solar share: how well the day's solar follows sin(elevation).
@@ -690,6 +790,7 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
 
 
 def _load_step_events(net_A: np.ndarray, *, step_min_A: float, amp_max_A: float, max_bins: int,
+                      big_A: float = np.inf, big_max_bins: int = 0, dark_load_A: np.ndarray | None = None,
                       part_A: float = 0.25) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Load switched on and off in steps, reconstructed from the net current [A per bin].
 
@@ -700,7 +801,10 @@ def _load_step_events(net_A: np.ndarray, *, step_min_A: float, amp_max_A: float,
     paired (a fall, then a rise within ``max_bins`` whose size agrees within
     35 % or 0.4 A, innermost first, so a fridge cycle nests inside a long load).
     Unpaired steps (a charger or alternator starting or stopping, the bank
-    reaching absorption) are not loads and are left out.
+    reaching absorption) are not loads and are left out. A pair larger than
+    ``big_A`` (a kettle on the inverter, or a charger pausing) must last at most
+    ``big_max_bins``; a pair is rejected when, in a bin where nothing can charge,
+    the load seen (``dark_load_A``, +inf where the sun is up) is below 70 % of it.
 
     Returns
     -------
@@ -727,22 +831,47 @@ def _load_step_events(net_A: np.ndarray, *, step_min_A: float, amp_max_A: float,
     amp = sums[keep]
     diff = np.zeros(n + 1)
     stack: list[tuple[int, float]] = []
+    def fits(j: int, level: float, i: int) -> bool:
+        if level > big_A and i - j > big_max_bins:
+            return False
+        return dark_load_A is None or not (dark_load_A[j:i] < 0.7 * level).any()
+
     for i, a in zip(idx.tolist(), amp.tolist()):  # loop over detected steps, not over log rows
+        if stack and i - stack[0][0] > max_bins:  # steps too old to close are dropped
+            stack = [(j, x) for j, x in stack if i - j <= max_bins]
         if a < 0:
             stack.append((i, -a))
             continue
-        for k in range(len(stack) - 1, -1, -1):
-            j, a_on = stack[k]
-            if i - j > max_bins:
-                continue
-            if abs(a_on - a) <= max(0.35 * a_on, 0.4):
-                level = 0.5 * (a_on + a)
-                diff[j] += level
-                diff[i] -= level
-                del stack[k]
+        # The latest open load whose size matches this rise ...
+        best = -1
+        for tol in (0.12, 0.35):  # a close match first, the latest first; then a loose one
+            for k in range(len(stack) - 1, -1, -1):
+                j, a_on = stack[k]
+                if abs(a_on - a) <= max(tol * a_on, 0.4 * tol / 0.35) and fits(j, 0.5 * (a_on + a), i):
+                    best = k
+                    break
+            if best >= 0:
                 break
-        # Steps too old to close are dropped.
-        if stack and i - stack[0][0] > max_bins:
-            stack = [(j, x) for j, x in stack if i - j <= max_bins]
+        if best >= 0:
+            j, a_on = stack.pop(best)
+            level = 0.5 * (a_on + a)
+            diff[j] += level
+            diff[i] -= level
+            continue
+        # ... or two open loads switching off in the same bin.
+        done = False
+        for k1 in range(len(stack) - 1, 0, -1):
+            for k2 in range(k1 - 1, -1, -1):
+                (j1, a1), (j2, a2) = stack[k1], stack[k2]
+                if abs(a1 + a2 - a) <= max(0.2 * a, 0.4) and fits(j1, a1, i) and fits(j2, a2, i):
+                    diff[j1] += a1
+                    diff[j2] += a2
+                    diff[i] -= a1 + a2
+                    del stack[k1]
+                    del stack[k2]
+                    done = True
+                    break
+            if done:
+                break
     out[:] = np.cumsum(diff[:n])
     return out, starts[big] + 1, sums[big]
