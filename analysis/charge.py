@@ -463,15 +463,9 @@ def device_disagreement_pct(soc: np.ndarray, device_soc_pct: np.ndarray, day: np
 def device_disagreement_by_day(soc: np.ndarray, device_soc_pct: np.ndarray, t_us: np.ndarray,
                                bounds_us: np.ndarray) -> np.ndarray:
     """As :func:`device_disagreement_pct`, one local day at a time (bounded memory on a year at 1 Hz)."""
-    pos = np.searchsorted(t_us, bounds_us, side="left")
-    out = np.full(len(bounds_us) - 1, np.nan)
-    for d in range(len(out)):
-        dev = device_soc_pct[pos[d]:pos[d + 1]]
-        ok = np.isfinite(dev)
-        if ok.any():
-            ours = soc[pos[d]:pos[d + 1]][ok].astype(np.float64)
-            out[d] = float(np.mean(np.abs(ours - dev[ok])))
-    return out
+    from analysis.readings import per_day_mean
+
+    return per_day_mean(t_us, device_soc_pct, bounds_us, minus=soc)
 
 
 def _channel_from_frame(frame: pd.DataFrame) -> Channel:

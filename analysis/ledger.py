@@ -10,14 +10,23 @@ measured source delivered) is an unmeasured source, reported as ``other``
 rather than as a negative load.
 
 **A single shunt** (the battery channel only). Load is hidden whenever a
-source charges. A load model is fitted with statsmodels on the periods that
-cannot be charging (hour-of-day harmonics, day type, temperature where
-logged), predicted during charging periods with a 95 % prediction interval,
-and the gross charge is ``net + predicted load``. That charge is attributed to
-sources by signature: a flat, current-limited plateau that switches on and off
-with a step is a charger or an alternator (``alternator`` when it is daytime
-and short, ``shore`` when long or at night); charge that follows the sun is
-solar. Every day carries a confidence (0-1) for the split.
+source charges. Loads switch in steps (fridge cycles, pumps, lights, inverter
+loads) while solar changes smoothly, so under charging the hidden load is the
+always-on base load plus the *step events*: a fall of the net current paired
+with a later rise of the same size (:func:`_load_step_events`). Steps cannot be
+told from passing clouds on a day whose sunlit hours show steps markedly more
+often than the nights; a bank *held* by a charger at absorption/float (net
+current ~0, or a small flat float current for lead-acid, at a charged voltage)
+shows no steps at all. There, and on a day whose reconstruction strays far from
+the other days, the load is the median over days of the same local hour's known
+or reconstructed load. A statsmodels load model (hour-of-day harmonics, day type,
+temperature) fitted on the nights gives the prediction interval and stands in for
+hours never seen. The gross charge ``net + load`` is attributed to sources by
+signature: a flat, current-limited plateau that switches on and off with a step
+is a charger or an alternator (``alternator`` when it is daytime and short,
+``shore`` when long, at night or followed by a bank held through the night);
+charge that follows the sun is solar. Every day carries a confidence (0-1) for
+the split.
 
 Days are the system's local calendar days (``site.timezone``). A day is
 *complete* when its channels cover it from midnight to midnight without a gap.
@@ -48,6 +57,7 @@ from analysis.readings import (
     gap_threshold_s,
     local_day_bounds,
     median_interval_s,
+    per_day_mean,
     split_channels,
 )
 from analysis.system import System
@@ -305,15 +315,8 @@ def _overlap_s(gap: Gap, bounds: np.ndarray) -> np.ndarray:
 
 
 def _day_mean(t_us: np.ndarray, values: np.ndarray, bounds: np.ndarray) -> np.ndarray:
-    """Mean of the finite values in each local day, a day at a time (no whole-array copies)."""
-    pos = np.searchsorted(t_us, bounds, side="left")
-    out = np.full(len(bounds) - 1, np.nan)
-    for d in range(len(out)):
-        seg = values[pos[d]:pos[d + 1]]
-        ok = np.isfinite(seg)
-        if ok.any():
-            out[d] = float(seg[ok].mean(dtype=np.float64))
-    return out
+    """Mean of the finite values in each local day (see analysis.readings.per_day_mean)."""
+    return per_day_mean(t_us, values, bounds)
 
 
 def _soc_columns(bat: Channel, soc: SocResult, bounds: np.ndarray, cols: dict[str, np.ndarray]) -> None:

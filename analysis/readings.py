@@ -248,6 +248,27 @@ def day_index(t_us: np.ndarray, bounds_us: np.ndarray) -> np.ndarray:
     return np.searchsorted(bounds_us, t_us, side="right").astype(np.int32) - 1
 
 
+def per_day_mean(t_us: np.ndarray, values: np.ndarray, bounds_us: np.ndarray, *,
+                 minus: np.ndarray | None = None) -> np.ndarray:
+    """Mean of the finite ``values`` (or of ``|values - minus|``) in each local day.
+
+    Works one day at a time on slices of the sorted ``t_us``, so a year at 1 Hz
+    never needs a float64 copy of a whole column. NaN for a day with no value.
+    """
+    pos = np.searchsorted(t_us, bounds_us, side="left")
+    out = np.full(len(bounds_us) - 1, np.nan)
+    for d in range(len(out)):  # a loop over days, not rows
+        seg = values[pos[d]:pos[d + 1]]
+        ok = np.isfinite(seg)
+        if not ok.any():
+            continue
+        x = seg[ok].astype(np.float64)
+        if minus is not None:
+            x = np.abs(x - minus[pos[d]:pos[d + 1]][ok])
+        out[d] = float(x.mean())
+    return out
+
+
 def fill0(values: np.ndarray) -> np.ndarray:
     """``values`` with NaN as 0 (no copy when there is no NaN)."""
     if np.isnan(values).any():
