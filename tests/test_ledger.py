@@ -188,8 +188,10 @@ def test_multichannel_fixture_consumed_Ah_within_2_percent_of_simulator_truth(sc
             assert getattr(row, f"charged_Ah_{s}") == pytest.approx(td["charged_Ah"][s], rel=0.02, abs=0.2)
 
 
-@pytest.mark.xfail(strict=True, reason="known gap: a single-shunt load model fitted on night-time only "
-                   "underestimates daytime-only loads (satellite terminal, laptop) hidden under solar")
+@pytest.mark.xfail(strict=True, reason="known gap: on these 4-5 day fixtures some days miss ±8 % "
+                   "(autumn-van +14 %/+10 % on its partly cloudy and shore days; spring-truck -4...-23 %): "
+                   "load steps cannot be told from cloud steps on partly cloudy days, and a bank held by a "
+                   "charger hides the load, which then comes from the same hours of only a few other days")
 @pytest.mark.parametrize("scenario", ["autumn-van", "spring-truck"])
 def test_single_shunt_fixture_consumed_Ah_within_8_percent_of_simulator_truth(scenario):
     from analysis.system import parse_system

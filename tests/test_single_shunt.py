@@ -1,0 +1,108 @@
+"""Single-shunt ledger: load steps under charging, a bank held by a charger, simulator truth.
+
+With one shunt only the net current is logged (Kirchhoff's current law at the bank:
+net = sources - loads). Loads superpose and switch in steps while solar changes
+smoothly, so the hidden load is rebuilt from paired falls and rises of the net current;
+the expected values below are closed-form sums of the synthetic loads put in.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from analysis.ledger import _load_step_events, daily_ledger
+from analysis.system import system_from_mapping
+from tests.test_ledger import long_frame
+
+
+def _lfp_system(solar: bool = False):
+    d = {"site": {"latitude_deg": 60.4, "longitude_deg": 5.3, "timezone": "Europe/Oslo"},
+         "battery": {"chemistry": "lifepo4", "nominal_voltage_V": 12.8, "rated_capacity_Ah": 200}}
+    if solar:
+        d["solar"] = [{"peak_power_W": 300}]
+    return system_from_mapping(d)
+
+
+def _ramp_solar(n: int) -> np.ndarray:
+    # A smooth solar current [A]: a half sine over the window, changing by at most
+    # 10*pi/n A per bin (0.05 A for n = 600); a step's size carries that bin's change.
+    return 10.0 * np.sin(np.linspace(0.0, np.pi, n))
+
+
+def test_paired_load_steps_under_a_smooth_solar_ramp_give_each_load_its_draw():
+    # Kirchhoff's current law: net = solar - (fridge + lights); loads superpose.
+    n = 600
+    load = np.zeros(n)
+    load[100:115] += 4.0          # a fridge cycle, 15 bins
+    load[200:480] += 1.8          # a long load (satellite terminal), 280 bins
+    load[300:318] += 4.0          # a fridge cycle nested in it
+    events, _, _ = _load_step_events(_ramp_solar(n) - load, step_min_A=0.6, amp_max_A=50.0, max_bins=600)
+    np.testing.assert_allclose(events, load, atol=0.05)
+
+
+def test_unpaired_charger_steps_are_not_loads():
+    # An alternator switching on (+25 A) and never off within the window is not a load;
+    # the fridge cycle during it still is.
+    n = 400
+    alt = np.where(np.arange(n) >= 50, 25.0, 0.0)
+    load = np.zeros(n)
+    load[200:214] = 3.5
+    events, _, _ = _load_step_events(_ramp_solar(n) + alt - load, step_min_A=0.6, amp_max_A=50.0,
+                                     max_bins=400)
+    np.testing.assert_allclose(events, load, atol=0.05)
+
+
+def test_two_loads_switching_off_in_the_same_bin_are_both_closed():
+    n = 600
+    load = np.zeros(n)
+    load[250:350] += 2.0
+    load[300:350] += 3.0
+    events, _, _ = _load_step_events(_ramp_solar(n) - load, step_min_A=0.6, amp_max_A=50.0, max_bins=600)
+    np.testing.assert_allclose(events, load, atol=0.05)
+
+
+def test_a_large_pair_longer_than_allowed_is_not_a_load():
+    # A 25 A fall and rise 60 bins apart: a charger pausing, not a kettle (big loads are short).
+    n = 300
+    net = _ramp_solar(n) + 25.0
+    net[100:160] -= 25.0
+    events, _, _ = _load_step_events(net, step_min_A=0.6, amp_max_A=50.0, max_bins=300,
+                                     big_A=8.0, big_max_bins=15)
+    assert np.abs(events).max() == 0.0
+
+
+def test_load_under_a_bank_held_by_a_charger_is_the_load_of_the_same_hours_on_other_days():
+    # 2 A all the time (48 Ah a day). On the second night a charger holds the full bank
+    # from 01:00 to 07:00: net 0 A at 13.6 V (charged LiFePO4), the 12 Ah it delivers equal the load.
+    start = pd.Timestamp("2026-01-12", tz="Europe/Oslo").tz_convert("UTC")
+    t = pd.date_range(start, start + pd.Timedelta(days=3), freq="60s", inclusive="left")
+    local = t.tz_convert("Europe/Oslo")
+    hold = np.asarray((local.day == 13) & (local.hour >= 1) & (local.hour < 7))
+    rng = np.random.default_rng(3)
+    net = np.where(hold, 0.0, -2.0) + rng.normal(0, 0.01, len(t))
+    volt = np.where(hold, 13.6, 13.1)
+    led = daily_ledger(long_frame(t, battery={"current_A": net, "voltage_V": volt}), _lfp_system()).set_index("date")
+    day2 = led.loc[pd.Timestamp("2026-01-13").date()]
+    assert day2["consumed_Ah"] == pytest.approx(48.0, rel=0.02)
+    charged = sum(day2[f"charged_Ah_{s}"] for s in ("solar", "alternator", "shore", "other"))
+    assert charged == pytest.approx(12.0, rel=0.05)
+
+
+@pytest.mark.parametrize("scenario", ["autumn-van", "spring-truck"])
+def test_simulated_single_shunt_consumed_Ah_mean_error_is_within_8_percent(scenario):
+    # Against the simulator's truth (collector.simulated writes what really happened):
+    # over ten days at 60 s the mean absolute daily error of consumed Ah is within 8 %
+    # (measured 4.3 % autumn-van, 4.8 % spring-truck). The per-day ±8 % target is the
+    # strict xfail in tests/test_ledger.py.
+    from analysis.ledger import compute_ledger
+    from analysis.readings import split_channels
+    from collector.simulated import simulate, to_canonical
+
+    sim = simulate(scenario, days=10)
+    frame = to_canonical(sim, interval_s=60, single_shunt=True)
+    days = compute_ledger(split_channels(frame), sim.scenario.system).days
+    est = dict(zip((d.isoformat() for d in days["date"]), days["consumed_Ah"]))
+    err = [abs(est[d["date"]] / d["consumed_Ah"] - 1.0) for d in sim.truth["days"]]
+    assert np.mean(err) <= 0.08
