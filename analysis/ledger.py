@@ -333,6 +333,22 @@ def _soc_columns(bat: Channel, soc: SocResult, bounds: np.ndarray, cols: dict[st
     del n_days
 
 
+def _bank_voltage_at(t_us: np.ndarray, bank_t_us: np.ndarray, bank_V: np.ndarray) -> np.ndarray:
+    """The bank voltage linearly interpolated at ``t_us`` (both time axes sorted).
+
+    Same result as ``np.interp`` but without its float64 copies of the whole bank
+    record (500 MB on a year at 1 Hz): only the neighbouring samples are gathered.
+    """
+    n = len(bank_t_us)
+    if n == 1:
+        return np.full(len(t_us), float(bank_V[0]))
+    hi = np.clip(np.searchsorted(bank_t_us, t_us, side="right"), 1, n - 1)
+    lo = hi - 1
+    t0, t1 = bank_t_us[lo], bank_t_us[hi]
+    w = np.clip((t_us - t0) / np.maximum(t1 - t0, 1), 0.0, 1.0)
+    return bank_V[lo] * (1.0 - w) + bank_V[hi] * w
+
+
 def _multi_channel(bat: Channel | None, v_b: np.ndarray | None, sources: dict[str, Channel],
                    load: Channel | None, system: System, bounds: np.ndarray, gmask: dict[str, np.ndarray],
                    cols: dict[str, np.ndarray], notes: list[str]) -> None:
@@ -347,7 +363,7 @@ def _multi_channel(bat: Channel | None, v_b: np.ndarray | None, sources: dict[st
         # channel's own voltage may be the far side of its converter (an MPPT array at
         # 36 V on a 12 V bank), so it is used only when no bank voltage is logged.
         if bat is not None and v_b is not None:
-            v = np.interp(ch.t_us, bat.t_us, v_b)
+            v = _bank_voltage_at(ch.t_us, bat.t_us, v_b)
         elif np.isfinite(ch.voltage_V).any():
             v = pd.Series(ch.voltage_V).ffill().bfill().to_numpy()
         else:

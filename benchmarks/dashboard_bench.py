@@ -22,6 +22,24 @@ encoder (what Dash sends). The first call of a range runs the analysis
 p95 of the interactive calls (live, zoom, warm overview/trip, planner target
 changes); cold analysis runs are reported beside it.
 
+**Naive baseline** (same store, same run, same windows; ``--no-baseline`` skips it): the
+figure path without our two tricks --
+
+* no downsampling: the readings plot is built from EVERY stored battery reading of the
+  range (``Store.read`` at full resolution into the same ``figures.readings_figure``),
+  then JSON-encoded with plotly's encoder, which is what a browser would receive;
+* no per-range cache: ``live``, ``trip`` and ``planner`` call ``clear_caches()`` before
+  every call, so each one re-reads the range and re-runs the analysis.
+
+A full-resolution plot of a year (2 x 31.5 M points) is far too slow and big to build, so a
+naive plot of a range longer than ``--baseline-days`` (default 7) is MEASURED on the first
+``--baseline-days`` of that range and EXTRAPOLATED linearly in the range's length (the store
+is uniform 1 Hz; the slope comes from the same call and a 1-hour call, so fixed costs are not
+scaled). Extrapolated calls are counted in ``baseline.extrapolated_calls`` and listed with
+their measured sub-range. Each naive callback runs ``--baseline-repeats`` times (default 3;
+zoom: 4 x that). ``speedup_p95`` = baseline p95 / ours p95, per callback and over the
+interactive mix (live, overview, zoom, trip, planner).
+
 Usage::
 
     python benchmarks/dashboard_bench.py --scale 0.05          # ~18 days, quick
@@ -134,6 +152,105 @@ def _stats(ms: list[float]) -> dict[str, float]:
             "p95_ms": round(float(np.percentile(a, 95)), 1), "max_ms": round(float(a.max()), 1)}
 
 
+def _naive_readings(store_path: Path, lo, hi, tz: str):
+    """The readings plot from every stored battery reading of ``[lo, hi)`` (no thinning, no cache)."""
+    from collector.store import Store
+    from dashboard import figures
+
+    with Store(store_path) as st:
+        piece = st.read(lo, hi, channels=["battery"])
+    series = {q: (piece["t"], piece[q].to_numpy(dtype="float64")) for q in ("voltage_V", "current_A")
+              if len(piece)}
+    return figures.readings_figure(series, tz=tz, title="Battery readings", full_resolution=True)
+
+
+def _naive_readings_ms(store_path: Path, lo, hi, tz: str, cap, calib: dict) -> tuple[float, dict | None]:
+    """Time one naive readings call; a range longer than ``cap`` is measured on its first ``cap``
+    and extrapolated linearly in length from that and the 1-hour calibration call."""
+    import pandas as pd
+
+    width = hi - lo
+    if width <= cap:
+        return _timed(_naive_readings, store_path, lo, hi, tz), None
+    ms_cap = _timed(_naive_readings, store_path, lo, lo + cap, tz)
+    small_ms, small_w = calib["ms"], calib["width"]
+    slope = max(0.0, (ms_cap - small_ms) / ((cap - small_w) / pd.Timedelta(days=1)))  # [ms/day]
+    est = ms_cap + slope * ((width - cap) / pd.Timedelta(days=1))
+    return est, {"range_days": round(width / pd.Timedelta(days=1), 2),
+                 "measured_days": round(cap / pd.Timedelta(days=1), 2), "measured_ms": round(ms_cap, 1),
+                 "slope_ms_per_day": round(slope, 1), "extrapolated_ms": round(est, 1)}
+
+
+def run_baseline(store_path: Path, system_path: Path, *, repeats: int, seed: int, cap_days: float,
+                 ours: dict) -> dict:
+    """The naive figure path on the same store (see the module docstring); ``ours`` = :func:`run`'s result."""
+    import pandas as pd
+
+    from dashboard.app import create_app
+    from dashboard.data import clear_caches, current
+
+    rng = np.random.default_rng(seed)  # the same seed: the same zoom windows as ours
+    app = create_app(SimpleNamespace(store_path=store_path, system_path=system_path))
+    res: dict[str, list[float]] = {k: [] for k in ("live", "overview", "zoom", "trip", "planner")}
+    extrapolated: list[dict] = []
+    cap = pd.Timedelta(days=cap_days)
+    with app.server.test_request_context():
+        from dashboard.pages import live, planner, trip
+
+        clear_caches()
+        src = current()
+        span = src.time_span()
+        tz = src.timezone()
+        trip_range = src.default_range(days=14)
+        lo_all, hi_all = span[0], span[1] + pd.Timedelta(microseconds=1)
+        _naive_readings(store_path, lo_all, lo_all + pd.Timedelta(hours=1), tz)  # warm-up (imports)
+        w_small = pd.Timedelta(hours=1)
+        calib = {"ms": _timed(_naive_readings, store_path, lo_all, lo_all + w_small, tz), "width": w_small}
+        for _ in range(repeats):
+            ms, note = _naive_readings_ms(store_path, lo_all, hi_all, tz, cap, calib)
+            res["overview"].append(ms)
+            if note:
+                extrapolated.append({"callback": "overview", **note})
+        for _ in range(repeats):
+            clear_caches()
+            res["live"].append(_timed(live.render_live, src))
+        widths = [pd.Timedelta(hours=1), pd.Timedelta(days=1), pd.Timedelta(days=7), pd.Timedelta(days=30)]
+        total_s = (span[1] - span[0]).total_seconds()
+        for i in range(repeats * 4):
+            w = widths[i % 4]
+            if w.total_seconds() >= total_s:
+                w = pd.Timedelta(seconds=total_s / 2)
+            lo = span[0] + pd.Timedelta(seconds=float(rng.uniform(0, total_s - w.total_seconds())))
+            ms, note = _naive_readings_ms(store_path, lo, lo + w, tz, cap, calib)
+            res["zoom"].append(ms)
+            if note:
+                extrapolated.append({"callback": "zoom", **note})
+        stored = {"start": trip_range[0], "end": trip_range[1]}
+        for _ in range(repeats):
+            clear_caches()
+            res["trip"].append(_timed(trip.render_trip, src, *trip_range))
+        for i in range(repeats):
+            clear_caches()
+            res["planner"].append(_timed(planner.render_plan, src, 1.0 + 0.5 * (i + 1), 90, stored))
+        clear_caches()
+    interactive = [x for k in ("live", "overview", "zoom", "trip", "planner") for x in res[k]]
+    cb = ours["callbacks"]
+    pairs = {"live": "live", "overview": "overview_warm", "zoom": "zoom", "trip": "trip_warm", "planner": "planner"}
+    speedup = {k: round(_stats(res[k])["p95_ms"] / cb[o]["p95_ms"], 1) for k, o in pairs.items()
+               if res[k] and o in cb and cb[o]["p95_ms"] > 0}
+    # Like for like without our cache: the naive overview against our cold (first) overview.
+    if res["overview"] and cb.get("overview_cold", {}).get("p95_ms"):
+        speedup["overview_vs_our_cold"] = round(_stats(res["overview"])["p95_ms"] / cb["overview_cold"]["p95_ms"], 1)
+    base_p95 = float(np.percentile(interactive, 95))
+    return {"what": "full-resolution readings plot (every stored point) + plotly JSON, no per-range cache "
+                    "(clear_caches() before each live/trip/planner call)",
+            "baseline_days_cap": cap_days, "calibration_1h_ms": round(calib["ms"], 1),
+            "callbacks": {k: _stats(v) for k, v in res.items() if v},
+            "interactive": _stats(interactive),
+            "extrapolated_calls": len(extrapolated), "extrapolated": extrapolated,
+            "speedup_p95": {**speedup, "interactive": round(base_p95 / ours["interactive"]["p95_ms"], 1)}}
+
+
 def run(store_path: Path, system_path: Path, *, repeats: int, seed: int) -> dict:
     import pandas as pd
 
@@ -194,6 +311,10 @@ def main(argv: list[str] | None = None) -> int:
                    help="store to build or reuse (default: a temporary file, deleted afterwards)")
     p.add_argument("--repeats", type=int, default=10, help="calls per interactive callback (default 10)")
     p.add_argument("--seed", type=int, default=7)
+    p.add_argument("--no-baseline", action="store_true", help="skip the naive (no thinning, no cache) baseline")
+    p.add_argument("--baseline-repeats", type=int, default=3, help="calls per naive callback (default 3)")
+    p.add_argument("--baseline-days", type=float, default=7.0,
+                   help="longest range a naive plot is built on; longer ones are extrapolated (default 7)")
     args = p.parse_args(argv)
     days = max(2, int(round(365 * args.scale)))
     tmp = None
@@ -210,6 +331,11 @@ def main(argv: list[str] | None = None) -> int:
             build_s = build_store(store_path, days, seed=args.seed)
         system_path.write_text(SYSTEM_TOML, encoding="utf-8")
         out = run(store_path, system_path, repeats=args.repeats, seed=args.seed)
+        if not args.no_baseline:
+            print("naive baseline ...", file=sys.stderr)
+            out["baseline"] = run_baseline(store_path, system_path, repeats=max(1, args.baseline_repeats),
+                                           seed=args.seed, cap_days=args.baseline_days, ours=out)
+            out["speedup_p95_interactive"] = out["baseline"]["speedup_p95"]["interactive"]
         from collector.store import Store
 
         with Store(store_path) as st:

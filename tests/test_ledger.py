@@ -218,3 +218,14 @@ def test_balance_in_day_chunks_gives_the_same_ledger_as_one_pass(monkeypatch):
     monkeypatch.setattr(ledger_mod, "BALANCE_CHUNK", 1500)
     chunked = daily_ledger(df, _system())
     pd.testing.assert_frame_equal(one, chunked, rtol=1e-9)
+
+
+def test_bank_voltage_at_matches_numpy_interp():
+    # Reference: numpy.interp run in the test (the helper only avoids its whole-record copies).
+    from analysis.ledger import _bank_voltage_at
+
+    rng = np.random.default_rng(7)
+    bank_t = np.unique(rng.integers(0, 10**9, 2000)).astype(np.int64)
+    bank_v = (12.0 + rng.random(len(bank_t))).astype(np.float32)
+    t = np.sort(rng.integers(-10**6, 10**9 + 10**6, 700)).astype(np.int64)
+    assert np.allclose(_bank_voltage_at(t, bank_t, bank_v), np.interp(t, bank_t, bank_v), atol=1e-6)
