@@ -1,10 +1,21 @@
 """A self-contained HTML report an owner can send to an installer (works offline).
 
-One file: plotly.js is embedded inline (no CDN), the figures are drawn from the
-report object (``analysis.report.Report``): state of charge over time with the
-full-charge resyncs, the daily ledger by source, capacity anchor pairs and
-internal resistance per day, the solar days when available, and the data-quality
-notes. Text is escaped; no script other than plotly's and the figure calls.
+One file, drawn with the SAME figure functions as the Dash pages
+(:mod:`dashboard.figures`, fed through the same adapters in
+:mod:`dashboard.data`), so the report and the dashboard look alike and there is
+one implementation of every plot:
+
+* state of charge over time with the full-charge resyncs (trip page),
+* the daily energy ledger by source (trip page),
+* usable capacity, internal resistance and the Peukert fit (health page),
+* solar per day and, when a :class:`analysis.solar.SolarAnalysis` is given,
+  solar power against the clear-sky expectation (solar page),
+* the daily table, the data-quality notes, the text summary and the
+  dashboard footer's safety caution.
+
+plotly.js is embedded inline exactly once (no CDN, no network URL); every piece
+of text from the report is HTML-escaped; the only scripts are plotly's and the
+figure calls plotly writes.
 """
 
 from __future__ import annotations
@@ -13,140 +24,233 @@ import html
 from pathlib import Path
 from typing import Any
 
+import pandas as pd
 import plotly.graph_objects as go
 import plotly.io as pio
 from plotly.offline import get_plotlyjs
 
 from analysis.system import System
+from dashboard import figures
+from dashboard.data import _find_part, _health_of, _report_days, _soc_of, _to_json
 
-_SOURCE_COLOURS = {"solar": "#e0a100", "alternator": "#3a6ea5", "shore": "#5a9e4b", "other": "#8c8c8c"}
+#: The dashboard footer's caution (dashboard/app.py ``_shell``), repeated word for word at the foot of the report.
+SAFETY_CAUTION = ("Figures come from your own logs; advice on cables, fuses and chargers must be checked against "
+                  "local electrical codes by a qualified installer.")
+
+#: Plotly options for the embedded figures: no plotly logo link in the mode bar; resize with the window.
+_PLOT_CONFIG: dict[str, Any] = {"displaylogo": False, "responsive": True}
+
+_P = figures.PALETTE
+_CSS = (
+    f"body{{font:15px/1.45 system-ui,-apple-system,'Segoe UI',Roboto,sans-serif;margin:0;background:#f4f1ea;"
+    f"color:{_P['ink']}}}"
+    "main{max-width:1100px;margin:0 auto;padding:1.2em 1.2em 2em}"
+    f"header{{background:{_P['soc']};color:#fff;padding:0.8em 1.2em}}header h1{{margin:0;font-size:1.4em}}"
+    "header p{margin:0.2em 0 0;opacity:0.85;font-size:0.9em}"
+    "h2{font-size:1.1em;margin:1.6em 0 0.5em}"
+    f".fig{{background:{_P['paper']};border:1px solid #e0dbd0;border-radius:8px;margin:0.8em 0;padding:4px}}"
+    f"table{{border-collapse:collapse;font-size:0.88em;background:{_P['paper']}}}"
+    "td,th{border:1px solid #e0dbd0;padding:3px 8px;text-align:right}th{background:#ece8df}"
+    "td:first-child,th:first-child{text-align:left}"
+    f"pre{{background:{_P['paper']};border:1px solid #e0dbd0;padding:1em;overflow-x:auto;font-size:0.82em}}"
+    f"footer{{color:{_P['muted']};font-size:0.85em;border-top:1px solid #e0dbd0;margin-top:2em;padding-top:0.8em}}"
+)
+
+
+# -- the figures, from the dashboard's own functions -------------------------------------------
+
+def _soc_series(report: Any, j: dict) -> tuple[pd.Series | None, list[pd.Timestamp]]:
+    """The full-resolution SoC series and resyncs (``Report.soc``), else the JSON's thinned copy."""
+    soc, resync = _soc_of(report)
+    if soc is None and j.get("soc_series"):
+        s = j["soc_series"]
+        soc = pd.Series(s["soc_pct"], index=pd.to_datetime(s["t"], utc=True), dtype="float64")
+    return soc, resync
+
+
+def _solar_power(solar: Any, tz: str) -> go.Figure | None:
+    """The solar page's power plot from a SolarAnalysis (None when it has no time series)."""
+    series = getattr(solar, "series", None)
+    if not isinstance(series, pd.DataFrame) or not len(series) or "measured_W" not in series:
+        return None
+    return figures.solar_power_figure(
+        series.index, series["measured_W"].to_numpy(dtype=float),
+        series["expected_W"].to_numpy(dtype=float) if "expected_W" in series else None,
+        saturated=series["saturated"].to_numpy(dtype=bool) if "saturated" in series else None, tz=tz)
+
+
+def report_figures(report: Any, *, system: System | None = None, solar: Any = None
+                   ) -> dict[str, list[go.Figure]]:
+    """The report's figures by section, each built by the dashboard's function for that plot.
+
+    Parameters
+    ----------
+    report
+        An ``analysis.report.Report`` (or anything with ``to_json()`` giving the
+        DESIGN.md report keys).
+    system
+        The system description: gives the timezone of the time axes and the
+        rated capacity/hours for the health plots. Without it the times are UTC
+        and the Peukert plot is left out.
+    solar
+        An ``analysis.solar.SolarAnalysis`` of the same readings: adds the solar
+        power plot (measured vs clear-sky, battery-full periods shaded).
+
+    Returns
+    -------
+    dict
+        ``{"trip": [...], "health": [...], "solar": [...]}`` in page order;
+        the trip and health lists always hold figures (a message figure says
+        why when a value cannot be estimated), the solar list is empty when the
+        report has no solar days.
+    """
+    j = _to_json(report)
+    tz = system.site.timezone if system is not None else "UTC"
+    soc, resync = _soc_series(report, j)
+    trip = [figures.soc_figure(soc, resync_times=resync, tz=tz), figures.ledger_figure(_report_days(report))]
+
+    b = j.get("battery") or {}
+    health: list[go.Figure] = []
+    if system is not None:
+        h = _health_of(report, system)
+        ci = b.get("usable_Ah_ci95")
+        health.append(figures.capacity_figure(h.capacity_points, rated_Ah=h.rated_Ah,
+                                              overall_Ah=b.get("usable_Ah"), overall_ci95=ci))
+        health.append(figures.resistance_figure(h.resistance_points, overall_ohm=b.get("internal_resistance_ohm")))
+        pts = h.peukert_points
+        health.append(figures.peukert_figure([p[0] for p in pts], [p[1] for p in pts], k=b.get("peukert_k"),
+                                             capacity_Ah=h.rated_Ah, rated_hours=h.rated_hours))
+    else:
+        pairs = b.get("anchor_pairs") or []
+        cap = pd.DataFrame({"t": pd.to_datetime([p["end"] for p in pairs], utc=True),
+                            "usable_Ah": [p.get("capacity_Ah") for p in pairs]})
+        health.append(figures.capacity_figure(cap, rated_Ah=float(b.get("rated_Ah") or 0.0),
+                                              overall_Ah=b.get("usable_Ah"), overall_ci95=b.get("usable_Ah_ci95")))
+        ir = b.get("internal_resistance_days") or []
+        res = pd.DataFrame({"t": pd.to_datetime([r["date"] for r in ir]),
+                            "resistance_ohm": [float(r["ohm"]) for r in ir]})
+        health.append(figures.resistance_figure(res, overall_ohm=b.get("internal_resistance_ohm")))
+
+    sol: list[go.Figure] = []
+    days = [d for d in (j.get("solar") or {}).get("days") or [] if d.get("measured_Wh") is not None]
+    if solar is None:
+        solar = _find_part(report, "SolarAnalysis", "solar_analysis")
+    if days:
+        sol.append(figures.solar_daily_figure(days))
+    power = _solar_power(solar, tz) if solar is not None else None
+    if power is not None:
+        sol.append(power)
+    return {"trip": trip, "health": health, "solar": sol}
 
 
 def _fig_html(fig: go.Figure) -> str:
-    return pio.to_html(fig, include_plotlyjs=False, full_html=False, config={"displaylogo": False})
+    # include_plotlyjs=False: the one inline copy is in <head>; to_html adds no CDN link then.
+    body = pio.to_html(fig, include_plotlyjs=False, full_html=False, config=_PLOT_CONFIG,
+                       default_width="100%")
+    return f"<div class='fig'>{body}</div>"
 
 
-def _soc_figure(j: dict) -> go.Figure | None:
-    s = j.get("soc_series")
-    if not s:
-        return None
-    fig = go.Figure(go.Scatter(x=s["t"], y=s["soc_pct"], mode="lines", name="state of charge [%]",
-                               line={"color": "#2b6f77", "width": 1.6}))
-    resyncs = j.get("resyncs") or []
-    if resyncs:
-        fig.add_trace(go.Scatter(x=resyncs, y=[100.0] * len(resyncs), mode="markers", name="full-charge resync",
-                                 marker={"symbol": "triangle-down", "size": 9, "color": "#b5452b"}))
-    anchors = j.get("ocv_anchors") or []
-    if anchors:
-        fig.add_trace(go.Scatter(x=[a["t"] for a in anchors], y=[a["soc_pct"] for a in anchors], mode="markers",
-                                 name="voltage anchor (capacity only)", marker={"size": 6, "color": "#7a5195"}))
-    fig.update_layout(title="State of charge (re-run over the whole history; times in UTC)",
-                      yaxis={"title": "SoC [%]", "range": [0, 105]}, height=360, margin={"t": 50, "b": 40})
-    return fig
+# -- text parts --------------------------------------------------------------------------------
 
-
-def _ledger_figure(j: dict) -> go.Figure:
-    days = j["days"]
-    x = [d["date"] for d in days]
-    fig = go.Figure()
-    for s, colour in _SOURCE_COLOURS.items():
-        fig.add_trace(go.Bar(x=x, y=[d["charged_Ah"][s] for d in days], name=f"charged: {s}",
-                             marker_color=colour))
-    fig.add_trace(go.Bar(x=x, y=[-(d["consumed_Ah"] or 0) for d in days], name="consumed", marker_color="#444"))
-    fig.update_layout(barmode="relative", title="Daily ledger by source [Ah] (local days; consumed below zero)",
-                      yaxis={"title": "Ah per day"}, height=360, margin={"t": 50, "b": 40})
-    return fig
-
-
-def _capacity_figure(j: dict) -> go.Figure | None:
-    b = j["battery"]
-    pairs = b.get("anchor_pairs") or []
-    ir = b.get("internal_resistance_days") or []
-    if not pairs and not ir:
-        return None
-    fig = go.Figure()
-    if pairs:
-        fig.add_trace(go.Scatter(x=[p["end"] for p in pairs], y=[p["capacity_Ah"] for p in pairs], mode="markers",
-                                 name="capacity from one anchor pair [Ah]", marker={"size": 8, "color": "#2b6f77"}))
-        fig.add_hline(y=b["rated_Ah"], line_dash="dot", annotation_text="rated")
-        if b.get("usable_Ah") is not None:
-            fig.add_hline(y=b["usable_Ah"], line_color="#b5452b", annotation_text="usable (WLS)")
-    if ir:
-        fig.add_trace(go.Scatter(x=[r["date"] for r in ir], y=[1000 * r["ohm"] for r in ir], mode="lines+markers",
-                                 name="internal resistance [mOhm]", yaxis="y2", line={"color": "#7a5195"}))
-    fig.update_layout(title="Capacity and internal resistance", height=340, margin={"t": 50, "b": 40},
-                      yaxis={"title": "Ah"}, yaxis2={"title": "mOhm", "overlaying": "y", "side": "right"})
-    return fig
-
-
-def _solar_figure(j: dict) -> go.Figure | None:
-    s = j.get("solar") or {}
-    days = [d for d in s.get("days") or [] if d.get("measured_Wh") is not None]
-    if not days:
-        return None
-    fig = go.Figure([go.Bar(x=[d["date"] for d in days], y=[d["measured_Wh"] for d in days], name="measured [Wh]",
-                            marker_color="#e0a100"),
-                     go.Bar(x=[d["date"] for d in days], y=[d.get("expected_Wh") for d in days],
-                            name="expected for the site and sky [Wh]", marker_color="#c9c9c9")])
-    fig.update_layout(barmode="group", title="Solar yield per day", height=320, margin={"t": 50, "b": 40})
-    return fig
+def _f(x: Any, nd: int = 1) -> str:
+    return "-" if x is None else f"{x:.{nd}f}"
 
 
 def _table(j: dict) -> str:
-    head = ("<tr><th>date</th><th>complete</th><th>consumed Ah</th><th>consumed Wh</th><th>solar Ah</th>"
-            "<th>alternator Ah</th><th>shore Ah</th><th>other Ah</th><th>SoC min %</th><th>SoC end %</th></tr>")
+    head = ("<tr><th>date</th><th>whole day</th><th>used [Ah]</th><th>used [Wh]</th><th>solar [Ah]</th>"
+            "<th>alternator [Ah]</th><th>shore [Ah]</th><th>other [Ah]</th><th>lowest SoC [%]</th>"
+            "<th>SoC at midnight [%]</th></tr>")
     rows = []
-
-    def f(x: Any, nd: int = 1) -> str:
-        return "-" if x is None else f"{x:.{nd}f}"
-
-    for d in j["days"]:
+    for d in j["days"]:  # a loop over days, not readings
         c = d["charged_Ah"]
-        rows.append(f"<tr><td>{html.escape(d['date'])}</td><td>{'yes' if d['complete'] else 'no'}</td>"
-                    f"<td>{f(d['consumed_Ah'])}</td><td>{f(d['consumed_Wh'], 0)}</td><td>{f(c['solar'])}</td>"
-                    f"<td>{f(c['alternator'])}</td><td>{f(c['shore'])}</td><td>{f(c['other'])}</td>"
-                    f"<td>{f(d['soc_min_pct'])}</td><td>{f(d['soc_end_pct'])}</td></tr>")
+        rows.append(f"<tr><td>{html.escape(str(d['date']))}</td><td>{'yes' if d['complete'] else 'partial'}</td>"
+                    f"<td>{_f(d['consumed_Ah'])}</td><td>{_f(d['consumed_Wh'], 0)}</td><td>{_f(c['solar'])}</td>"
+                    f"<td>{_f(c['alternator'])}</td><td>{_f(c['shore'])}</td><td>{_f(c['other'])}</td>"
+                    f"<td>{_f(d['soc_min_pct'], 0)}</td><td>{_f(d['soc_end_pct'], 0)}</td></tr>")
     return f"<table>{head}{''.join(rows)}</table>"
 
 
-def render_html(report: Any, *, system: System | None = None) -> str:
-    """The whole report as one HTML document (plotly.js inline, no network needed)."""
+def _quality(j: dict) -> str:
+    dq = j["data_quality"]
+    e = html.escape
+    items = [f"{int(dq['rows_stored'])} rows stored, {int(dq['rows_rejected'])} rejected at import, "
+             f"{len(dq['gaps'])} gap(s); {int(dq.get('complete_days', 0))} whole day(s)."]
+    if dq["gaps"]:
+        total_h = sum(float(g.get("seconds") or 0) for g in dq["gaps"]) / 3600
+        items.append(f"{len(dq['gaps'])} gap(s) in the log, {total_h:.1f} h in all: nothing is integrated "
+                     "across a gap, so those days are marked partial.")
+        longest = sorted(dq["gaps"], key=lambda g: -float(g.get("seconds") or 0))[:20]
+        items += [f"gap on {e(str(g.get('channel', '?')))} from {e(str(g['start']))} to {e(str(g['end']))} "
+                  f"({float(g['seconds']):.0f} s): energy unknown" for g in longest]
+    items += [e(str(n)) for n in dq.get("notes", [])]
+    return "<ul>" + "".join(f"<li>{i}</li>" for i in items) + "</ul>"
+
+
+def _period_text(period: dict, tz: str) -> str:
+    """'Period 2026-04-06 00:00 to 2026-04-19 23:59 (Europe/Oslo), 14 local days; ...' in local time."""
+    try:
+        a, b = (pd.Timestamp(period[k]).tz_convert(tz).strftime("%Y-%m-%d %H:%M") for k in ("start", "end"))
+    except (KeyError, TypeError, ValueError):
+        a, b, tz = str(period.get("start")), str(period.get("end")), "UTC"
+    return (f"Period {a} to {b} ({tz}), {int(period.get('days') or 0)} local days; "
+            "plot times are local.")
+
+
+def render_html(report: Any, *, system: System | None = None, solar: Any = None) -> str:
+    """The whole report as one HTML document (plotly.js inline once, no network needed).
+
+    Parameters
+    ----------
+    report
+        An ``analysis.report.Report``.
+    system
+        The system description (title, timezone of the time axes, rated figures
+        for the health plots); optional.
+    solar
+        An ``analysis.solar.SolarAnalysis`` of the same readings for the solar
+        power plot; optional (the per-day solar plot comes from the report).
+
+    Returns
+    -------
+    str
+        A complete HTML5 document.
+    """
     from dashboard.commands.report import describe
 
-    j = report.to_json()
-    figs = [f for f in (_soc_figure(j), _ledger_figure(j), _capacity_figure(j), _solar_figure(j)) if f is not None]
-    summary = html.escape("\n".join(describe(j)))
-    dq = j["data_quality"]
-    notes = "".join(f"<li>{html.escape(str(n))}</li>" for n in dq.get("notes", []))
-    gaps = "".join(f"<li>{html.escape(g['start'])} to {html.escape(g['end'])} ({g['seconds']:.0f} s): "
-                   "energy unknown</li>" for g in dq["gaps"][:50])
+    j = _to_json(report)
+    figs = report_figures(report, system=system, solar=solar)
+    e = html.escape
     title = "drawdown report"
     if system is not None:
         b = system.battery
         title += f" - {b.nominal_voltage_V:g} V {b.chemistry} bank, {b.rated_capacity_Ah:g} Ah"
+    p = j["period"]
+    tz = system.site.timezone if system is not None else str(p.get("timezone") or "UTC")
+    s = j.get("solar") or {}
+    if figs["solar"]:
+        solar_part = "".join(_fig_html(f) for f in figs["solar"])
+    else:
+        why = s.get("performance_ratio_why") or "no solar days in this range"
+        solar_part = f"<p>No solar plot: {e(str(why))}.</p>"
     return (
         "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>"
-        f"<title>{html.escape(title)}</title>"
-        "<style>body{font-family:system-ui,sans-serif;margin:2em;max-width:1100px;color:#222}"
-        "table{border-collapse:collapse;font-size:0.9em}td,th{border:1px solid #ccc;padding:3px 8px;"
-        "text-align:right}pre{background:#f6f6f6;padding:1em;overflow-x:auto;font-size:0.85em}</style>"
+        "<meta name='viewport' content='width=device-width, initial-scale=1'>"
+        f"<title>{e(title)}</title><style>{_CSS}</style>"
         f"<script type='text/javascript'>{get_plotlyjs()}</script></head><body>"
-        f"<h1>{html.escape(title)}</h1>"
-        f"<p>Period {html.escape(j['period']['start'])} to {html.escape(j['period']['end'])}, "
-        f"{j['period']['days']} local days ({html.escape(str(j['period'].get('timezone', '')))}).</p>"
-        + "".join(_fig_html(f) for f in figs)
+        f"<header><h1>{e(title)}</h1><p>{e(_period_text(p, tz))}</p></header><main>"
+        "<h2>State of charge and daily ledger</h2>" + "".join(_fig_html(f) for f in figs["trip"])
+        + "<h2>Battery health</h2>" + "".join(_fig_html(f) for f in figs["health"])
+        + "<h2>Solar</h2>" + solar_part
         + "<h2>Daily ledger</h2>" + _table(j)
-        + "<h2>Data quality</h2>"
-        f"<p>{dq['rows_stored']} rows stored, {dq['rows_rejected']} rejected at import, {len(dq['gaps'])} gap(s).</p>"
-        + (f"<ul>{gaps}</ul>" if gaps else "") + (f"<ul>{notes}</ul>" if notes else "")
-        + f"<h2>Summary</h2><pre>{summary}</pre>"
-        "<p><small>Made by drawdown from logged readings. Values that cannot be estimated are shown "
-        "as '-' with the reason. Have electrical changes checked by a qualified installer.</small></p>"
-        "</body></html>")
+        + "<h2>Data quality</h2>" + _quality(j)
+        + f"<h2>Summary</h2><pre>{e(chr(10).join(describe(j)))}</pre>"
+        f"<footer><p>{e(SAFETY_CAUTION)}</p><p>Made by drawdown from logged readings. Values that cannot be "
+        "estimated are shown as '-' with the reason.</p></footer>"
+        "</main></body></html>")
 
 
-def write_html(report: Any, path: Path, *, system: System | None = None) -> Path:
+def write_html(report: Any, path: Path, *, system: System | None = None, solar: Any = None) -> Path:
     """Write :func:`render_html` to ``path`` (folders created); returns the path."""
     path.parent.mkdir(parents=True, exist_ok=True)
-    path.write_text(render_html(report, system=system), encoding="utf-8")
+    path.write_text(render_html(report, system=system, solar=solar), encoding="utf-8")
     return path

@@ -161,5 +161,4 @@ def run(args: Any, ctx: Context) -> int:
     if serve is None:
         print("the dashboard (dashboard.app.serve) is not installed; stopping here", file=sys.stderr)
         return 0
-    print(f"dashboard: http://{args.host}:{args.port}/ (Ctrl-C to stop)", file=sys.stderr)
     return int(serve(ctx, args.host, args.port) or 0)
