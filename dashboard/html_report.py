@@ -37,11 +37,14 @@ from dashboard.data import _find_part, _health_of, _report_days, _soc_of, _to_js
 SAFETY_CAUTION = ("Figures come from your own logs; advice on cables, fuses and chargers must be checked against "
                   "local electrical codes by a qualified installer.")
 
-#: Plotly options for the embedded figures: no plotly logo link in the mode bar; resize with the window.
-_PLOT_CONFIG: dict[str, Any] = {"displaylogo": False, "responsive": True}
+#: Plotly options for the embedded figures: resize with the window; no plotly logo link and no
+#: "Share chart..." button in the mode bar (plotly.js 4 shows it by default; it uploads to a web service).
+_PLOT_CONFIG: dict[str, Any] = {"displaylogo": False, "showSendToCloud": False, "responsive": True}
 
 _P = figures.PALETTE
 _CSS = (
+    # A scroll bar from the start: plotly sizes each plot to its box once, before the page grows long.
+    "html{overflow-y:scroll}"
     f"body{{font:15px/1.45 system-ui,-apple-system,'Segoe UI',Roboto,sans-serif;margin:0;background:#f4f1ea;"
     f"color:{_P['ink']}}}"
     "main{max-width:1100px;margin:0 auto;padding:1.2em 1.2em 2em}"
@@ -49,6 +52,7 @@ _CSS = (
     "header p{margin:0.2em 0 0;opacity:0.85;font-size:0.9em}"
     "h2{font-size:1.1em;margin:1.6em 0 0.5em}"
     f".fig{{background:{_P['paper']};border:1px solid #e0dbd0;border-radius:8px;margin:0.8em 0;padding:4px}}"
+    ".wide{overflow-x:auto}"
     f"table{{border-collapse:collapse;font-size:0.88em;background:{_P['paper']}}}"
     "td,th{border:1px solid #e0dbd0;padding:3px 8px;text-align:right}th{background:#ece8df}"
     "td:first-child,th:first-child{text-align:left}"
@@ -167,14 +171,15 @@ def _table(j: dict) -> str:
                     f"<td>{_f(d['consumed_Ah'])}</td><td>{_f(d['consumed_Wh'], 0)}</td><td>{_f(c['solar'])}</td>"
                     f"<td>{_f(c['alternator'])}</td><td>{_f(c['shore'])}</td><td>{_f(c['other'])}</td>"
                     f"<td>{_f(d['soc_min_pct'], 0)}</td><td>{_f(d['soc_end_pct'], 0)}</td></tr>")
-    return f"<table>{head}{''.join(rows)}</table>"
+    # The wrapper scrolls a wide table sideways on a phone instead of widening the whole page.
+    return f"<div class='wide'><table>{head}{''.join(rows)}</table></div>"
 
 
 def _quality(j: dict) -> str:
     dq = j["data_quality"]
     e = html.escape
-    items = [f"{int(dq['rows_stored'])} rows stored, {int(dq['rows_rejected'])} rejected at import, "
-             f"{len(dq['gaps'])} gap(s); {int(dq.get('complete_days', 0))} whole day(s)."]
+    items = [(f"{int(dq['rows_stored'])} rows stored, {int(dq['rows_rejected'])} rejected at import, "
+              f"{len(dq['gaps'])} gap(s); {int(dq.get('complete_days', 0))} whole day(s).")]
     if dq["gaps"]:
         total_h = sum(float(g.get("seconds") or 0) for g in dq["gaps"]) / 3600
         items.append(f"{len(dq['gaps'])} gap(s) in the log, {total_h:.1f} h in all: nothing is integrated "

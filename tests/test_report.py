@@ -126,6 +126,24 @@ def test_report_html_is_self_contained_and_offline(store_dir, capsys):
     assert "Daily ledger" in text and "Data quality" in text
 
 
+def test_report_html_command_draws_the_dashboard_figures_with_plotly_inline_once(store_dir, capsys):
+    from plotly.offline import get_plotlyjs
+
+    from dashboard.html_report import SAFETY_CAUTION
+
+    with Store(store_dir / "r.sqlite") as st:
+        st.append(_frame())
+    page = store_dir / "report.html"
+    assert main(["--store", str(store_dir / "r.sqlite"), "report", "--html", str(page)]) == 0
+    text = page.read_text()
+    assert text.count(get_plotlyjs()) == 1
+    # The dashboard's figure titles (dashboard/figures.py), not a second implementation's.
+    for title in ('"text":"State of charge"', '"text":"Daily energy ledger"', '"text":"Usable capacity"'):
+        assert title in text
+    assert SAFETY_CAUTION in text
+    assert f"wrote {page}" in capsys.readouterr().err
+
+
 def test_bad_date_is_a_usage_error_naming_the_option(store_dir, capsys):
     with Store(store_dir / "r.sqlite") as st:
         st.append(_frame(days=1))
