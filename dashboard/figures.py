@@ -400,7 +400,10 @@ def peukert_figure(current_A: Sequence[float] | None, hours: Sequence[float] | N
     fig.update_xaxes(type="log", title_text="discharge current [A]")
     fig.update_yaxes(type="log", title_text="runtime to empty [h]")
     fig.update_layout(hovermode="closest")
-    return _base_layout(fig, title="Peukert fit")
+    fig = _base_layout(fig, title="Peukert fit")
+    # This plot has an x-axis title: move the legend clear of it.
+    fig.update_layout(legend_y=-0.24, margin_b=84)
+    return fig
 
 
 # -- solar ---------------------------------------------------------------------------------

@@ -9,7 +9,7 @@ from typing import Any
 from dash import dcc, html
 
 #: dcc.Graph options: fit the container (phones), keep the toolbar small, no plotly logo.
-GRAPH_CONFIG: dict[str, Any] = {"responsive": True, "displaylogo": False,
+GRAPH_CONFIG: dict[str, Any] = {"responsive": True, "displaylogo": False, "showSendToCloud": False,
                                 "modeBarButtonsToRemove": ["select2d", "lasso2d", "autoScale2d"]}
 
 
