@@ -20,12 +20,15 @@ current ~0, or a small flat float current for lead-acid, at a charged voltage)
 shows no steps at all. There, and on a day whose reconstruction strays far from
 the other days, the load is the median over days of the same local hour's known
 or reconstructed load. A statsmodels load model (hour-of-day harmonics, day type,
-temperature) fitted on the nights gives the prediction interval and stands in for
-hours never seen. The gross charge ``net + load`` is attributed to sources by
+temperature) fitted on the nights stands in for hours never seen. The 95 %
+interval of a day's consumption comes from the rebuild's own errors, measured on
+the nights where the load is seen whole. The gross charge ``net + load`` is attributed to sources by
 signature: a flat, current-limited plateau that switches on and off with a step
 is a charger or an alternator (``alternator`` when it is daytime and short,
 ``shore`` when long, at night or followed by a bank held through the night);
-charge that follows the sun is solar. Every day carries a confidence (0-1) for
+charge that follows the sun is solar, up to what the arrays give under a clear sky
+(pvlib, :func:`analysis.solar_model.expected_clear_sky`). A plateau starts with a
+rise near a declared charger's rating. Every day carries a confidence (0-1) for
 the split.
 
 Days are the system's local calendar days (``site.timezone``). A day is
@@ -80,6 +83,10 @@ STRAY_RATIO = 1.4
 STRAY_AH = 3.0
 #: Shortest charger or alternator plateau [s]: sunny gaps between clouds last minutes.
 PLATEAU_MIN_S = 1200.0
+#: Solar above this factor x the arrays' clear-sky output is not solar (cloud-edge enhancement allowed).
+SOLAR_CAP_MARGIN = 1.2
+#: A plateau starts with a rise of at least this fraction of the smallest declared charger's rating.
+PLATEAU_RATING_FRACTION = 0.5
 #: Quantile of the event-free load taken as the always-on base load.
 BASE_Q = 0.05
 MAX_EVENT_H = 10.0
@@ -574,7 +581,6 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
         fit = sm.WLS(load_obs[train], X[train], weights=covered[train]).fit()
         pred_frame = fit.get_prediction(X).summary_frame(alpha=0.05)
         pred = np.clip(pred_frame["mean"].to_numpy(), 0.0, None)
-        se_mean = pred_frame["mean_se"].to_numpy()
         resid_sd = float(np.sqrt(fit.scale))
         with np.errstate(divide="ignore", invalid="ignore"):  # a constant load has no variance to explain
             r2 = float(fit.rsquared)
@@ -585,7 +591,6 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
         np.clip(pred, 0.0, hi, out=pred)
     else:
         pred = np.full(n_bins, float(np.median(load_obs[train])) if train.any() else 0.0)
-        se_mean = np.full(n_bins, float(np.std(load_obs[train])) if train.any() else 0.0)
         resid_sd = float(np.std(load_obs[train])) if train.any() else 0.0
         notes.append("too few non-charging periods to fit the single-shunt load model; a constant was used")
     observed = (train | (~widen & ~(solar_possible & (elev >= -3.0)))) & ~held
@@ -610,7 +615,8 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     p_day = np.bincount(day_of_bin[hid_read], weights=(profile * hrs)[hid_read], minlength=n_days)[:n_days]
     stray = (r_day > STRAY_RATIO * p_day + STRAY_AH) | (r_day < p_day / STRAY_RATIO - STRAY_AH)
     readable &= ~stray[day_of_bin]
-    fallback = np.maximum(np.where(np.isfinite(profile), profile, np.maximum(pred, floor)), load_obs)
+    typical = np.where(np.isfinite(profile), profile, np.maximum(pred, floor))
+    fallback = _hour_topped_up(load_obs, typical, hrs, t_mid, ~observed & ~readable)
     load_a = np.where(observed, load_obs, np.where(readable, recon, fallback))
     load_a = np.where(np.isfinite(net), load_a, 0.0)
     gross = np.clip(np.nan_to_num(net, nan=0.0) + load_a, 0.0, None)
@@ -618,15 +624,30 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     cols["consumed_Ah"] += np.bincount(d_bin, weights=load_a * hrs, minlength=n_days)[:n_days]
     cols["consumed_Wh"] += np.bincount(d_bin, weights=load_a * hrs * np.nan_to_num(v_bin, nan=0.0),
                                        minlength=n_days)[:n_days]
-    # Prediction interval per day: model (mean) error fully correlated within the day,
-    # residual noise independent per hour-long block (fridge duty cycles are ~tens of minutes).
-    pred_h = np.where(observed, 0.0, hrs)
-    sum_se = np.bincount(d_bin, weights=se_mean * pred_h, minlength=n_days)[:n_days]
-    pred_hours = np.bincount(d_bin, weights=pred_h, minlength=n_days)[:n_days]
-    half = 1.96 * np.sqrt(sum_se ** 2 + resid_sd ** 2 * pred_hours * 1.0)
+    # Prediction interval per day from the rebuild's own errors. On the nights the load is
+    # seen whole, so both ways of filling hidden hours (base + paired steps, and the
+    # hour-of-day median) can be checked against it hour by hour. Each hidden hour carries
+    # the larger of the two RMS errors, independent from hour to hour.
+    hidden = ~observed & np.isfinite(net)
+    sd_hour = max(_hourly_error_sd(base_level + events - load_obs, hrs, t_mid, train),
+                  _hourly_error_sd(np.where(np.isfinite(profile), profile, pred) - load_obs, hrs, t_mid, train))
+    hidden_h = np.bincount(d_bin, weights=np.where(hidden, hrs, 0.0), minlength=n_days)[:n_days]
+    half = 1.96 * sd_hour * np.sqrt(hidden_h)
     extras["consumed_Ah_pi95_lo"] = np.maximum(cols["consumed_Ah"] - half, 0.0)
     extras["consumed_Ah_pi95_hi"] = cols["consumed_Ah"] + half
-    parts, conf = _attribute(gross, hrs, elev, hour, system, bin_s, held)
+    solar_max = None
+    if solar_possible:
+        # Solar cannot deliver more than the arrays' clear-sky output (pvlib), plus what
+        # cloud-edge enhancement may add (SOLAR_CAP_MARGIN).
+        from analysis.solar_model import expected_clear_sky
+
+        times = pd.DatetimeIndex(t_mid.view("M8[us]")).tz_localize("UTC")
+        v_ok = np.isfinite(v_bin)
+        exp = expected_clear_sky(times, system, battery_voltage_V=pd.Series(v_bin[v_ok], index=times[v_ok])
+                                 if v_ok.any() else None)
+        v_div = np.where(v_ok, v_bin, system.battery.nominal_voltage_V)
+        solar_max = SOLAR_CAP_MARGIN * np.nan_to_num(exp["delivered_W"].to_numpy(), nan=0.0) / v_div
+    parts, conf = _attribute(gross, hrs, elev, hour, system, bin_s, held, solar_max)
     for name in SOURCES:
         cols[f"charged_Ah_{name}"] += np.bincount(d_bin, weights=parts[name] * hrs, minlength=n_days)[:n_days]
         cols[f"charged_Wh_{name}"] += np.bincount(
@@ -679,6 +700,47 @@ def _hourly_median(load_A: np.ndarray, hrs: np.ndarray, hour: np.ndarray, t_mid:
     return table[hr]
 
 
+def _hour_topped_up(seen_A: np.ndarray, typical_A: np.ndarray, hrs: np.ndarray, t_mid: np.ndarray,
+                    use: np.ndarray) -> np.ndarray:
+    """The load [A] per bin over the bins ``use``: what is seen, topped up evenly to the typical hour.
+
+    Within each clock hour, the bins ``use`` carry at least the load seen there
+    (``seen_A``, the bank's discharge) and together at least the typical load of
+    that hour (``typical_A``, an hour mean that already includes its occasional big
+    loads): the shortfall ``max(0, typical - seen)`` [Ah] is spread evenly over the
+    hour's bins. A kettle seen in the bank's discharge is then not counted twice.
+    """
+    out = np.where(use, seen_A, 0.0)
+    if not use.any():
+        return out
+    block = (t_mid // int(3600 * US_PER_S)).astype(np.int64)
+    block = block - block.min()
+    w = np.where(use, hrs, 0.0)
+    h_b = np.bincount(block, weights=w)
+    short = np.bincount(block, weights=(typical_A - seen_A) * w)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        top = np.where(h_b > 0, np.clip(short, 0.0, None) / np.maximum(h_b, 1e-12), 0.0)
+    return np.where(use, seen_A + top[block], 0.0)
+
+
+def _hourly_error_sd(err_A: np.ndarray, hrs: np.ndarray, t_mid: np.ndarray, use: np.ndarray) -> float:
+    """Root-mean-square of the hour-block means of ``err_A`` [A] over the bins ``use``.
+
+    An hour counts when the bins ``use`` cover at least half of it. With the
+    hour-block errors independent, a day's 95 % half-width [Ah] over H hidden
+    hours is ``1.96 x rms x sqrt(H)``. Returns 0 when no hour qualifies.
+    """
+    if not use.any():
+        return 0.0
+    block = (t_mid // int(3600 * US_PER_S)).astype(np.int64)[use]
+    frame = pd.DataFrame({"b": block, "e": (np.nan_to_num(err_A) * hrs)[use], "h": hrs[use]})
+    per = frame.groupby("b").sum()
+    per = per[per["h"] >= 0.5]
+    if not len(per):
+        return 0.0
+    return float(np.sqrt(np.mean((per["e"] / per["h"]) ** 2)))
+
+
 def _hourly_floor(load_obs: np.ndarray, hrs: np.ndarray, hour: np.ndarray, t_mid: np.ndarray, bin_us: int,
                   observed: np.ndarray, *, q: float = 0.75) -> np.ndarray:
     """Per bin, the q-quantile over days of that local hour's mean ``-net`` (0 with < 3 days)."""
@@ -697,7 +759,8 @@ def _hourly_floor(load_obs: np.ndarray, hrs: np.ndarray, hour: np.ndarray, t_mid
 
 
 def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.ndarray, system: System,
-               bin_s: float, held: np.ndarray | None = None) -> tuple[dict[str, np.ndarray], np.ndarray]:
+               bin_s: float, held: np.ndarray | None = None, solar_max_A: np.ndarray | None = None
+               ) -> tuple[dict[str, np.ndarray], np.ndarray]:
     """Split gross charge current per bin into sources by signature; returns (parts [A], confidence 0-1).
 
     Charging runs are contiguous bins with gross charge. Inside a run, a step
@@ -709,11 +772,19 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
     The rest follows the sun (solar) when the sun is up, else ``other``.
     Bins where a charger holds the full bank (``held``) end a run: what they
     carry is solar while the sun is up, else the source of the last plateau.
+    A plateau must start with a rise of at least :data:`PLATEAU_RATING_FRACTION`
+    x the smallest declared charger's ``max_current_A`` (a charger starts at its
+    rating), unless a hold is near (a charger topping off a full bank is throttled).
+    Daytime charge above ``solar_max_A`` (the arrays' clear-sky output x
+    :data:`SOLAR_CAP_MARGIN`, in A at the bank) is not solar: it goes to the
+    source of the last plateau (a bank absorbing after a drive or a hook-up), or
+    to ``other``.
     """
     n = len(gross)
     parts = {s: np.zeros(n) for s in SOURCES}
     conf = np.zeros(n)
     declared = {c.source for c in system.charger}
+    min_rating = min((c.max_current_A for c in system.charger), default=0.0)
     thr = max(0.3, 0.0015 * system.battery.rated_capacity_Ah)
     held = np.zeros(n, dtype=bool) if held is None else held
     on = (gross > thr) & ~held
@@ -752,6 +823,13 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
             while d + 1 in down_set:
                 d += 1
             if (d - u) * bin_s < PLATEAU_MIN_S:  # a load switching off or a gap in the clouds
+                continue
+            # A charger or an alternator's DC-DC switches on at (near) its rated current; a
+            # smaller rise is a load switching off or the sun coming out.
+            # (A charger topping off a full bank is throttled: a plateau next to a hold may be lower.)
+            rise = max(float(dg[u]), float(ext[min(u + 2, len(ext) - 1)] - ext[u]))
+            near_hold = held_cum[min(n, s + d + look)] > held_cum[max(0, s + u - look)]
+            if rise < PLATEAU_RATING_FRACTION * min_rating and not near_hold:
                 continue
             base_l = ext[u]
             base_r = ext[d + 1] if d + 1 < len(ext) else 0.0
@@ -793,8 +871,19 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
         parts[name][m] = rest[m]
         conf[m] = 0.6
         rest[m] = 0.0
+    if solar_max_A is not None:
+        # Charge beyond what the sun can give is the source of the last plateau (a bank
+        # absorbing after a drive or a hook-up), else an unknown source.
+        excess = np.where(day, np.clip(rest - solar_max_A, 0.0, None), 0.0)
+        for name in ("alternator", "shore"):
+            m = (excess > 0) & (last == name)
+            parts[name][m] += excess[m]
+            rest[m] -= excess[m]
+            excess[m] = 0.0
+        parts["other"] += excess
+        rest -= excess
     parts["solar"] = np.where(day, rest, 0.0)
-    parts["other"] = np.where(day, 0.0, rest)
+    parts["other"] += np.where(day, 0.0, rest)
     # Confidence of the solar share: how well the day's solar follows sin(elevation).
     dayno = np.floor((np.arange(n) * bin_s) / 86400.0).astype(np.int64)
     sol = parts["solar"]

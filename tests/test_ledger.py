@@ -188,11 +188,14 @@ def test_multichannel_fixture_consumed_Ah_within_2_percent_of_simulator_truth(sc
             assert getattr(row, f"charged_Ah_{s}") == pytest.approx(td["charged_Ah"][s], rel=0.02, abs=0.2)
 
 
-@pytest.mark.xfail(strict=True, reason="known gap: on these 4-5 day fixtures some days miss ±8 % "
-                   "(autumn-van +14 %/+10 % on its partly cloudy and shore days; spring-truck -4...-23 %): "
-                   "load steps cannot be told from cloud steps on partly cloudy days, and a bank held by a "
-                   "charger hides the load, which then comes from the same hours of only a few other days")
-@pytest.mark.parametrize("scenario", ["autumn-van", "spring-truck"])
+@pytest.mark.parametrize("scenario", [
+    "autumn-van",  # within ±8 % on all 4 fixture days (worst +7.9 %)
+    pytest.param("spring-truck", marks=pytest.mark.xfail(
+        strict=True, reason="known gap: spring-truck's fixture days are -4...-23 %: on its 24 V AGM bank "
+                            "the load under an alternator drive is under-rebuilt (steps are lost in the "
+                            "charging current), and under absorption/float holds it comes from the "
+                            "hour-of-day median of only 5 days")),
+])
 def test_single_shunt_fixture_consumed_Ah_within_8_percent_of_simulator_truth(scenario):
     from analysis.system import parse_system
     csv = FIX / scenario / "sample_single_shunt.csv"
