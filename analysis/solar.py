@@ -142,6 +142,10 @@ class SolarAnalysis:
             out["performance_ratio_why"] = self.performance_ratio_why
         out["performance_ratio_spread"] = self.performance_ratio_spread
         out["derate_vs_dc"] = _r(self.derate_vs_dc, 3)
+        # Null never stands without its reason (DESIGN.md): these follow the ratio's.
+        for key in ("performance_ratio_spread", "derate_vs_dc"):
+            if out[key] is None:
+                out[f"{key}_why"] = self.performance_ratio_why or "no clear, unsaturated day to measure it on"
         out["days"] = [_day_json(row) for row in self.days.to_dict("records")]
         out["diagnostics"] = self.diagnostics
         out["hourly"] = self.hourly_profile
