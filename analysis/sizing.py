@@ -55,6 +55,7 @@ from analysis import autonomy as _auto
 from analysis import catalogue as _cat
 from analysis import design_method as _dm
 from analysis.cautions import build_cautions
+from analysis.charging import dc_dc_input_current_A
 from analysis.system import System
 from analysis.wiring import RunSizing, size_run
 
@@ -81,6 +82,17 @@ INVERTER_EFFICIENCY: float = 0.90
 INVERTER_EFFICIENCY_AT_CUTOFF: float = 0.88
 #: Low-voltage cut-off per 12 V block [V] (FIELDREF §7 example).
 LOW_VOLTAGE_CUTOFF_PER_12V: float = 10.5
+
+
+def inverter_dc_current_A(ac_power_W: float, voltage_V: float, efficiency: float) -> float:
+    """DC input current of an inverter [A]: I_dc = P_ac / (V · η).
+
+    Size the cable and fuse at the low-voltage cut-off, where the current is highest
+    (FIELDREF §7).
+    """
+    if voltage_V <= 0 or not 0 < efficiency <= 1:
+        raise ValueError(f"need voltage_V > 0 and 0 < efficiency <= 1, got {voltage_V} V and {efficiency}")
+    return ac_power_W / (voltage_V * efficiency)
 #: Inverter idle draw as a fraction of its rating (FIELDREF §7: 0.5-1.5 %, common practice).
 INVERTER_IDLE_FRACTION: float = 0.01
 #: Continuous-rating margin over the AC loads that run together (common practice).
@@ -526,8 +538,8 @@ def recommend(system: System, days: pd.DataFrame | None, *, autonomy_days: float
                         "largest catalogue inverter (3000 W): split the loads or use a higher-voltage system",
                         "required_continuous_W": cont_need, "required_surge_W": surge_need}
         else:
-            i_nom = inv_W / (v * INVERTER_EFFICIENCY)
-            i_cut = inv_W / (v_cut * INVERTER_EFFICIENCY_AT_CUTOFF)
+            i_nom = inverter_dc_current_A(inv_W, v, INVERTER_EFFICIENCY)
+            i_cut = inverter_dc_current_A(inv_W, v_cut, INVERTER_EFFICIENCY_AT_CUTOFF)
             inverter = {"continuous_W": inv_W, "surge_W": inv_W * _cat.INVERTER_SURGE_MULTIPLE,
                         "required_continuous_W": cont_need, "required_surge_W": surge_need,
                         "dc_input_A_nominal": i_nom, "dc_input_A_at_cutoff": i_cut,
@@ -698,7 +710,7 @@ def recommend(system: System, days: pd.DataFrame | None, *, autonomy_days: float
             capped = True
         present_A = max((c.max_current_A for c in alt), default=None)
         v_out = DC_DC_OUTPUT_PER_12V * round(b.series_12V_blocks)
-        i_in = dc_pick * v_out / (DC_DC_INPUT_V * DC_DC_EFFICIENCY)
+        i_in = float(dc_dc_input_current_A(dc_pick, v_out, DC_DC_INPUT_V, efficiency=DC_DC_EFFICIENCY))
         rating = max((c.alternator_rating_A for c in alt if c.alternator_rating_A), default=None)
         dc_dc = {"current_A": dc_pick, "required_A": need_A, "driving_h_per_day": drive_h,
                  "driving_h_source": drive_src, "present_A": present_A,

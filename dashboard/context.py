@@ -65,8 +65,9 @@ class Context:
 
 def print_json(obj: Any) -> None:
     """The one JSON object a --json command prints on stdout."""
-    json.dump(_clean(obj), sys.stdout, indent=2, default=_json_default, allow_nan=False)
-    sys.stdout.write("\n")
+    # Encode first, then write: a failure half-way must not leave half an object on stdout.
+    text = json.dumps(_clean(obj), indent=2, default=_json_default, allow_nan=False)
+    sys.stdout.write(text + "\n")
 
 
 def _clean(obj: Any) -> Any:

@@ -225,8 +225,7 @@ def test_sizing_is_computed_once_per_range_and_targets(app_ctx):
     src = app_ctx.source
     rng = src.default_range()
     first = src.sizing(*rng, autonomy_days=2, percentile=90)
-    if not first.ok:
-        pytest.skip(f"analysis.sizing not usable yet: {first.why}")
+    assert first.ok, first.why
     assert src.sizing(*rng, autonomy_days=2, percentile=90).value is first.value
     assert src.sizing(*rng, autonomy_days=4, percentile=90).value is not first.value
 
@@ -384,8 +383,7 @@ def test_trip_range_change_changes_the_ledger(app_ctx):
     src = app_ctx.source
     full = src.full_range()
     days = src.days(*full)
-    if not days.ok:
-        pytest.skip(f"the daily ledger is not available yet: {days.why}")
+    assert days.ok, days.why
     _s, fig_all, _t, _q, stored = trip.render_trip(src, *full)
     _s, fig_two, _t, _q, _st = trip.render_trip(src, full[0], (pd.Timestamp(full[0]) + pd.Timedelta(days=1))
                                                 .date().isoformat())
@@ -399,8 +397,8 @@ def test_planner_recomputes_when_the_autonomy_target_changes(app_ctx):
     from dashboard.pages import planner
 
     src = app_ctx.source
-    if not src.sizing(*src.default_range(), autonomy_days=1, percentile=90).ok:
-        pytest.skip("analysis.sizing not usable yet")
+    sized = src.sizing(*src.default_range(), autonomy_days=1, percentile=90)
+    assert sized.ok, sized.why
     one = str(planner.render_plan(src, 1, 90, None)[0])
     five = str(planner.render_plan(src, 5, 90, None)[0])
     assert one != five
@@ -450,8 +448,7 @@ def test_live_state_of_charge_carried_forward_matches_a_full_analysis(copy_ctx):
     assert snap.soc_source == "estimated by coulomb counting"
     # The same instant analysed in one piece by analysis.report over the whole store.
     full = src.soc(*src.full_range())
-    if not full.ok:
-        pytest.skip(f"no state of charge from analysis: {full.why}")
+    assert full.ok, full.why
     series = full.value[0]
     assert snap.soc_pct == pytest.approx(float(series.iloc[-1]), abs=1.0)
 

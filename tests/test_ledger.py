@@ -176,8 +176,7 @@ def _truth(path: Path) -> dict:
 def test_multichannel_fixture_consumed_Ah_within_2_percent_of_simulator_truth(scenario):
     from analysis.system import parse_system
     csv = FIX / scenario / "sample.csv"
-    if not csv.exists():
-        pytest.skip("simulated fixture not generated")
+    assert csv.exists(), f"{csv}: regenerate with python fixtures/make_scenario_fixtures.py"
     system = parse_system((FIX / scenario / "system.toml").read_text())
     led = daily_ledger(melt_simulated_csv(csv), system)
     truth = {d["date"]: d for d in _truth(csv)["days"]}
@@ -199,8 +198,7 @@ def test_multichannel_fixture_consumed_Ah_within_2_percent_of_simulator_truth(sc
 def test_single_shunt_fixture_consumed_Ah_within_8_percent_of_simulator_truth(scenario):
     from analysis.system import parse_system
     csv = FIX / scenario / "sample_single_shunt.csv"
-    if not csv.exists():
-        pytest.skip("simulated fixture not generated")
+    assert csv.exists(), f"{csv}: regenerate with python fixtures/make_scenario_fixtures.py"
     system = parse_system((FIX / scenario / "system.toml").read_text())
     led = daily_ledger(melt_simulated_csv(csv), system)
     truth = {d["date"]: d for d in _truth(csv)["days"]}

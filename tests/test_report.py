@@ -154,7 +154,7 @@ def test_bad_date_is_a_usage_error_naming_the_option(store_dir, capsys):
 # -- against the simulator's truth ----------------------------------------------------------
 
 def _sim_report(name: str, days: int, *, single_shunt: bool = False):
-    sim_mod = pytest.importorskip("collector.simulated")
+    import collector.simulated as sim_mod
     sim = sim_mod.simulate(name, days=days)
     df = sim_mod.to_canonical(sim, interval_s=60, single_shunt=single_shunt)
     return build_report(df, sim.scenario.system).to_json(), sim.truth

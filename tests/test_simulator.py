@@ -361,7 +361,6 @@ def test_to_canonical_follows_the_sign_convention_and_matches_the_log(van3):
 
 
 def test_demo_twice_does_not_double_the_data(tmp_path, capsys):
-    pytest.importorskip("collector.csv_file")
     from collector.store import Store
 
     store = tmp_path / "s.sqlite"

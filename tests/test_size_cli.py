@@ -101,7 +101,6 @@ def test_size_human_output_explains_the_recommendation(tmp_path, capsys):
 def test_size_on_the_bundled_scenario_meets_its_target(tmp_path, capsys):
     # Scenario test: the bundled invented 'autumn-van' scenario, simulated, stored in a real SQLite store,
     # ledger built by analysis.ledger; the recommendation's simulated autonomy meets the target.
-    pytest.importorskip("analysis.ledger")
     from collector.simulated import simulate, to_canonical
     from collector.store import Store
 
@@ -147,7 +146,6 @@ def test_recommended_set_survives_the_scenarios_wet_spell_in_its_own_physics(tmp
     # Outside check of the recommendation: the scenario simulator's bank physics (collector/simulated.py,
     # written independently of the sizing code), parked from full through the scenario's overcast spell for
     # the target days, never takes the recommended bank below its DoD floor.
-    pytest.importorskip("analysis.ledger")
     from collector.simulated import simulate, to_canonical
     from collector.store import Store
 

@@ -29,8 +29,8 @@ def _ledger(readings, system):
         return None
     try:
         days = daily_ledger(readings, system)
-    except Exception as exc:  # noqa: BLE001 - report it, and size from the inventory rather than nothing
-        warn(f"drawdown size: the daily ledger could not be built ({type(exc).__name__}: {exc}); "
+    except ValueError as exc:  # the stored data cannot make a ledger (no usable channel): say so
+        warn(f"drawdown size: the daily ledger could not be built ({exc}); "
              "sizing from the [[load]] inventory instead")
         return None
     frame = getattr(days, "days", days)  # a result object or the frame itself
@@ -46,8 +46,8 @@ def _performance_ratio(readings, system) -> float | None:
         from analysis.solar import analyse_solar
 
         pr = analyse_solar(readings, system).performance_ratio
-    except Exception as exc:  # noqa: BLE001 - optional: fall back to the stated default
-        warn(f"drawdown size: performance ratio not measured ({type(exc).__name__}: {exc}); using the default")
+    except ValueError as exc:  # not measurable from these data: fall back to the stated default
+        warn(f"drawdown size: performance ratio not measured ({exc}); using the default")
         return None
     if pr is None or not math.isfinite(pr) or not 0.05 <= pr <= 1.2:
         return None
