@@ -189,7 +189,21 @@ def build_report(readings: pd.DataFrame, system: System, *, rows_rejected: int =
           else ResistanceEstimate(None, "no battery channel", pd.DataFrame()))
     rt = _runtime(bat, soc, led, system, cap, peuk)
     solar = _solar_section(readings, system, led.solar_current_A if "solar" not in channels else None)
-    return _assemble(channels, system, rows_rejected, soc, cap, peuk, led, ir, rt, solar)
+    report = _assemble(channels, system, rows_rejected, soc, cap, peuk, led, ir, rt, solar)
+    return _with_charging(report, readings, system)
+
+
+def _with_charging(report: Report, readings: pd.DataFrame, system: System) -> Report:
+    """Alternator/DC-DC and shore diagnostics, and the cautions a person must see.
+
+    Lithium charged below 0 degC is a safety finding (DESIGN.md): it goes to the
+    report's top-level ``cautions`` as well as to ``charging.findings``.
+    """
+    from analysis.charging import analyse_charging
+
+    charging = analyse_charging(readings, system).to_json()
+    cautions = [f for f in charging.get("findings", []) if "below 0 degC" in f or "below freezing" in f]
+    return replace(report, extras={**report.extras, "charging": charging, "cautions": cautions})
 
 
 def _runtime(bat, soc, led, system, cap, peuk) -> RuntimeEstimate:

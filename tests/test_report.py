@@ -192,3 +192,34 @@ def test_multichannel_simulation_consumed_Ah_within_2_percent_every_day():
     for d, td in zip(j["days"], truth["days"]):
         assert d["date"] == td["date"]
         assert d["consumed_Ah"] == pytest.approx(td["consumed_Ah"], rel=0.02)
+
+
+def test_lithium_charged_below_freezing_is_a_report_caution():
+    # Common practice (FIELDREF §2 / DESIGN.md Safety): LiFePO4 must not be charged below 0 degC;
+    # a log that shows it must say so in the report, not only in the sizing advice.
+    from analysis.report import build_report
+    from analysis.system import system_from_mapping
+
+    system = system_from_mapping({"site": {"latitude_deg": 61.2, "longitude_deg": 7.1, "timezone": "Europe/Oslo"},
+                                  "battery": {"chemistry": "lifepo4", "nominal_voltage_V": 12.8,
+                                              "rated_capacity_Ah": 200}})
+    t = pd.date_range("2026-01-10T00:00Z", periods=6 * 60, freq="60s")
+    charging = np.where((np.arange(len(t)) > 60) & (np.arange(len(t)) < 240), 20.0, -2.0)
+    frame = pd.DataFrame({"t": t, "channel": "battery", "voltage_V": 13.3, "current_A": charging,
+                          "temperature_C": -5.0, "soc_pct": np.nan})
+    j = build_report(frame, system).to_json()
+    assert any("below 0 degC" in c for c in j["cautions"])
+    assert j["charging"]["cold_charging"]["min_temperature_C"] == pytest.approx(-5.0)
+
+
+def test_no_cold_caution_for_a_warm_lithium_bank():
+    from analysis.report import build_report
+    from analysis.system import system_from_mapping
+
+    system = system_from_mapping({"site": {"latitude_deg": 61.2, "longitude_deg": 7.1, "timezone": "Europe/Oslo"},
+                                  "battery": {"chemistry": "lifepo4", "nominal_voltage_V": 12.8,
+                                              "rated_capacity_Ah": 200}})
+    t = pd.date_range("2026-06-10T00:00Z", periods=6 * 60, freq="60s")
+    frame = pd.DataFrame({"t": t, "channel": "battery", "voltage_V": 13.3, "current_A": 20.0,
+                          "temperature_C": 15.0, "soc_pct": np.nan})
+    assert build_report(frame, system).to_json()["cautions"] == []

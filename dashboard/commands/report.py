@@ -143,4 +143,11 @@ def describe(j: dict) -> list[str]:
         out.append(f"solar performance ratio {s['performance_ratio']:.2f} (measured / expected for the site and sky)")
     else:
         out.append(f"solar performance ratio: - ({s.get('performance_ratio_why', 'not available')})")
+    findings = (j.get("charging") or {}).get("findings") or []
+    if findings:
+        out.append("")
+        out.append("charging:")
+        out.extend(f"  {f}" for f in findings)
+    for caution in j.get("cautions") or []:
+        out.append(f"CAUTION: {caution}")
     return out
