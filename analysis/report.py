@@ -67,6 +67,8 @@ class Report:
     soc: pd.Series | None = field(default=None, repr=False)
     ledger: pd.DataFrame | None = field(default=None, repr=False)
     resistance_per_day: pd.DataFrame | None = field(default=None, repr=False)
+    #: analysis.solar.SolarAnalysis behind ``solar`` (its plot series), or None.
+    solar_analysis: Any = field(default=None, repr=False, compare=False)
 
     def to_json(self) -> dict:
         """The report JSON object (DESIGN.md keys first, then extras)."""
@@ -111,19 +113,22 @@ def _iso_us(t: int) -> str:
     return pd.Timestamp(int(t), unit="us", tz="UTC").isoformat()
 
 
-def _solar_section(readings: pd.DataFrame, system: System, solar_current: pd.Series | None) -> dict:
+def _solar_section(readings: pd.DataFrame, system: System, solar_current: pd.Series | None
+                   ) -> tuple[dict, Any]:
+    """The report's ``solar`` object and the analysis behind it (None when it could not run)."""
     try:
         from analysis.solar import analyse_solar  # another module; optional
     except ImportError:
-        return {"performance_ratio": None, "performance_ratio_why": "solar analysis not available", "days": []}
+        return {"performance_ratio": None, "performance_ratio_why": "solar analysis not available", "days": []}, None
     try:
         res = analyse_solar(readings, system, solar_current_A=solar_current)
         out = res.to_json() if hasattr(res, "to_json") else dict(res)
     except Exception as exc:  # noqa: BLE001 - one section must not sink the whole report
-        return {"performance_ratio": None, "performance_ratio_why": f"solar analysis failed: {exc}", "days": []}
+        return ({"performance_ratio": None, "performance_ratio_why": f"solar analysis failed: {exc}", "days": []},
+                None)
     out.setdefault("performance_ratio", None)
     out.setdefault("days", [])
-    return out
+    return out, res
 
 
 def build_report(readings: pd.DataFrame, system: System, *, rows_rejected: int = 0,
@@ -188,9 +193,10 @@ def build_report(readings: pd.DataFrame, system: System, *, rows_rejected: int =
     ir = (internal_resistance(bat, led.bounds_us, list(led.days["date"])) if bat is not None and len(bat) > 1
           else ResistanceEstimate(None, "no battery channel", pd.DataFrame()))
     rt = _runtime(bat, soc, led, system, cap, peuk)
-    solar = _solar_section(readings, system, led.solar_current_A if "solar" not in channels else None)
+    solar, solar_analysis = _solar_section(readings, system,
+                                           led.solar_current_A if "solar" not in channels else None)
     report = _assemble(channels, system, rows_rejected, soc, cap, peuk, led, ir, rt, solar)
-    return _with_charging(report, readings, system)
+    return _with_charging(replace(report, solar_analysis=solar_analysis), readings, system)
 
 
 def _with_charging(report: Report, readings: pd.DataFrame, system: System) -> Report:

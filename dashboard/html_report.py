@@ -31,7 +31,7 @@ from plotly.offline import get_plotlyjs
 
 from analysis.system import System
 from dashboard import figures
-from dashboard.data import _find_part, _health_of, _report_days, _soc_of, _to_json
+from dashboard.data import _health_of, _report_days, _soc_of, _to_json
 
 #: The dashboard footer's caution (dashboard/app.py ``_shell``), repeated word for word at the foot of the report.
 SAFETY_CAUTION = ("Figures come from your own logs; advice on cables, fuses and chargers must be checked against "
@@ -137,8 +137,6 @@ def report_figures(report: Any, *, system: System | None = None, solar: Any = No
 
     sol: list[go.Figure] = []
     days = [d for d in (j.get("solar") or {}).get("days") or [] if d.get("measured_Wh") is not None]
-    if solar is None:
-        solar = _find_part(report, "SolarAnalysis", "solar_analysis")
     if days:
         sol.append(figures.solar_daily_figure(days))
     power = _solar_power(solar, tz) if solar is not None else None

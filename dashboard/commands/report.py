@@ -56,26 +56,13 @@ def run(args: Any, ctx: Context) -> int:
     if args.html:
         from dashboard.html_report import write_html
 
-        path = write_html(report, Path(args.html), system=system, solar=_solar_analysis(readings, system, obj))
+        path = write_html(report, Path(args.html), system=system, solar=report.solar_analysis)
         warn(f"wrote {path}")
     if args.json:
         print_json(obj)
         return 0
     print("\n".join(describe(obj)))
     return 0
-
-
-def _solar_analysis(readings: pd.DataFrame, system: Any, obj: dict) -> Any:
-    """The solar analysis behind the HTML report's power plot (None when there are no solar days)."""
-    if not (obj.get("solar") or {}).get("days"):
-        return None
-    try:
-        from analysis.solar import analyse_solar
-
-        return analyse_solar(readings, system)
-    except Exception as exc:  # noqa: BLE001 - the plot is optional; the report's own solar section stands
-        warn(f"solar power plot left out of the HTML report: {exc}")
-        return None
 
 
 def _f(x: Any, fmt: str = ".1f", none: str = "-") -> str:
