@@ -37,6 +37,7 @@ from analysis.readings import (
     BLOCK,
     US_PER_S,
     Channel,
+    epoch_us,
     fill0,
     gap_mask,
     gap_threshold_s,
@@ -475,7 +476,7 @@ def _channel_from_frame(frame: pd.DataFrame) -> Channel:
         t = pd.DatetimeIndex(frame.index)
     if t.tz is None:
         raise ValueError("battery frame times must be timezone-aware (UTC)")
-    t_us = t.tz_convert("UTC").as_unit("us").asi8.astype(np.int64)
+    t_us = epoch_us(t)
     n = len(frame)
 
     def col(name: str) -> np.ndarray:

@@ -25,7 +25,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from analysis.solar_bins import ChannelBinner, Grid, epoch_us
+from analysis.readings import epoch_us
+from analysis.solar_bins import ChannelBinner, Grid
 from analysis.system import System
 
 __all__ = ["ChargingAnalysis", "analyse_charging", "dc_dc_input_current_A", "SOURCES"]

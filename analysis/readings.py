@@ -88,16 +88,23 @@ class Gap:
                 "channel": self.channel}
 
 
-def _time_us(col: pd.Series) -> np.ndarray:
-    values = col.array
-    if isinstance(col.dtype, pd.DatetimeTZDtype):
-        if getattr(values, "unit", "us") != "us":
-            values = values.as_unit("us")  # (as_unit copies even when the unit is already us)
-        raw = getattr(values, "_ndarray", None)  # the datetime64[us] buffer: a view, not a copy
-        if isinstance(raw, np.ndarray) and raw.dtype == np.dtype("M8[us]"):
-            return raw.view(np.int64)
-        return np.asarray(values.asi8)
-    raise ValueError(f"column 't' must be timezone-aware datetimes (UTC), got dtype {col.dtype}")
+def epoch_us(t: pd.Series | pd.Index) -> np.ndarray:
+    """Timezone-aware times as int64 microseconds since 1970 UTC.
+
+    A view of the times' own buffer when they are already in microseconds (the
+    store's unit), so a year at 1 Hz costs no 250 MB copy; ``as_unit`` would copy
+    even when the unit is already ``us``.
+    """
+    values = t.array
+    if not isinstance(values.dtype, pd.DatetimeTZDtype):
+        raise ValueError("timestamps must be timezone-aware datetimes (UTC inside, local only at the edges), "
+                         f"got dtype {values.dtype}")
+    if values.unit != "us":
+        values = values.as_unit("us")
+    raw = getattr(values, "_ndarray", None)  # the datetime64[us] buffer (UTC inside a tz-aware array)
+    if isinstance(raw, np.ndarray) and raw.dtype == np.dtype("M8[us]"):
+        return raw.view(np.int64)
+    return np.asarray(values.asi8)
 
 
 def split_channels(readings: pd.DataFrame) -> dict[str, Channel]:
@@ -119,7 +126,7 @@ def split_channels(readings: pd.DataFrame) -> dict[str, Channel]:
     n = len(readings)
     if n == 0:
         return {}
-    t_all = _time_us(readings["t"])
+    t_all = epoch_us(readings["t"])
     ch = readings["channel"]
     if isinstance(ch.dtype, pd.CategoricalDtype):
         codes = ch.cat.codes.to_numpy()

@@ -12,6 +12,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from analysis.readings import epoch_us
+
 
 @dataclass(frozen=True)
 class Grid:
@@ -36,14 +38,6 @@ class Grid:
 
     def index_of(self, t_us: np.ndarray) -> np.ndarray:
         return (t_us - self.start_us) // self.width_us
-
-
-def epoch_us(t: pd.Series | pd.DatetimeIndex) -> np.ndarray:
-    """Timestamps as int64 microseconds since 1970 UTC (tz-aware input required)."""
-    idx = pd.DatetimeIndex(t)
-    if idx.tz is None:
-        raise ValueError("timestamps must be timezone-aware (UTC inside, local only at the edges)")
-    return idx.tz_convert("UTC").as_unit("us").asi8
 
 
 def channel_mask(readings: pd.DataFrame, channel: str) -> np.ndarray:
