@@ -485,9 +485,6 @@ def _other_source(bat: Channel, resid_A: np.ndarray, v_b: np.ndarray, bad_iv: np
 
 # -- single shunt ----------------------------------------------------------------------------
 
-_DEBUG = None
-
-
 def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndarray, gaps: np.ndarray,
                   cols: dict[str, np.ndarray], extras: dict[str, np.ndarray], notes: list[str]
                   ) -> tuple[pd.Series | None, LoadModel | None]:
@@ -640,9 +637,6 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     fallback = _hour_topped_up(load_obs, typical, hrs, t_mid, ~observed & ~readable)
     load_a = np.where(observed, load_obs, np.where(readable, recon, fallback))
     load_a = np.where(np.isfinite(net), load_a, 0.0)
-    if _DEBUG is not None:
-        _DEBUG.update(t_mid=t_mid, hrs=hrs, observed=observed, readable=readable, load_a=load_a, held=held,
-                      day=day_of_bin, net=net, v=v_bin, hidden_load=hidden_load, base_level=base_level, stepped=stepped_day, stray=stray, events=events, elev=elev)
     gross = np.clip(np.nan_to_num(net, nan=0.0) + load_a, 0.0, None)
     d_bin = np.clip(day_index(t_mid - bin_us // 2, bounds), 0, n_days - 1)
     cols["consumed_Ah"] += np.bincount(d_bin, weights=load_a * hrs, minlength=n_days)[:n_days]

@@ -21,9 +21,14 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from analysis.ledger import compute_ledger  # noqa: E402
-from analysis.readings import split_channels  # noqa: E402
-from collector.simulated import available_scenarios, load_scenario, simulate, to_canonical  # noqa: E402
+from analysis.ledger import compute_ledger
+from analysis.readings import split_channels
+from collector.simulated import (
+    available_scenarios,
+    load_scenario,
+    simulate,
+    to_canonical,
+)
 
 CONSUMED_TOL = 0.08
 SOLAR_TOL = 0.15
@@ -44,7 +49,9 @@ def run(name: str, seed: int | None, interval: float, days: int | None, verbose:
         c_err = e["consumed_Ah"] / d["consumed_Ah"] - 1.0
         t_sol = d["charged_Ah"]["solar"]
         s_err = (e["charged_Ah_solar"] - t_sol) / max(t_sol, SOLAR_MIN_AH)
-        rows.append((name, seed, interval, d["date"], d["consumed_Ah"], c_err, t_sol, s_err))
+        covered = e["consumed_Ah_pi95_lo"] <= d["consumed_Ah"] <= e["consumed_Ah_pi95_hi"]
+        half = 0.5 * (e["consumed_Ah_pi95_hi"] - e["consumed_Ah_pi95_lo"]) / d["consumed_Ah"]
+        rows.append((name, seed, interval, d["date"], d["consumed_Ah"], c_err, t_sol, s_err, covered, half))
         if verbose:
             flag = ("C" if abs(c_err) > CONSUMED_TOL else " ") + ("S" if abs(s_err) > SOLAR_TOL else " ")
             print(f"  {flag} {name:12s} seed={seed or 'own':>4} {interval:>4.0f}s {d['date']}  consumed "
@@ -78,6 +85,10 @@ def main(argv: list[str] | None = None) -> int:
               f"{100 * np.mean(np.abs(c[m])):.1f} %;  solar within 15 %: {np.sum(np.abs(s[m]) <= SOLAR_TOL):3d}"
               f"/{m.sum()} (own seed {np.sum(np.abs(s[own]) <= SOLAR_TOL)}/{own.sum()}), mean |err| "
               f"{100 * np.mean(np.abs(s[m])):.1f} %")
+    cov = np.array([r[8] for r in rows])
+    half = np.array([r[9] for r in rows])
+    print(f"consumed 95 % interval covers truth on {cov.sum()}/{len(cov)} days, median half-width "
+          f"{100 * np.median(half):.0f} %")
     print(f"all          consumed within 8 %: {np.sum(np.abs(c) <= CONSUMED_TOL)}/{len(c)}; "
           f"solar within 15 %: {np.sum(np.abs(s) <= SOLAR_TOL)}/{len(s)}")
     return 0
