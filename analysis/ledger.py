@@ -89,6 +89,8 @@ SOLAR_CAP_MARGIN = 1.2
 PLATEAU_RATING_FRACTION = 0.5
 #: Quantile of the event-free load taken as the always-on base load.
 BASE_Q = 0.05
+#: A rise this many bins after a larger fall closes part of it (a short burst on a longer load).
+SPLIT_BINS = 3
 #: Hours a day needs in view before its floor counts for the always-on load.
 BASE_MIN_H = 4.0
 MAX_EVENT_H = 10.0
@@ -974,6 +976,15 @@ def _load_step_events(net_A: np.ndarray, *, step_min_A: float, amp_max_A: float,
         if a < 0:
             stack.append((i, -a))
             continue
+        # A rise a bin or two after a larger fall: a short burst (a pump, a compressor's
+        # inrush) that switched on with a longer load ends; the rest stays open.
+        if stack and i - stack[-1][0] <= SPLIT_BINS and stack[-1][1] - a >= step_min_A:
+            j, a_on = stack[-1]
+            if fits(j, a, i):
+                diff[j] += a
+                diff[i] -= a
+                stack[-1] = (j, a_on - a)
+                continue
         # The latest open load whose size matches this rise ...
         best = -1
         for tol in (0.12, 0.35):  # a close match first, the latest first; then a loose one

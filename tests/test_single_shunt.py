@@ -63,6 +63,20 @@ def test_two_loads_switching_off_in_the_same_bin_are_both_closed():
     np.testing.assert_allclose(events, load, atol=0.05)
 
 
+def test_a_short_burst_that_starts_with_a_longer_load_closes_only_its_own_part():
+    # A fridge (2.5 A, 40 bins) and a water-pump burst (3.5 A, 2 bins) switch on in the
+    # same bin: one 6 A fall, a 3.5 A rise two bins later, a 2.5 A rise at the fridge's
+    # end. A long load (1.8 A) running across them must stay open.
+    n = 600
+    load = np.zeros(n)
+    load[100:500] += 1.8
+    load[200:240] += 2.5
+    load[200:202] += 3.5
+    events, _, _ = _load_step_events(_ramp_solar(n) - load, step_min_A=0.6, amp_max_A=50.0, max_bins=600)
+    # The ramp's change per bin (<= 0.05 A) enters both the burst's rise and the fridge's rest.
+    np.testing.assert_allclose(events, load, atol=0.1)
+
+
 def test_a_large_pair_longer_than_allowed_is_not_a_load():
     # A 25 A fall and rise 60 bins apart: a charger pausing, not a kettle (big loads are short).
     n = 300
