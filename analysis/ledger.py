@@ -85,6 +85,10 @@ STRAY_AH = 3.0
 PLATEAU_MIN_S = 1200.0
 #: Solar above this factor x the arrays' clear-sky output is not solar (cloud-edge enhancement allowed).
 SOLAR_CAP_MARGIN = 1.2
+#: A hidden hour's load is at most this x clear-sky solar + LOAD_CAP_SUN_A beyond the net current
+#: (looser than SOLAR_CAP_MARGIN: an array facing the morning sun outdoes a misdeclared tilt).
+LOAD_CAP_SUN_RATIO = 1.5
+LOAD_CAP_SUN_A = 1.0
 #: A plateau starts with a rise of at least this fraction of the smallest declared charger's rating.
 PLATEAU_RATING_FRACTION = 0.5
 #: Quantile of the event-free load taken as the always-on base load.
@@ -636,7 +640,26 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     stray = (r_day > STRAY_RATIO * p_day + STRAY_AH) | (r_day < p_day / STRAY_RATIO - STRAY_AH)
     readable &= ~stray[day_of_bin]
     typical = np.where(np.isfinite(profile), profile, np.maximum(pred, floor))
+    solar_max = None
+    if solar_possible:
+        # Solar cannot deliver more than the arrays' clear-sky output (pvlib), plus what
+        # cloud-edge enhancement may add (SOLAR_CAP_MARGIN).
+        from analysis.solar_model import expected_clear_sky
+
+        times = pd.DatetimeIndex(t_mid.view("M8[us]")).tz_localize("UTC")
+        v_ok = np.isfinite(v_bin)
+        exp = expected_clear_sky(times, system, battery_voltage_V=pd.Series(v_bin[v_ok], index=times[v_ok])
+                                 if v_ok.any() else None)
+        v_div = np.where(v_ok, v_bin, system.battery.nominal_voltage_V)
+        solar_max = SOLAR_CAP_MARGIN * np.nan_to_num(exp["delivered_W"].to_numpy(), nan=0.0) / v_div
     fallback = _hour_topped_up(load_obs, typical, hrs, t_mid, ~observed & ~readable)
+    if solar_max is not None:
+        # Where only the sun can be charging (no charger holding the bank, and no more net
+        # charge than the sun can give), the load is at most what the sun could give
+        # beyond the net current: a typical hour's kettle cannot hide under a weak dawn sun.
+        sun_only = ~hidden_load & (net_f <= solar_max)
+        sun_most = LOAD_CAP_SUN_RATIO / SOLAR_CAP_MARGIN * solar_max + LOAD_CAP_SUN_A
+        fallback = np.where(sun_only, np.minimum(fallback, np.maximum(sun_most - net_f, load_obs)), fallback)
     load_a = np.where(observed, load_obs, np.where(readable, recon, fallback))
     load_a = np.where(np.isfinite(net), load_a, 0.0)
     gross = np.clip(np.nan_to_num(net, nan=0.0) + load_a, 0.0, None)
@@ -655,18 +678,6 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     half = 1.96 * sd_hour * np.sqrt(hidden_h)
     extras["consumed_Ah_pi95_lo"] = np.maximum(cols["consumed_Ah"] - half, 0.0)
     extras["consumed_Ah_pi95_hi"] = cols["consumed_Ah"] + half
-    solar_max = None
-    if solar_possible:
-        # Solar cannot deliver more than the arrays' clear-sky output (pvlib), plus what
-        # cloud-edge enhancement may add (SOLAR_CAP_MARGIN).
-        from analysis.solar_model import expected_clear_sky
-
-        times = pd.DatetimeIndex(t_mid.view("M8[us]")).tz_localize("UTC")
-        v_ok = np.isfinite(v_bin)
-        exp = expected_clear_sky(times, system, battery_voltage_V=pd.Series(v_bin[v_ok], index=times[v_ok])
-                                 if v_ok.any() else None)
-        v_div = np.where(v_ok, v_bin, system.battery.nominal_voltage_V)
-        solar_max = SOLAR_CAP_MARGIN * np.nan_to_num(exp["delivered_W"].to_numpy(), nan=0.0) / v_div
     parts, conf = _attribute(gross, hrs, elev, hour, system, bin_s, held, solar_max)
     for name in SOURCES:
         cols[f"charged_Ah_{name}"] += np.bincount(d_bin, weights=parts[name] * hrs, minlength=n_days)[:n_days]

@@ -132,10 +132,11 @@ def test_load_under_a_charger_regulating_the_voltage_is_the_power_of_the_same_ho
 
 
 @pytest.mark.parametrize("scenario", ["autumn-van", "spring-truck"])
-def test_simulated_single_shunt_consumed_Ah_mean_error_is_within_8_percent(scenario):
+def test_simulated_single_shunt_consumed_Ah_mean_error_is_within_5_percent(scenario):
     # Against the simulator's truth (collector.simulated writes what really happened):
-    # over ten days at 60 s the mean absolute daily error of consumed Ah is within 8 %
-    # (measured 2.6 % autumn-van, 3.8 % spring-truck).
+    # over ten days at 60 s the mean absolute daily error of consumed Ah is within 5 %
+    # (measured 2.2 % autumn-van, 3.5 % spring-truck; a regression guard well inside
+    # the issue's ±8 %).
     # The per-day ±8 % target is the strict xfail in tests/test_ledger.py; day-by-day
     # figures over seeds and intervals: benchmarks/single_shunt_accuracy.py.
     from analysis.ledger import compute_ledger
@@ -147,7 +148,7 @@ def test_simulated_single_shunt_consumed_Ah_mean_error_is_within_8_percent(scena
     days = compute_ledger(split_channels(frame), sim.scenario.system).days
     est = dict(zip((d.isoformat() for d in days["date"]), days["consumed_Ah"]))
     err = [abs(est[d["date"]] / d["consumed_Ah"] - 1.0) for d in sim.truth["days"]]
-    assert np.mean(err) <= 0.08
+    assert np.mean(err) <= 0.05
 
 
 def test_hourly_error_sd_is_the_rms_of_hour_block_means():
