@@ -74,6 +74,9 @@ LEDGER_COLUMNS: tuple[str, ...] = (
 _H_PER_US = 1.0 / (US_PER_S * 3600.0)
 #: Smallest net-current step taken as a load switching [A].
 STEP_MIN_A = 0.6
+#: A step is at least this many noise SDs, and its parts at least STEP_PART_A or 2 SDs.
+STEP_NOISE_K = 5.0
+STEP_PART_A = 0.25
 #: Net current [A] below which a bank at a charged voltage is held by a charger.
 HELD_A = 0.1
 #: Rolling SD of the net current [A] below which a small charge at a charged voltage is float.
@@ -513,6 +516,10 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     has_t = np.isfinite(bat.temperature_C).any()
     with np.errstate(invalid="ignore", divide="ignore"):
         net = np.where(hrs > 0, ah / np.maximum(hrs, 1e-12), np.nan)
+        # For step detection: each sample's value held over its interval (no trapezoid
+        # smear of a switch across two bins when the log interval equals the bin).
+        net_step = np.where(hrs > 0, np.bincount(b, weights=cur[:-1] * dt_h, minlength=n_bins)
+                            / np.maximum(hrs, 1e-12), np.nan)
         v_bin = np.where(hrs > 0, vw / np.maximum(hrs, 1e-12), np.nan)
         if has_t:
             tt = np.nan_to_num(bat.temperature_C[:-1], nan=np.nanmean(bat.temperature_C))
@@ -570,20 +577,48 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
         terms.append("temperature_C")
         feats.append(tc)
     X = np.column_stack(feats)
+    solar_max = None
+    if solar_possible:
+        # Solar cannot deliver more than the arrays' clear-sky output (pvlib), plus what
+        # cloud-edge enhancement may add (SOLAR_CAP_MARGIN).
+        from analysis.solar_model import expected_clear_sky
+
+        times = pd.DatetimeIndex(t_mid.view("M8[us]")).tz_localize("UTC")
+        v_ok = np.isfinite(v_bin)
+        exp = expected_clear_sky(times, system, battery_voltage_V=pd.Series(v_bin[v_ok], index=times[v_ok])
+                                 if v_ok.any() else None)
+        v_div = np.where(v_ok, v_bin, system.battery.nominal_voltage_V)
+        solar_max = SOLAR_CAP_MARGIN * np.nan_to_num(exp["delivered_W"].to_numpy(), nan=0.0) / v_div
+    # Where only the sun can be charging (no charger holding the bank, and no more net
+    # charge than the sun can give), the load is at most what the sun could give beyond
+    # the net current.
+    load_most = np.full(n_bins, np.inf)
+    if solar_max is not None:
+        sun_only = ~hidden_load & (net_f <= solar_max)
+        sun_most = LOAD_CAP_SUN_RATIO / SOLAR_CAP_MARGIN * solar_max + LOAD_CAP_SUN_A
+        load_most = np.where(sun_only, np.maximum(sun_most - net_f, 0.0), np.inf)
     model = None
     # Step loads (fridge cycles, pumps, lights, inverter loads) seen as paired falls and
     # rises of the net current; under charging they reveal the hidden load.
     amp_max = 1.2 * float(load_obs[train].max()) if train.any() else 0.5 * cap
-    amp_max = max(amp_max, 2 * STEP_MIN_A)
-    _, step_bin, step_a = _load_step_events(net, step_min_A=STEP_MIN_A, amp_max_A=amp_max, max_bins=1)
+    # Steps must stand clear of the current's own bin-to-bin noise (sigma from the median
+    # absolute change on the nights: median |d| = 0.954 sigma for two independent draws).
+    pair = train[:-1] & train[1:]
+    d_night = np.abs(np.diff(np.nan_to_num(net_step)))[pair]
+    noise = float(np.median(d_night)) / 0.954 if len(d_night) else 0.0
+    step_min = max(STEP_MIN_A, STEP_NOISE_K * noise)
+    part = max(STEP_PART_A, 2.0 * noise)
+    amp_max = max(amp_max, 2 * step_min)
+    _, step_bin, step_a = _load_step_events(net_step, step_min_A=step_min, amp_max_A=amp_max, max_bins=1,
+                                            part_A=part)
     at_night = train[np.clip(step_bin - 1, 0, n_bins - 1)] & train[step_bin]
     night_steps = np.abs(step_a[at_night])
     big_load = 2.0 * float(np.quantile(night_steps, 0.9)) if len(night_steps) >= 10 else amp_max
     dark = (elev < -3.0) if solar_possible else np.zeros(n_bins, dtype=bool)
     dark_load = np.where(dark & np.isfinite(net), load_obs, np.inf)
     events, step_bin, step_a = _load_step_events(
-        net, step_min_A=STEP_MIN_A, amp_max_A=amp_max, max_bins=int(MAX_EVENT_H * 3600 / bin_s),
-        big_A=big_load, big_max_bins=int(900 / bin_s), dark_load_A=dark_load)
+        net_step, step_min_A=step_min, amp_max_A=amp_max, max_bins=int(MAX_EVENT_H * 3600 / bin_s),
+        big_A=big_load, big_max_bins=int(900 / bin_s), dark_load_A=dark_load, part_A=part, max_load_A=load_most)
     # Passing clouds switch solar in steps too. On a day whose sunlit hours show steps
     # markedly more often than the nights (loads alone), the steps cannot be told from
     # clouds: no step events that day.
@@ -640,26 +675,9 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     stray = (r_day > STRAY_RATIO * p_day + STRAY_AH) | (r_day < p_day / STRAY_RATIO - STRAY_AH)
     readable &= ~stray[day_of_bin]
     typical = np.where(np.isfinite(profile), profile, np.maximum(pred, floor))
-    solar_max = None
-    if solar_possible:
-        # Solar cannot deliver more than the arrays' clear-sky output (pvlib), plus what
-        # cloud-edge enhancement may add (SOLAR_CAP_MARGIN).
-        from analysis.solar_model import expected_clear_sky
-
-        times = pd.DatetimeIndex(t_mid.view("M8[us]")).tz_localize("UTC")
-        v_ok = np.isfinite(v_bin)
-        exp = expected_clear_sky(times, system, battery_voltage_V=pd.Series(v_bin[v_ok], index=times[v_ok])
-                                 if v_ok.any() else None)
-        v_div = np.where(v_ok, v_bin, system.battery.nominal_voltage_V)
-        solar_max = SOLAR_CAP_MARGIN * np.nan_to_num(exp["delivered_W"].to_numpy(), nan=0.0) / v_div
     fallback = _hour_topped_up(load_obs, typical, hrs, t_mid, ~observed & ~readable)
-    if solar_max is not None:
-        # Where only the sun can be charging (no charger holding the bank, and no more net
-        # charge than the sun can give), the load is at most what the sun could give
-        # beyond the net current: a typical hour's kettle cannot hide under a weak dawn sun.
-        sun_only = ~hidden_load & (net_f <= solar_max)
-        sun_most = LOAD_CAP_SUN_RATIO / SOLAR_CAP_MARGIN * solar_max + LOAD_CAP_SUN_A
-        fallback = np.where(sun_only, np.minimum(fallback, np.maximum(sun_most - net_f, load_obs)), fallback)
+    # A typical hour's kettle cannot hide under a weak dawn sun.
+    fallback = np.minimum(fallback, np.maximum(load_most, load_obs))
     load_a = np.where(observed, load_obs, np.where(readable, recon, fallback))
     load_a = np.where(np.isfinite(net), load_a, 0.0)
     gross = np.clip(np.nan_to_num(net, nan=0.0) + load_a, 0.0, None)
@@ -936,7 +954,8 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
 
 def _load_step_events(net_A: np.ndarray, *, step_min_A: float, amp_max_A: float, max_bins: int,
                       big_A: float = np.inf, big_max_bins: int = 0, dark_load_A: np.ndarray | None = None,
-                      part_A: float = 0.25) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                      part_A: float = 0.25, max_load_A: np.ndarray | None = None
+                      ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Load switched on and off in steps, reconstructed from the net current [A per bin].
 
     A load switching on lowers the net current by its draw in one step (two bins
@@ -979,6 +998,8 @@ def _load_step_events(net_A: np.ndarray, *, step_min_A: float, amp_max_A: float,
     def fits(j: int, level: float, i: int) -> bool:
         if level > big_A and i - j > big_max_bins:
             return False
+        if max_load_A is not None and (max_load_A[j:i] < level).any():
+            return False
         return dark_load_A is None or not (dark_load_A[j:i] < 0.7 * level).any()
 
     for i, a in zip(idx.tolist(), amp.tolist()):  # loop over detected steps, not over log rows
@@ -1006,6 +1027,17 @@ def _load_step_events(net_A: np.ndarray, *, step_min_A: float, amp_max_A: float,
                     break
             if best >= 0:
                 break
+            # No close match: the latest open fall, if larger by a whole step, was two loads
+            # switching on together; this one ends, the other stays open.
+            if stack and stack[-1][1] - a >= max(step_min_A, 0.35 * a) and fits(stack[-1][0], a, i):
+                j, a_on = stack[-1]
+                diff[j] += a
+                diff[i] -= a
+                stack[-1] = (j, a_on - a)
+                best = -2
+                break
+        if best == -2:
+            continue
         if best >= 0:
             j, a_on = stack.pop(best)
             level = 0.5 * (a_on + a)

@@ -188,12 +188,8 @@ def test_multichannel_fixture_consumed_Ah_within_2_percent_of_simulator_truth(sc
 
 
 @pytest.mark.parametrize("scenario", [
-    "autumn-van",  # within ±8 % on all 4 fixture days (worst +6.9 %)
-    pytest.param("spring-truck", marks=pytest.mark.xfail(
-        strict=True, reason="known gap: spring-truck's 5 fixture days are -3.5...-14.1 %: its AGM bank sits "
-                            "at absorption/float for most of each sunny day, so the load there comes from "
-                            "the same hours of the other days, and 5 days hold too few readable ones "
-                            "(on the scenario's full 14 days, 23/28 days at 10 s and 60 s are within)")),
+    "autumn-van",    # all 4 fixture days within ±2 % (worst -1.1 %)
+    "spring-truck",  # all 5 fixture days within ±8 % (worst -6.9 %)
 ])
 def test_single_shunt_fixture_consumed_Ah_within_8_percent_of_simulator_truth(scenario):
     from analysis.system import parse_system
