@@ -886,6 +886,11 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
             near_hold = held_cum[min(n, s + d + look)] > held_cum[max(0, s + u - look)]
             if rise < PLATEAU_RATING_FRACTION * min_rating and not near_hold:
                 continue
+            if rise < PLATEAU_RATING_FRACTION * min_rating and solar_max_A is not None:
+                # A low plateau beside a hold is a throttled charger only if the sun
+                # could not have given it: clouds opening on a full bank look the same.
+                if sun[s + (u + d) // 2] > 0.02 and (g[u:d] <= solar_max_A[s + u:s + d]).all():
+                    continue
             base_l = ext[u]
             base_r = ext[d + 1] if d + 1 < len(ext) else 0.0
             base = np.linspace(base_l, base_r, d - u)
@@ -939,6 +944,22 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
         rest -= excess
     parts["solar"] = np.where(day, rest, 0.0)
     parts["other"] += np.where(day, 0.0, rest)
+    # A charger in bulk delivers its rated current (the constant-current stage, common
+    # practice): where the sun's share and a charger's together reach that charger's
+    # declared rating, the charger takes its rating and the sun the rest.
+    for name in ("alternator", "shore"):
+        rating = sum(c.max_current_A for c in system.charger if c.source == name)
+        if rating <= 0:
+            continue
+        both = parts[name] + parts["solar"]
+        at_rating = (parts[name] > 0) & day & (both >= rating)
+        if solar_max_A is not None:
+            take = np.maximum(rating, both - solar_max_A)
+        else:
+            take = np.full(n, rating)
+        take = np.minimum(take, both)
+        parts["solar"] = np.where(at_rating, both - take, parts["solar"])
+        parts[name] = np.where(at_rating, take, parts[name])
     # Confidence of the solar share: how well the day's solar follows sin(elevation).
     dayno = np.floor((np.arange(n) * bin_s) / 86400.0).astype(np.int64)
     sol = parts["solar"]
