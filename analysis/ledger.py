@@ -98,6 +98,8 @@ PLATEAU_RATING_FRACTION = 0.5
 BASE_Q = 0.05
 #: A rise this many bins after a larger fall closes part of it (a short burst on a longer load).
 SPLIT_BINS = 3
+#: An open load switched on at most this long [h] before a charger hides the bank runs on until then.
+CARRY_H = 2.0
 #: Hours a day needs in view before its floor counts for the always-on load.
 BASE_MIN_H = 4.0
 MAX_EVENT_H = 10.0
@@ -616,9 +618,11 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     big_load = 2.0 * float(np.quantile(night_steps, 0.9)) if len(night_steps) >= 10 else amp_max
     dark = (elev < -3.0) if solar_possible else np.zeros(n_bins, dtype=bool)
     dark_load = np.where(dark & np.isfinite(net), load_obs, np.inf)
+    seen_now = ~widen & ~(solar_possible & (elev >= -3.0)) & ~hidden_load & np.isfinite(net)
     events, step_bin, step_a = _load_step_events(
         net_step, step_min_A=step_min, amp_max_A=amp_max, max_bins=int(MAX_EVENT_H * 3600 / bin_s),
-        big_A=big_load, big_max_bins=int(900 / bin_s), dark_load_A=dark_load, part_A=part, max_load_A=load_most)
+        big_A=big_load, big_max_bins=int(900 / bin_s), dark_load_A=dark_load, part_A=part, max_load_A=load_most,
+        hidden=hidden_load, seen=seen_now, carry_bins=int(CARRY_H * 3600 / bin_s))
     # Passing clouds switch solar in steps too. On a day whose sunlit hours show steps
     # markedly more often than the nights (loads alone), the steps cannot be told from
     # clouds: no step events that day.
@@ -975,8 +979,9 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
 
 def _load_step_events(net_A: np.ndarray, *, step_min_A: float, amp_max_A: float, max_bins: int,
                       big_A: float = np.inf, big_max_bins: int = 0, dark_load_A: np.ndarray | None = None,
-                      part_A: float = 0.25, max_load_A: np.ndarray | None = None
-                      ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                      part_A: float = 0.25, max_load_A: np.ndarray | None = None,
+                      hidden: np.ndarray | None = None, seen: np.ndarray | None = None,
+                      carry_bins: int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Load switched on and off in steps, reconstructed from the net current [A per bin].
 
     A load switching on lowers the net current by its draw in one step (two bins
@@ -989,7 +994,16 @@ def _load_step_events(net_A: np.ndarray, *, step_min_A: float, amp_max_A: float,
     reaching absorption) are not loads and are left out. A pair larger than
     ``big_A`` (a kettle on the inverter, or a charger pausing) must last at most
     ``big_max_bins``; a pair is rejected when, in a bin where nothing can charge,
-    the load seen (``dark_load_A``, +inf where the sun is up) is below 70 % of it.
+    the load seen (``dark_load_A``, +inf where the sun is up) is below 70 % of it,
+    or when in any bin between its steps the load can be at most ``max_load_A``
+    (what the sun could give beyond the net current) and that is less than it.
+
+    A rise smaller than the latest open fall by a whole step closes only its part
+    (two loads that switched on in the same bin; within :data:`SPLIT_BINS` bins
+    this is tried before any match: a short burst on a longer load). A fall still
+    open when the bank becomes ``hidden`` (a charger holds or regulates it) within
+    ``carry_bins``, before any ``seen`` bin, and no larger than ``big_A``, is a
+    load that ran on at least until then.
 
     Returns
     -------
@@ -1023,8 +1037,29 @@ def _load_step_events(net_A: np.ndarray, *, step_min_A: float, amp_max_A: float,
             return False
         return dark_load_A is None or not (dark_load_A[j:i] < 0.7 * level).any()
 
+    # A load that switched on and was still on when a charger took the bank over (a hold
+    # or a regulated voltage, where no step shows) ran on at least until then.
+    next_hidden = next_seen = None
+    if hidden is not None and seen is not None:
+        pos = np.arange(n)
+        nh = np.where(hidden, pos, n)
+        ns = np.where(seen, pos, n)
+        next_hidden = np.minimum.accumulate(nh[::-1])[::-1]
+        next_seen = np.minimum.accumulate(ns[::-1])[::-1]
+
+    def carry(j: int, level: float) -> None:
+        if next_hidden is None:
+            return
+        k = int(next_hidden[j])
+        if k < n and k < next_seen[j] and k - j <= carry_bins and level <= big_A and fits(j, level, k):
+            diff[j] += level
+            diff[k] -= level
+
     for i, a in zip(idx.tolist(), amp.tolist()):  # loop over detected steps, not over log rows
         if stack and i - stack[0][0] > max_bins:  # steps too old to close are dropped
+            for j, x in stack:
+                if i - j > max_bins:
+                    carry(j, x)
             stack = [(j, x) for j, x in stack if i - j <= max_bins]
         if a < 0:
             stack.append((i, -a))
@@ -1080,5 +1115,7 @@ def _load_step_events(net_A: np.ndarray, *, step_min_A: float, amp_max_A: float,
                     break
             if done:
                 break
+    for j, x in stack:
+        carry(j, x)
     out[:] = np.cumsum(diff[:n])
     return out, starts[big] + 1, sums[big]
