@@ -844,6 +844,7 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
     conf = np.zeros(n)
     declared = {c.source for c in system.charger}
     min_rating = min((c.max_current_A for c in system.charger), default=0.0)
+    ratings = {src: sum(c.max_current_A for c in system.charger if c.source == src) for src in ("alternator", "shore")}
     thr = max(0.3, 0.0015 * system.battery.rated_capacity_Ah)
     held = np.zeros(n, dtype=bool) if held is None else held
     on = (gross > thr) & ~held
@@ -916,6 +917,23 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
             else:
                 name = "alternator" if (daytime and dur_h < 4.0) else "shore"
             label[seg] = name
+            rating = ratings.get(name, 0.0)
+            if rating > 0:
+                # Where the bank takes less than the charger's rating plus the sun's share,
+                # both are throttled by the bank's acceptance (absorption): the charge is
+                # shared in proportion to what each could give (an assumption: set-points
+                # are not logged).
+                sun_avail = np.clip(base, 0.0, None)
+                if solar_max_A is not None:
+                    # What the sun could give: the sky factor seen just before the plateau
+                    # (charge / clear-sky output) carried along the clear-sky curve.
+                    c_l = solar_max_A[max(s + u - 1, 0)] / SOLAR_CAP_MARGIN
+                    if c_l > 0.5:
+                        k_sky = min(1.2, max(base_l, 0.0) / c_l)
+                        sun_avail = k_sky * solar_max_A[s + u:s + d] / SOLAR_CAP_MARGIN
+                throttled = g[u:d] < rating + sun_avail
+                share = rating / (rating + sun_avail)
+                charger[seg] = np.where(throttled, g[u:d] * share, charger[seg])
             conf[seg] = 0.85 if len(later) else 0.65
             used_down = d
     for name in ("alternator", "shore"):
