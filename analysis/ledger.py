@@ -103,6 +103,8 @@ CARRY_H = 2.0
 #: Hours a day needs in view before its floor counts for the always-on load.
 BASE_MIN_H = 4.0
 MAX_EVENT_H = 10.0
+#: Samples per chunk when the single-shunt path sums samples into bins (memory bound).
+SAMPLE_CHUNK = 2_000_000
 #: Bins [count] and voltage span [V per 12 V block] within which a charged bank's
 #: voltage counts as held by a charger's regulation (3 mV of logger noise leaves room).
 REG_BINS = 7
@@ -506,26 +508,40 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     cap = system.battery.rated_capacity_Ah
     bin_s = max(60.0, math.ceil(median_interval_s(bat.t_us) / 60.0) * 60.0)
     bin_us = int(bin_s * US_PER_S)
-    cur = fill0(bat.current_A)
-    inc = trapezoid_increments(bat.t_us, cur, gaps=gaps)
-    dt_h = np.where(gaps, 0.0, np.diff(bat.t_us) * _H_PER_US)
     b0 = bat.t_us[0] // bin_us
-    b = (bat.t_us[:-1] // bin_us - b0).astype(np.int64)
-    n_bins = int(b[-1]) + 1
-    hrs = np.bincount(b, weights=dt_h, minlength=n_bins)
-    ah = np.bincount(b, weights=inc, minlength=n_bins)
-    vw = np.bincount(b, weights=v_b[:-1] * dt_h, minlength=n_bins)
+    n_bins = int(bat.t_us[-2] // bin_us - b0) + 1
+    hrs = np.zeros(n_bins)
+    ah = np.zeros(n_bins)
+    vw = np.zeros(n_bins)
+    held_w = np.zeros(n_bins)
     has_t = np.isfinite(bat.temperature_C).any()
-    with np.errstate(invalid="ignore", divide="ignore"):
-        net = np.where(hrs > 0, ah / np.maximum(hrs, 1e-12), np.nan)
+    t_mean = float(np.nanmean(bat.temperature_C)) if has_t else 0.0
+    tw = np.zeros(n_bins)
+    # Per-sample sums into bins in chunks: a year at 1 Hz would otherwise hold several
+    # 250 MB temporaries at once.
+    n_iv = len(bat.t_us) - 1
+    for i0 in range(0, n_iv, SAMPLE_CHUNK):  # loop over chunks of millions of samples
+        i1 = min(n_iv, i0 + SAMPLE_CHUNK)
+        t = bat.t_us[i0:i1 + 1]
+        c = fill0(bat.current_A[i0:i1 + 1]).astype(np.float64)
+        dt = np.diff(t) * _H_PER_US
+        dt[gaps[i0:i1]] = 0.0
+        b = (t[:-1] // bin_us - b0).astype(np.int64)
+        hrs += np.bincount(b, weights=dt, minlength=n_bins)
+        ah += np.bincount(b, weights=0.5 * (c[1:] + c[:-1]) * dt, minlength=n_bins)
         # For step detection: each sample's value held over its interval (no trapezoid
         # smear of a switch across two bins when the log interval equals the bin).
-        net_step = np.where(hrs > 0, np.bincount(b, weights=cur[:-1] * dt_h, minlength=n_bins)
-                            / np.maximum(hrs, 1e-12), np.nan)
+        held_w += np.bincount(b, weights=c[:-1] * dt, minlength=n_bins)
+        vw += np.bincount(b, weights=v_b[i0:i1] * dt, minlength=n_bins)
+        if has_t:
+            tt = np.nan_to_num(bat.temperature_C[i0:i1].astype(np.float64), nan=t_mean)
+            tw += np.bincount(b, weights=tt * dt, minlength=n_bins)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        net = np.where(hrs > 0, ah / np.maximum(hrs, 1e-12), np.nan)
+        net_step = np.where(hrs > 0, held_w / np.maximum(hrs, 1e-12), np.nan)
         v_bin = np.where(hrs > 0, vw / np.maximum(hrs, 1e-12), np.nan)
         if has_t:
-            tt = np.nan_to_num(bat.temperature_C[:-1], nan=np.nanmean(bat.temperature_C))
-            temp = np.bincount(b, weights=tt * dt_h, minlength=n_bins) / np.maximum(hrs, 1e-12)
+            temp = tw / np.maximum(hrs, 1e-12)
     covered = hrs * 3600.0 / bin_s
     t_mid = (b0 + np.arange(n_bins)) * bin_us + bin_us // 2
     local = pd.DatetimeIndex(t_mid.view("M8[us]")).tz_localize("UTC").tz_convert(system.site.timezone)

@@ -10,9 +10,12 @@ The naive comparison computes the same daily consumed/solar Ah with a groupby-ap
 over local days calling a per-day Python trapezoid on a wide frame — the way a quick
 notebook would — on the week-long input only (it is far too slow for a year).
 
+``--single-shunt`` keeps only the battery channel (the common installation: one shunt),
+so the report runs the single-shunt load model and attribution.
+
 Usage::
 
-    python benchmarks/report_bench.py --scale 0.1 [--json]
+    python benchmarks/report_bench.py --scale 0.1 [--single-shunt] [--json]
 """
 
 from __future__ import annotations
@@ -116,16 +119,22 @@ def naive_ledger(readings: pd.DataFrame, timezone: str) -> pd.DataFrame:
     return wide.groupby("date").apply(per_day, include_groups=False)
 
 
-def run(scale: float) -> dict:
+def run(scale: float, single_shunt: bool = False) -> dict:
     from analysis.ledger import daily_ledger
     from analysis.report import build_report
 
     system = _system()
-    build_report(synthetic_frame(7200), system)  # warm-up: imports and first-call costs
-    results: dict = {"scale": scale}
+    def make(seconds: int) -> pd.DataFrame:
+        frame = synthetic_frame(seconds)
+        if single_shunt:
+            frame = frame[frame["channel"] == "battery"].reset_index(drop=True)
+        return frame
+
+    build_report(make(7200), system)  # warm-up: imports and first-call costs
+    results: dict = {"scale": scale, "single_shunt": single_shunt}
     for label, full_s, target_s in (("week", 7 * 86400, 1.0), ("year", 365 * 86400, 15.0)):
         seconds = max(3600, int(full_s * scale))
-        frame = synthetic_frame(seconds)
+        frame = make(seconds)
         gc.collect()
         _reset_peak_rss()
         t = time.perf_counter()
@@ -138,7 +147,7 @@ def run(scale: float) -> dict:
                           "extrapolated_s_at_scale_1": round(elapsed * full_s / seconds, 2),
                           "peak_rss_MB": round(peak / 1e6, 1),
                           "frame_MB": round(float(frame.memory_usage(deep=False).sum()) / 1e6, 1)}
-        if label == "week":
+        if label == "week" and not single_shunt:
             t = time.perf_counter()
             fast = daily_ledger(frame, system)
             fast_s = time.perf_counter() - t
@@ -167,9 +176,10 @@ def run(scale: float) -> dict:
 def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--scale", type=float, default=0.1, help="fraction of a week / a year to run (default 0.1)")
+    p.add_argument("--single-shunt", action="store_true", help="battery channel only (the single-shunt path)")
     p.add_argument("--json", action="store_true")
     a = p.parse_args(argv)
-    res = run(a.scale)
+    res = run(a.scale, a.single_shunt)
     if a.json:
         json.dump(res, sys.stdout, indent=2)
         sys.stdout.write("\n")

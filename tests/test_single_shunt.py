@@ -266,3 +266,17 @@ def test_a_rise_far_below_every_charger_rating_is_not_a_charger_plateau():
                           _van_with_alternator(), 60.0)
     assert parts["alternator"].sum() == 0.0
     np.testing.assert_allclose(parts["solar"], gross)
+
+
+def test_single_shunt_in_sample_chunks_gives_the_same_ledger_as_one_pass(monkeypatch):
+    # The single-shunt path sums samples into bins in chunks (memory on a year at 1 Hz);
+    # the chunk size must not change any figure.
+    import analysis.ledger as ledger_mod
+    from collector.simulated import simulate, to_canonical
+
+    sim = simulate("autumn-van", days=3)
+    frame = to_canonical(sim, interval_s=60, single_shunt=True)
+    one = daily_ledger(frame, sim.scenario.system)
+    monkeypatch.setattr(ledger_mod, "SAMPLE_CHUNK", 997)
+    chunked = daily_ledger(frame, sim.scenario.system)
+    pd.testing.assert_frame_equal(one, chunked, rtol=1e-9)
