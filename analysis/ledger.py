@@ -108,6 +108,8 @@ SAMPLE_CHUNK = 2_000_000
 #: Bins [count] and voltage span [V per 12 V block] within which a charged bank's
 #: voltage counts as held by a charger's regulation (3 mV of logger noise leaves room).
 REG_BINS = 7
+#: Visible gaps [s] up to about this long inside a hold or regulation are taken as hidden too.
+HIDDEN_GAP_S = 180.0
 REG_SPAN_V = 0.012
 #: Sunlit-hours step rate over the night step rate above which a day's steps are clouds.
 CLOUD_STEP_RATE_RATIO = 1.3
@@ -577,6 +579,12 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
               - pd.Series(v_f).rolling(REG_BINS, center=True, min_periods=3).min()).fillna(np.inf).to_numpy()
     regulated = (v_span <= REG_SPAN_V * blocks) & (v_f >= v_held) & (net_f > -HELD_A)
     hidden_load = held | regulated
+    # A few minutes of visible net current inside a hold (the charger answering a load
+    # step a moment late) cannot be read on their own: the hold goes on through them.
+    gap_bins = max(1, int(HIDDEN_GAP_S / bin_s))
+    win = 2 * gap_bins + 1
+    dil = pd.Series(hidden_load.astype(float)).rolling(win, center=True, min_periods=1).max()
+    hidden_load = hidden_load | ((1.0 - (1.0 - dil).rolling(win, center=True, min_periods=1).max()).to_numpy() > 0.5)
     train = (covered >= 0.5) & ~widen & np.isfinite(net) & ~hidden_load
     if solar_possible:
         train &= elev < -3.0
