@@ -703,7 +703,9 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     stray = (r_day > STRAY_RATIO * p_day + STRAY_AH) | (r_day < p_day / STRAY_RATIO - STRAY_AH)
     readable &= ~stray[day_of_bin]
     typical = np.where(np.isfinite(profile), profile, np.maximum(pred, floor))
-    fallback = _hour_topped_up(load_obs, typical, hrs, t_mid, ~observed & ~readable)
+    fall_use = ~observed & ~readable
+    fallback = _hour_topped_up(load_obs, typical, hrs, t_mid, fall_use,
+                               other_A=np.where(observed, load_obs, np.where(readable, recon, 0.0)))
     # A typical hour's kettle cannot hide under a weak dawn sun.
     fallback = np.minimum(fallback, np.maximum(load_most, load_obs))
     load_a = np.where(observed, load_obs, np.where(readable, recon, fallback))
@@ -784,14 +786,16 @@ def _hourly_median(load_A: np.ndarray, hrs: np.ndarray, hour: np.ndarray, t_mid:
 
 
 def _hour_topped_up(seen_A: np.ndarray, typical_A: np.ndarray, hrs: np.ndarray, t_mid: np.ndarray,
-                    use: np.ndarray) -> np.ndarray:
+                    use: np.ndarray, other_A: np.ndarray | None = None) -> np.ndarray:
     """The load [A] per bin over the bins ``use``: what is seen, topped up evenly to the typical hour.
 
     Within each clock hour, the bins ``use`` carry at least the load seen there
-    (``seen_A``, the bank's discharge) and together at least the typical load of
-    that hour (``typical_A``, an hour mean that already includes its occasional big
-    loads): the shortfall ``max(0, typical - seen)`` [Ah] is spread evenly over the
-    hour's bins. A kettle seen in the bank's discharge is then not counted twice.
+    (``seen_A``, the bank's discharge) and the hour as a whole at least the typical
+    load of that hour (``typical_A``, an hour mean that already includes its
+    occasional big loads): the shortfall ``max(0, typical - seen - other)`` [Ah] is
+    spread evenly over the hour's ``use`` bins, where ``other_A`` is the load the
+    hour's remaining bins already carry. A kettle seen in the bank's discharge, or
+    read in the hour's visible minutes, is then not counted twice.
     """
     out = np.where(use, seen_A, 0.0)
     if not use.any():
@@ -800,7 +804,15 @@ def _hour_topped_up(seen_A: np.ndarray, typical_A: np.ndarray, hrs: np.ndarray, 
     block = block - block.min()
     w = np.where(use, hrs, 0.0)
     h_b = np.bincount(block, weights=w)
-    short = np.bincount(block, weights=(typical_A - seen_A) * w)
+    if other_A is None:
+        short = np.bincount(block, weights=(typical_A - seen_A) * w)
+    else:
+        # The typical load over the whole hour, less what the hour already carries.
+        carried = np.where(use, seen_A, np.nan_to_num(other_A)) * hrs
+        hour_h = np.bincount(block, weights=np.where(h_b[block] > 0, hrs, 0.0))
+        typ_ah = np.bincount(block, weights=typical_A * hrs)
+        short = typ_ah - np.bincount(block, weights=carried)
+        short = np.where(hour_h > 0, short, 0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
         top = np.where(h_b > 0, np.clip(short, 0.0, None) / np.maximum(h_b, 1e-12), 0.0)
     return np.where(use, seen_A + top[block], 0.0)

@@ -280,3 +280,23 @@ def test_single_shunt_in_sample_chunks_gives_the_same_ledger_as_one_pass(monkeyp
     monkeypatch.setattr(ledger_mod, "SAMPLE_CHUNK", 997)
     chunked = daily_ledger(frame, sim.scenario.system)
     pd.testing.assert_frame_equal(one, chunked, rtol=1e-9)
+
+
+def test_hour_top_up_counts_the_load_the_hours_visible_minutes_already_carry():
+    # Closed form. One clock hour of 1-minute bins, typical 3 A (3 Ah in the hour).
+    # Minutes 0-9 are read (a kettle: 12 A, 2 Ah); minutes 10-59 are hidden, 1 A seen.
+    # The hour already carries 2 + 50/60 Ah, so the hidden minutes get (3 - 2.8333) Ah
+    # spread over 50/60 h: +0.2 A. Without the read minutes they would get +2 A.
+    from analysis.ledger import _hour_topped_up
+
+    bin_us = 60 * 1_000_000
+    t_mid = np.arange(60) * bin_us + bin_us // 2
+    hrs = np.full(60, 1 / 60)
+    typical = np.full(60, 3.0)
+    seen = np.full(60, 1.0)
+    use = np.arange(60) >= 10
+    other = np.where(use, 0.0, 12.0)
+    out = _hour_topped_up(seen, typical, hrs, t_mid, use, other_A=other)
+    np.testing.assert_allclose(out[use], 1.2)
+    assert np.all(out[~use] == 0.0)
+    np.testing.assert_allclose(_hour_topped_up(seen, typical, hrs, t_mid, use)[use], 3.0)
