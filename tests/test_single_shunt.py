@@ -190,6 +190,26 @@ def test_simulated_single_shunt_consumed_Ah_mean_error_is_within_8_percent(scena
     assert np.mean(err) <= 0.08
 
 
+@pytest.mark.parametrize("interval_s", [10.0, 60.0])
+@pytest.mark.parametrize("scenario", ["autumn-van", "spring-truck"])
+def test_bundled_scenario_single_shunt_consumed_Ah_within_8_percent_on_every_day(scenario, interval_s):
+    # Issue 3 "must show", against the simulator's truth (collector.simulated writes what
+    # really happened): the bundled scenarios at their own length and seed (21 and 14
+    # days), logged as one shunt at the default 10 s and at 60 s, every day within ±8 %.
+    # Other seeds are not all there (benchmarks/single_shunt_accuracy.py: 263/280 days).
+    from analysis.ledger import compute_ledger
+    from analysis.readings import split_channels
+    from collector.simulated import simulate, to_canonical
+
+    sim = simulate(scenario)
+    frame = to_canonical(sim, interval_s=interval_s, single_shunt=True)
+    days = compute_ledger(split_channels(frame), sim.scenario.system).days
+    est = dict(zip((d.isoformat() for d in days["date"]), days["consumed_Ah"]))
+    assert len(est) == len(sim.truth["days"])
+    for d in sim.truth["days"]:
+        assert est[d["date"]] == pytest.approx(d["consumed_Ah"], rel=0.08), d["date"]
+
+
 def test_hourly_error_sd_is_the_rms_of_hour_block_means():
     # Closed form: hour blocks with mean errors +1 A and -3 A give RMS sqrt((1 + 9) / 2) A;
     # a block covered for less than half an hour is left out.
