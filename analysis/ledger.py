@@ -719,11 +719,14 @@ def _single_shunt(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndar
     # seen whole, so both ways of filling hidden hours (base + paired steps, and the
     # hour-of-day median) can be checked against it hour by hour. Each hidden hour carries
     # the larger of the two RMS errors, independent from hour to hour.
-    hidden = ~observed & np.isfinite(net)
-    sd_hour = max(_hourly_error_sd(base_level + events - load_obs, hrs, t_mid, train),
-                  _hourly_error_sd(np.where(np.isfinite(profile), profile, pred) - load_obs, hrs, t_mid, train))
-    hidden_h = np.bincount(d_bin, weights=np.where(hidden, hrs, 0.0), minlength=n_days)[:n_days]
-    half = 1.96 * sd_hour * np.sqrt(hidden_h)
+    finite = np.isfinite(net)
+    sd_read = _hourly_error_sd(base_level + events - load_obs, hrs, t_mid, train)
+    sd_prof = _hourly_error_sd(np.where(np.isfinite(profile), profile, pred) - load_obs, hrs, t_mid, train)
+    read_h = np.bincount(d_bin, weights=np.where(readable & ~observed & finite, hrs, 0.0), minlength=n_days)[:n_days]
+    fall_h = np.bincount(d_bin, weights=np.where(fall_use & finite, hrs, 0.0), minlength=n_days)[:n_days]
+    # Hours rebuilt from steps carry the steps' night error; hours filled from the
+    # profile carry the profile's; independent from hour to hour.
+    half = 1.96 * np.sqrt(read_h * sd_read ** 2 + fall_h * sd_prof ** 2)
     extras["consumed_Ah_pi95_lo"] = np.maximum(cols["consumed_Ah"] - half, 0.0)
     extras["consumed_Ah_pi95_hi"] = cols["consumed_Ah"] + half
     parts, conf = _attribute(gross, hrs, elev, hour, system, bin_s, held, solar_max)
