@@ -223,3 +223,23 @@ def test_no_cold_caution_for_a_warm_lithium_bank():
     frame = pd.DataFrame({"t": t, "channel": "battery", "voltage_V": 13.3, "current_A": 20.0,
                           "temperature_C": 15.0, "soc_pct": np.nan})
     assert build_report(frame, system).to_json()["cautions"] == []
+
+
+def test_report_text_shows_the_95_percent_range_of_use_only_for_a_single_shunt():
+    # The plain-text summary (dashboard.commands.report.describe) names the range the
+    # report JSON carries as consumed_Ah_pi95; a multi-channel log has none.
+    from dashboard.commands.report import describe
+
+    day = {"date": "2026-09-21", "complete": True, "consumed_Ah": 48.2, "consumed_Wh": 644.0,
+           "charged_Ah": {"solar": 19.3, "alternator": 35.4, "shore": 0.0, "other": 0.9},
+           "soc_min_pct": 80.5, "soc_end_pct": 89.4, "attribution_confidence": 0.66}
+    j = {"period": {"start": "a", "end": "b", "days": 1, "timezone": "Europe/Oslo"},
+         "data_quality": {"rows_stored": 1, "rows_rejected": 0, "gaps": [], "complete_days": 1, "mode": "x"},
+         "battery": {"chemistry": "lifepo4", "rated_Ah": 200, "usable_Ah": None, "usable_Ah_why": "w",
+                     "peukert_k": 1.03, "peukert_k_source": "s", "internal_resistance_ohm": None,
+                     "internal_resistance_ohm_why": "w"},
+         "days": [dict(day, consumed_Ah_pi95=[43.2, 53.9])]}
+    text = "\n".join(describe(j))
+    assert "95 % range" in text and "43-54" in text
+    j["days"] = [day]
+    assert "95 % range" not in "\n".join(describe(j))
