@@ -31,6 +31,12 @@ def _ramp_solar(n: int) -> np.ndarray:
     return 10.0 * np.sin(np.linspace(0.0, np.pi, n))
 
 
+def _events_under_ramp(load: np.ndarray) -> np.ndarray:
+    """The step events rebuilt from net = a smooth solar ramp - ``load`` (Kirchhoff at the bank)."""
+    n = len(load)
+    return _load_step_events(_ramp_solar(n) - load, step_min_A=0.6, amp_max_A=50.0, max_bins=n)[0]
+
+
 def test_paired_load_steps_under_a_smooth_solar_ramp_give_each_load_its_draw():
     # Kirchhoff's current law: net = solar - (fridge + lights); loads superpose.
     n = 600
@@ -38,8 +44,7 @@ def test_paired_load_steps_under_a_smooth_solar_ramp_give_each_load_its_draw():
     load[100:115] += 4.0          # a fridge cycle, 15 bins
     load[200:480] += 1.8          # a long load (satellite terminal), 280 bins
     load[300:318] += 4.0          # a fridge cycle nested in it
-    events, _, _ = _load_step_events(_ramp_solar(n) - load, step_min_A=0.6, amp_max_A=50.0, max_bins=600)
-    np.testing.assert_allclose(events, load, atol=0.05)
+    np.testing.assert_allclose(_events_under_ramp(load), load, atol=0.05)
 
 
 def test_unpaired_charger_steps_are_not_loads():
@@ -59,8 +64,7 @@ def test_two_loads_switching_off_in_the_same_bin_are_both_closed():
     load = np.zeros(n)
     load[250:350] += 2.0
     load[300:350] += 3.0
-    events, _, _ = _load_step_events(_ramp_solar(n) - load, step_min_A=0.6, amp_max_A=50.0, max_bins=600)
-    np.testing.assert_allclose(events, load, atol=0.05)
+    np.testing.assert_allclose(_events_under_ramp(load), load, atol=0.05)
 
 
 def test_a_short_burst_that_starts_with_a_longer_load_closes_only_its_own_part():
@@ -72,9 +76,8 @@ def test_a_short_burst_that_starts_with_a_longer_load_closes_only_its_own_part()
     load[100:500] += 1.8
     load[200:240] += 2.5
     load[200:202] += 3.5
-    events, _, _ = _load_step_events(_ramp_solar(n) - load, step_min_A=0.6, amp_max_A=50.0, max_bins=600)
     # The ramp's change per bin (<= 0.05 A) enters both the burst's rise and the fridge's rest.
-    np.testing.assert_allclose(events, load, atol=0.1)
+    np.testing.assert_allclose(_events_under_ramp(load), load, atol=0.1)
 
 
 def test_a_pair_whose_load_the_sun_could_not_have_carried_is_not_a_load():
