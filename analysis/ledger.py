@@ -915,6 +915,18 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
             if u < used_down:
                 continue
             later = downs[downs > u]
+            # In the dark, a dip (a fall the current climbs back from within minutes) is a
+            # load step the rebuild missed, not the charger switching off. (By day the sun
+            # does the same behind a passing cloud.)
+            dip = int(300.0 / bin_s)
+            keep_down = []
+            for dd in later.tolist():  # loop over down-steps of one run
+                # ext[dd] is the level before the fall; g[dd:dd + dip] the bins after it.
+                after = g[dd:dd + dip]
+                if (sun[min(s + dd, n - 1)] > 0.02 or len(after) == 0
+                        or float(after.max()) < ext[dd] + 0.35 * dg[dd]):
+                    keep_down.append(dd)
+            later = np.asarray(keep_down, dtype=np.int64)
             d = int(later[0]) if len(later) else len(g)
             # A switch-off sampled mid-interval gives a two-bin ramp: the plateau (and the
             # baseline after it) runs to the last of consecutive down-steps.

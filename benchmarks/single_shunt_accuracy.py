@@ -51,7 +51,9 @@ def run(name: str, seed: int | None, interval: float, days: int | None, verbose:
         s_err = (e["charged_Ah_solar"] - t_sol) / max(t_sol, SOLAR_MIN_AH)
         covered = e["consumed_Ah_pi95_lo"] <= d["consumed_Ah"] <= e["consumed_Ah_pi95_hi"]
         half = 0.5 * (e["consumed_Ah_pi95_hi"] - e["consumed_Ah_pi95_lo"]) / d["consumed_Ah"]
-        rows.append((name, seed, interval, d["date"], d["consumed_Ah"], c_err, t_sol, s_err, covered, half))
+        other_err = sum(abs(e[f"charged_Ah_{k}"] - d["charged_Ah"][k]) for k in ("alternator", "shore"))
+        rows.append((name, seed, interval, d["date"], d["consumed_Ah"], c_err, t_sol, s_err, covered, half,
+                     other_err))
         if verbose:
             flag = ("C" if abs(c_err) > CONSUMED_TOL else " ") + ("S" if abs(s_err) > SOLAR_TOL else " ")
             print(f"  {flag} {name:12s} seed={seed or 'own':>4} {interval:>4.0f}s {d['date']}  consumed "
@@ -89,6 +91,8 @@ def main(argv: list[str] | None = None) -> int:
     half = np.array([r[9] for r in rows])
     print(f"consumed 95 % interval covers truth on {cov.sum()}/{len(cov)} days, median half-width "
           f"{100 * np.median(half):.0f} %")
+    other = np.array([r[10] for r in rows])
+    print(f"alternator + shore: mean |error| {np.mean(other):.1f} Ah per day, worst {np.max(other):.1f} Ah")
     print(f"all          consumed within 8 %: {np.sum(np.abs(c) <= CONSUMED_TOL)}/{len(c)}; "
           f"solar within 15 %: {np.sum(np.abs(s) <= SOLAR_TOL)}/{len(s)}")
     return 0
