@@ -116,7 +116,7 @@ def test_local_days_follow_the_site_timezone_across_dst():
 
 def test_single_shunt_recovers_a_steady_load_under_solar_and_labels_solar():
     # 3 A steady load + a sun-shaped solar current; only the battery shunt is logged.
-    from analysis.ledger import sun_elevation_deg
+    from analysis.single_shunt import sun_elevation_deg
     start = pd.Timestamp("2026-06-08", tz="Europe/Oslo").tz_convert("UTC")
     t = pd.date_range(start, start + pd.Timedelta(days=4), freq="60s", inclusive="left")
     elev = sun_elevation_deg(t.as_unit("us").asi8, 60.4, 5.3)

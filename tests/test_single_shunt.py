@@ -12,7 +12,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis.ledger import _load_step_events, daily_ledger
+from analysis.ledger import daily_ledger
+from analysis.single_shunt import _load_step_events
 from analysis.system import system_from_mapping
 from tests.test_ledger import long_frame
 
@@ -216,7 +217,7 @@ def test_bundled_scenario_single_shunt_consumed_Ah_within_8_percent_on_every_day
 def test_hourly_error_sd_is_the_rms_of_hour_block_means():
     # Closed form: hour blocks with mean errors +1 A and -3 A give RMS sqrt((1 + 9) / 2) A;
     # a block covered for less than half an hour is left out.
-    from analysis.ledger import _hourly_error_sd
+    from analysis.single_shunt import _hourly_error_sd
 
     bin_us = 60 * 1_000_000
     t_mid = np.arange(180) * bin_us + bin_us // 2  # three hours of 1-minute bins
@@ -263,7 +264,7 @@ def test_charge_beyond_the_clear_sky_solar_limit_goes_to_the_last_plateau_source
     # A 30 A alternator plateau (bins 100-200), then the bank keeps taking 8 A after the
     # drive while the arrays can give at most 2 A (clear-sky bound): 6 A of it is not solar.
     # Kirchhoff: the parts add up to the gross charge in every bin.
-    from analysis.ledger import _attribute
+    from analysis.single_shunt import _attribute
 
     n = 400
     gross = np.zeros(n)
@@ -281,7 +282,7 @@ def test_charge_beyond_the_clear_sky_solar_limit_goes_to_the_last_plateau_source
 def test_a_rise_far_below_every_charger_rating_is_not_a_charger_plateau():
     # The only charger is a 30 A alternator; a 5 A rise lasting an hour at noon with no
     # hold nearby is the sun coming out (or a load switching off), not the alternator.
-    from analysis.ledger import _attribute
+    from analysis.single_shunt import _attribute
 
     n = 300
     gross = np.full(n, 2.0)
@@ -295,13 +296,13 @@ def test_a_rise_far_below_every_charger_rating_is_not_a_charger_plateau():
 def test_single_shunt_in_sample_chunks_gives_the_same_ledger_as_one_pass(monkeypatch):
     # The single-shunt path sums samples into bins in chunks (memory on a year at 1 Hz);
     # the chunk size must not change any figure.
-    import analysis.ledger as ledger_mod
+    import analysis.single_shunt as single_shunt_mod
     from collector.simulated import simulate, to_canonical
 
     sim = simulate("autumn-van", days=3)
     frame = to_canonical(sim, interval_s=60, single_shunt=True)
     one = daily_ledger(frame, sim.scenario.system)
-    monkeypatch.setattr(ledger_mod, "SAMPLE_CHUNK", 997)
+    monkeypatch.setattr(single_shunt_mod, "SAMPLE_CHUNK", 997)
     chunked = daily_ledger(frame, sim.scenario.system)
     pd.testing.assert_frame_equal(one, chunked, rtol=1e-9)
 
@@ -311,7 +312,7 @@ def test_hour_top_up_counts_the_load_the_hours_visible_minutes_already_carry():
     # Minutes 0-9 are read (a kettle: 12 A, 2 Ah); minutes 10-59 are hidden, 1 A seen.
     # The hour already carries 2 + 50/60 Ah, so the hidden minutes get (3 - 2.8333) Ah
     # spread over 50/60 h: +0.2 A. Without the read minutes they would get +2 A.
-    from analysis.ledger import _hour_topped_up
+    from analysis.single_shunt import _hour_topped_up
 
     bin_us = 60 * 1_000_000
     t_mid = np.arange(60) * bin_us + bin_us // 2
