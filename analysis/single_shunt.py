@@ -127,16 +127,24 @@ def sun_elevation_deg(t_us: np.ndarray, latitude_deg: float, longitude_deg: floa
     return np.rad2deg(np.arcsin(np.clip(cz, -1, 1)))
 
 
-def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndarray, gaps: np.ndarray,
-                  cols: dict[str, np.ndarray], extras: dict[str, np.ndarray], notes: list[str]
-                  ) -> tuple[pd.Series | None, LoadModel | None]:
-    """Load model, gross charge and source attribution from the battery channel alone."""
-    import statsmodels.api as sm
+@dataclass(frozen=True)
+class _Bins:
+    """The battery channel summed into fixed bins (arrays of length ``n``)."""
 
-    n_days = len(bounds) - 1
-    cap = system.battery.rated_capacity_Ah
-    bin_s = max(60.0, math.ceil(median_interval_s(bat.t_us) / 60.0) * 60.0)
-    bin_us = int(bin_s * US_PER_S)
+    n: int
+    hrs: np.ndarray          # hours of valid samples in each bin
+    net_A: np.ndarray        # trapezoid mean net current (NaN where empty)
+    held_net_A: np.ndarray   # each sample held over its interval: sharp steps for step detection
+    voltage_V: np.ndarray    # mean bank voltage (NaN where empty)
+    temp_C: np.ndarray | None  # mean temperature, None when not logged
+
+
+def _bin_sums(bat: Channel, v_b: np.ndarray, gaps: np.ndarray, bin_us: int) -> _Bins:
+    """Sum the battery channel's samples into bins of ``bin_us``, in chunks of :data:`SAMPLE_CHUNK`.
+
+    A year at 1 Hz would otherwise hold several 250 MB temporaries at once.
+    Gap intervals (``gaps``) count for nothing.
+    """
     b0 = bat.t_us[0] // bin_us
     n_bins = int(bat.t_us[-2] // bin_us - b0) + 1
     hrs = np.zeros(n_bins)
@@ -146,8 +154,6 @@ def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: n
     has_t = np.isfinite(bat.temperature_C).any()
     t_mean = float(np.nanmean(bat.temperature_C)) if has_t else 0.0
     tw = np.zeros(n_bins)
-    # Per-sample sums into bins in chunks: a year at 1 Hz would otherwise hold several
-    # 250 MB temporaries at once.
     n_iv = len(bat.t_us) - 1
     for i0 in range(0, n_iv, SAMPLE_CHUNK):  # loop over chunks of millions of samples
         i1 = min(n_iv, i0 + SAMPLE_CHUNK)
@@ -166,11 +172,86 @@ def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: n
             tt = np.nan_to_num(bat.temperature_C[i0:i1].astype(np.float64), nan=t_mean)
             tw += np.bincount(b, weights=tt * dt, minlength=n_bins)
     with np.errstate(invalid="ignore", divide="ignore"):
-        net = np.where(hrs > 0, ah / np.maximum(hrs, 1e-12), np.nan)
-        net_step = np.where(hrs > 0, held_w / np.maximum(hrs, 1e-12), np.nan)
-        v_bin = np.where(hrs > 0, vw / np.maximum(hrs, 1e-12), np.nan)
-        if has_t:
-            temp = tw / np.maximum(hrs, 1e-12)
+        per_h = np.maximum(hrs, 1e-12)
+        return _Bins(n=n_bins, hrs=hrs, net_A=np.where(hrs > 0, ah / per_h, np.nan),
+                     held_net_A=np.where(hrs > 0, held_w / per_h, np.nan),
+                     voltage_V=np.where(hrs > 0, vw / per_h, np.nan), temp_C=tw / per_h if has_t else None)
+
+
+def _closing(mask: np.ndarray, win: int) -> np.ndarray:
+    """Morphological closing of a boolean mask over ``win`` bins (fills gaps shorter than it)."""
+    dil = pd.Series(mask.astype(float)).rolling(win, center=True, min_periods=1).max()
+    return (1.0 - (1.0 - dil).rolling(win, center=True, min_periods=1).max()).to_numpy() > 0.5
+
+
+def _hidden_masks(net_f: np.ndarray, v_bin: np.ndarray, system: System, bin_s: float
+                  ) -> tuple[np.ndarray, np.ndarray]:
+    """(held, hidden): bins where a charger holds the full bank, and where it hides the load.
+
+    Held: a charger holds the full bank at absorption or float and exactly covers
+    the load, so the net current sits at zero (a lead-acid bank on float: a small
+    flat current) and the voltage at a charged level. Hidden: held, or
+    *regulated* (the voltage flat within noise at a charged level: the charger
+    covers every load change itself, the net current is the bank's taper), with
+    short visible gaps inside closed.
+    """
+    cap = system.battery.rated_capacity_Ah
+    blocks = max(1.0, float(system.battery.series_12V_blocks))
+    v_held = (13.45 if system.battery.chemistry == "lifepo4" else 13.3) * blocks
+    sd5 = pd.Series(net_f).rolling(5, center=True, min_periods=3).std().fillna(1.0).to_numpy()
+    flat = (sd5 < HELD_SD_A) & (net_f > -0.05) & (net_f < max(HELD_A, 0.03 * cap))
+    if system.battery.chemistry == "lifepo4":  # a full lithium bank takes no float current
+        flat[:] = False
+    v_f = np.nan_to_num(v_bin, nan=0.0)
+    held = ((np.abs(net_f) < HELD_A) | flat) & (v_f >= v_held)
+    # The charger follows a load step a moment late: a bin or two of small net current
+    # inside a hold is still the hold (closing over 5 bins).
+    held |= _closing(held, 5) & (np.abs(net_f) < max(1.0, 0.01 * cap))
+    v_span = (pd.Series(v_f).rolling(REG_BINS, center=True, min_periods=3).max()
+              - pd.Series(v_f).rolling(REG_BINS, center=True, min_periods=3).min()).fillna(np.inf).to_numpy()
+    regulated = (v_span <= REG_SPAN_V * blocks) & (v_f >= v_held) & (net_f > -HELD_A)
+    hidden = held | regulated
+    # A few minutes of visible net current inside a hold (the charger answering a load
+    # step a moment late) cannot be read on their own: the hold goes on through them.
+    hidden |= _closing(hidden, 2 * max(1, int(HIDDEN_GAP_S / bin_s)) + 1)
+    return held, hidden
+
+
+def _clear_sky_cap_A(t_mid: np.ndarray, v_bin: np.ndarray, system: System) -> np.ndarray:
+    """The most the arrays can deliver per bin [A at the bank]: pvlib clear sky x :data:`SOLAR_CAP_MARGIN`.
+
+    Solar cannot deliver more than the arrays' clear-sky output, plus what
+    cloud-edge enhancement may add.
+    """
+    from analysis.solar_model import expected_clear_sky
+
+    times = pd.DatetimeIndex(t_mid.view("M8[us]")).tz_localize("UTC")
+    v_ok = np.isfinite(v_bin)
+    exp = expected_clear_sky(times, system, battery_voltage_V=pd.Series(v_bin[v_ok], index=times[v_ok])
+                             if v_ok.any() else None)
+    v_div = np.where(v_ok, v_bin, system.battery.nominal_voltage_V)
+    return SOLAR_CAP_MARGIN * np.nan_to_num(exp["delivered_W"].to_numpy(), nan=0.0) / v_div
+
+
+def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: np.ndarray, gaps: np.ndarray,
+                        cols: dict[str, np.ndarray], extras: dict[str, np.ndarray], notes: list[str]
+                        ) -> tuple[pd.Series | None, LoadModel | None]:
+    """Load model, gross charge and source attribution from the battery channel alone.
+
+    Adds each local day's consumed and charged-by-source Ah/Wh into ``cols`` and the
+    95 % interval and attribution confidence into ``extras``; returns the attributed
+    solar current per bin and the load model (None when too few quiet bins).
+    """
+    import statsmodels.api as sm
+
+    n_days = len(bounds) - 1
+    cap = system.battery.rated_capacity_Ah
+    bin_s = max(60.0, math.ceil(median_interval_s(bat.t_us) / 60.0) * 60.0)
+    bin_us = int(bin_s * US_PER_S)
+    bins = _bin_sums(bat, v_b, gaps, bin_us)
+    n_bins, hrs, net, net_step, v_bin, temp = bins.n, bins.hrs, bins.net_A, bins.held_net_A, bins.voltage_V, bins.temp_C
+    has_t = temp is not None
+    b0 = bat.t_us[0] // bin_us
     covered = hrs * 3600.0 / bin_s
     t_mid = (b0 + np.arange(n_bins)) * bin_us + bin_us // 2
     local = pd.DatetimeIndex(t_mid.view("M8[us]")).tz_localize("UTC").tz_convert(system.site.timezone)
@@ -182,36 +263,8 @@ def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: n
     charging = np.nan_to_num(net, nan=0.0) > on_thr
     # Widen the charging mask by a few bins: a charger's turn-off and the solar shoulders.
     widen = pd.Series(charging.astype(float)).rolling(5, center=True, min_periods=1).max().to_numpy() > 0
-    # Held: a charger holds the full bank at absorption or float and exactly covers the
-    # load, so the net current sits at zero and the voltage at a charged level.
-    blocks = max(1.0, float(system.battery.series_12V_blocks))
-    v_held = (13.45 if system.battery.chemistry == "lifepo4" else 13.3) * blocks
-    # A lead-acid bank on float takes a small steady current: flat, not zero.
     net_f = np.nan_to_num(net, nan=-1.0)
-    sd5 = pd.Series(net_f).rolling(5, center=True, min_periods=3).std().fillna(1.0).to_numpy()
-    flat = (sd5 < HELD_SD_A) & (net_f > -0.05) & (net_f < max(HELD_A, 0.03 * cap))
-    if system.battery.chemistry == "lifepo4":  # a full lithium bank takes no float current
-        flat[:] = False
-    held = ((np.abs(net_f) < HELD_A) | flat) & (np.nan_to_num(v_bin, nan=0.0) >= v_held)
-    # The charger follows a load step a moment late: a bin or two of small net current
-    # inside a hold is still the hold (morphological closing over 5 bins).
-    dil = pd.Series(held.astype(float)).rolling(5, center=True, min_periods=1).max()
-    closed = (1.0 - (1.0 - dil).rolling(5, center=True, min_periods=1).max()).to_numpy() > 0.5
-    held |= closed & (np.abs(net_f) < max(1.0, 0.01 * cap))
-    # Regulated: a charger holds the bank at its absorption or float voltage. It covers
-    # every load change itself, so the net current is the bank's taper and shows no
-    # load step. The voltage is the sign: flat (within noise) at a charged level.
-    v_f = np.nan_to_num(v_bin, nan=0.0)
-    v_span = (pd.Series(v_f).rolling(REG_BINS, center=True, min_periods=3).max()
-              - pd.Series(v_f).rolling(REG_BINS, center=True, min_periods=3).min()).fillna(np.inf).to_numpy()
-    regulated = (v_span <= REG_SPAN_V * blocks) & (v_f >= v_held) & (net_f > -HELD_A)
-    hidden_load = held | regulated
-    # A few minutes of visible net current inside a hold (the charger answering a load
-    # step a moment late) cannot be read on their own: the hold goes on through them.
-    gap_bins = max(1, int(HIDDEN_GAP_S / bin_s))
-    win = 2 * gap_bins + 1
-    dil = pd.Series(hidden_load.astype(float)).rolling(win, center=True, min_periods=1).max()
-    hidden_load = hidden_load | ((1.0 - (1.0 - dil).rolling(win, center=True, min_periods=1).max()).to_numpy() > 0.5)
+    held, hidden_load = _hidden_masks(net_f, v_bin, system, bin_s)
     train = (covered >= 0.5) & ~widen & np.isfinite(net) & ~hidden_load
     if solar_possible:
         train &= elev < -3.0
@@ -230,18 +283,7 @@ def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: n
         terms.append("temperature_C")
         feats.append(tc)
     X = np.column_stack(feats)
-    solar_max = None
-    if solar_possible:
-        # Solar cannot deliver more than the arrays' clear-sky output (pvlib), plus what
-        # cloud-edge enhancement may add (SOLAR_CAP_MARGIN).
-        from analysis.solar_model import expected_clear_sky
-
-        times = pd.DatetimeIndex(t_mid.view("M8[us]")).tz_localize("UTC")
-        v_ok = np.isfinite(v_bin)
-        exp = expected_clear_sky(times, system, battery_voltage_V=pd.Series(v_bin[v_ok], index=times[v_ok])
-                                 if v_ok.any() else None)
-        v_div = np.where(v_ok, v_bin, system.battery.nominal_voltage_V)
-        solar_max = SOLAR_CAP_MARGIN * np.nan_to_num(exp["delivered_W"].to_numpy(), nan=0.0) / v_div
+    solar_max = _clear_sky_cap_A(t_mid, v_bin, system) if solar_possible else None
     # Where only the sun can be charging (no charger holding the bank, and no more net
     # charge than the sun can give), the load is at most what the sun could give beyond
     # the net current.
