@@ -27,6 +27,7 @@ import pandas as pd
 
 from analysis.readings import epoch_us
 from analysis.solar_bins import ChannelBinner, Grid
+from analysis.json_values import rounded
 from analysis.system import System
 
 __all__ = ["ChargingAnalysis", "analyse_charging", "dc_dc_input_current_A", "SOURCES"]
@@ -134,10 +135,8 @@ class ChargingAnalysis:
 
 
 def _r(x: Any, nd: int = 2) -> Any:
-    if x is None:
-        return None
-    xf = float(x)
-    return None if not np.isfinite(xf) else round(xf, nd)
+    """This module's JSON rounding (2 decimals unless told): :func:`analysis.json_values.rounded`."""
+    return rounded(x, nd)
 
 
 def _runs(active: np.ndarray, merge_gap: int) -> tuple[np.ndarray, np.ndarray]:

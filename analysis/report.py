@@ -15,7 +15,6 @@ Everything that cannot be estimated is ``None`` with a sibling ``*_why``.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -36,6 +35,7 @@ from analysis.charge import SocResult, state_of_charge
 from analysis.ledger import SOURCES, LedgerResult, compute_ledger
 from analysis.readings import US_PER_S, split_channels
 from analysis.runtime import RuntimeEstimate, runtime_left
+from analysis.json_values import rounded
 from analysis.system import System
 
 #: Days whose mean |our SoC - device SoC| exceeds this are flagged [%].
@@ -45,13 +45,8 @@ PLOT_POINTS: int = 2000
 
 
 def _r(x: Any, nd: int = 3) -> Any:
-    if x is None:
-        return None
-    try:
-        xf = float(x)
-    except (TypeError, ValueError):
-        return x
-    return round(xf, nd) if math.isfinite(xf) else None
+    """This module's JSON rounding (3 decimals unless told): :func:`analysis.json_values.rounded`."""
+    return rounded(x, nd)
 
 
 @dataclass(frozen=True)

@@ -43,6 +43,7 @@ from analysis.solar_model import (
     TEMPERATURE_MOUNT,
     expected_clear_sky,
 )
+from analysis.json_values import rounded
 from analysis.system import System
 
 __all__ = ["SolarAnalysis", "analyse_solar", "expected_clear_sky", "BIN_MINUTES"]
@@ -158,13 +159,8 @@ class SolarAnalysis:
 
 
 def _r(x: Any, nd: int = 1) -> Any:
-    if x is None:
-        return None
-    try:
-        xf = float(x)
-    except (TypeError, ValueError):
-        return x
-    return None if not np.isfinite(xf) else round(xf, nd)
+    """This module's JSON rounding (1 decimals unless told): :func:`analysis.json_values.rounded`."""
+    return rounded(x, nd)
 
 
 _DAY_ROUND = {"measured_Wh": 1, "measured_Ah": 2, "expected_Wh": 1, "expected_dc_Wh": 1,

@@ -243,3 +243,13 @@ def test_report_text_shows_the_95_percent_range_of_use_only_for_a_single_shunt()
     assert "95 % range" in text and "43-54" in text
     j["days"] = [day]
     assert "95 % range" not in "\n".join(describe(j))
+
+
+def test_json_rounding_gives_null_for_missing_and_non_finite_values():
+    # JSON (RFC 8259) has no NaN or infinity: an unknown value is null in the report.
+    from analysis.json_values import rounded
+
+    assert rounded(1.23456, 3) == 1.235
+    assert rounded(np.float32(2.5), 0) == 2.0
+    assert rounded(None, 2) is None and rounded(float("nan"), 2) is None and rounded(np.inf, 1) is None
+    assert rounded("clear", 1) == "clear"
