@@ -113,18 +113,22 @@ class BatchWriter:
         self._store_error: str | None = None
         self.notes: deque[str] = deque(maxlen=100)
 
+    def _drop_beyond_bound(self) -> None:
+        """Drop the oldest pending readings beyond ``max_pending``, counted (call with the lock held)."""
+        over = len(self._pending) - self.max_pending
+        if over > 0:
+            for _ in range(over):
+                self._pending.popleft()
+            self.stats.rows_dropped += over
+            self._dropped_unreported += over
+
     # -- the Sink interface ------------------------------------------------
     def put(self, readings: Sequence[Reading]) -> None:
         if not readings:
             return
         with self._lock:
             self._pending.extend(readings)
-            over = len(self._pending) - self.max_pending
-            if over > 0:
-                for _ in range(over):
-                    self._pending.popleft()
-                self.stats.rows_dropped += over
-                self._dropped_unreported += over
+            self._drop_beyond_bound()
 
     def reject(self, text: str, reason: str, t_s: float) -> None:
         with self._lock:
@@ -188,12 +192,7 @@ class BatchWriter:
             with self._lock:
                 self._pending.extendleft(reversed(batch))
                 self._events = events + self._events
-                over = len(self._pending) - self.max_pending
-                if over > 0:
-                    for _ in range(over):
-                        self._pending.popleft()
-                    self.stats.rows_dropped += over
-                    self._dropped_unreported += over
+                self._drop_beyond_bound()
             return 0
         if self._store_error is not None:
             self.note(f"store {self.store.path} available again")
