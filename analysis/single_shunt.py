@@ -481,10 +481,7 @@ def _hour_topped_up(seen_A: np.ndarray, typical_A: np.ndarray, hrs: np.ndarray, 
     else:
         # The typical load over the whole hour, less what the hour already carries.
         carried = np.where(use, seen_A, np.nan_to_num(other_A)) * hrs
-        hour_h = np.bincount(block, weights=np.where(h_b[block] > 0, hrs, 0.0))
-        typ_ah = np.bincount(block, weights=typical_A * hrs)
-        short = typ_ah - np.bincount(block, weights=carried)
-        short = np.where(hour_h > 0, short, 0.0)
+        short = np.bincount(block, weights=typical_A * hrs) - np.bincount(block, weights=carried)
     with np.errstate(invalid="ignore", divide="ignore"):
         top = np.where(h_b > 0, np.clip(short, 0.0, None) / np.maximum(h_b, 1e-12), 0.0)
     return np.where(use, seen_A + top[block], 0.0)
@@ -798,6 +795,24 @@ def _load_step_events(net_A: np.ndarray, *, step_min_A: float, amp_max_A: float,
             diff[j] += level
             diff[k] -= level
 
+    def split_latest(a: float, i: int) -> bool:
+        # Close the part ``a`` of the latest open fall at step ``i``; the rest stays open.
+        j, a_on = stack[-1]
+        if not fits(j, a, i):
+            return False
+        diff[j] += a
+        diff[i] -= a
+        stack[-1] = (j, a_on - a)
+        return True
+
+    def latest_match(a: float, i: int, tol: float) -> int:
+        # The latest open fall whose size agrees with the rise ``a`` within ``tol`` (-1: none).
+        for k in range(len(stack) - 1, -1, -1):
+            j, a_on = stack[k]
+            if abs(a_on - a) <= max(tol * a_on, 0.4 * tol / 0.35) and fits(j, 0.5 * (a_on + a), i):
+                return k
+        return -1
+
     for i, a in zip(idx.tolist(), amp.tolist()):  # loop over detected steps, not over log rows
         if stack and i - stack[0][0] > max_bins:  # steps too old to close are dropped
             for j, x in stack:
@@ -809,34 +824,17 @@ def _load_step_events(net_A: np.ndarray, *, step_min_A: float, amp_max_A: float,
             continue
         # A rise a bin or two after a larger fall: a short burst (a pump, a compressor's
         # inrush) that switched on with a longer load ends; the rest stays open.
-        if stack and i - stack[-1][0] <= SPLIT_BINS and stack[-1][1] - a >= step_min_A:
-            j, a_on = stack[-1]
-            if fits(j, a, i):
-                diff[j] += a
-                diff[i] -= a
-                stack[-1] = (j, a_on - a)
-                continue
-        # The latest open load whose size matches this rise ...
-        best = -1
-        for tol in (0.12, 0.35):  # a close match first, the latest first; then a loose one
-            for k in range(len(stack) - 1, -1, -1):
-                j, a_on = stack[k]
-                if abs(a_on - a) <= max(tol * a_on, 0.4 * tol / 0.35) and fits(j, 0.5 * (a_on + a), i):
-                    best = k
-                    break
-            if best >= 0:
-                break
-            # No close match: the latest open fall, if larger by a whole step, was two loads
-            # switching on together; this one ends, the other stays open.
-            if stack and stack[-1][1] - a >= max(step_min_A, 0.35 * a) and fits(stack[-1][0], a, i):
-                j, a_on = stack[-1]
-                diff[j] += a
-                diff[i] -= a
-                stack[-1] = (j, a_on - a)
-                best = -2
-                break
-        if best == -2:
+        if stack and i - stack[-1][0] <= SPLIT_BINS and stack[-1][1] - a >= step_min_A and split_latest(a, i):
             continue
+        # The latest open load whose size matches this rise closely ...
+        best = latest_match(a, i, 0.12)
+        if best < 0:
+            # ... else the latest open fall, if larger by a whole step, was two loads
+            # switching on together: this one ends, the other stays open ...
+            if stack and stack[-1][1] - a >= max(step_min_A, 0.35 * a) and split_latest(a, i):
+                continue
+            # ... else a loose match.
+            best = latest_match(a, i, 0.35)
         if best >= 0:
             j, a_on = stack.pop(best)
             level = 0.5 * (a_on + a)
