@@ -15,6 +15,7 @@ from __future__ import annotations
 import argparse
 import sys
 import time
+from typing import NamedTuple
 from pathlib import Path
 
 import numpy as np
@@ -35,7 +36,21 @@ SOLAR_TOL = 0.15
 SOLAR_MIN_AH = 5.0  # a day with less true solar than this is judged in Ah, not percent
 
 
-def run(name: str, seed: int | None, interval: float, days: int | None, verbose: bool) -> list[tuple]:
+class DayScore(NamedTuple):
+    """One simulated day scored against its truth."""
+
+    scenario: str
+    seed: int | None
+    interval_s: float
+    date: str
+    consumed_err: float      # relative error of consumed Ah
+    solar_err: float         # solar Ah error / max(true solar, SOLAR_MIN_AH)
+    covered: bool            # the 95 % interval of consumed Ah holds the truth
+    half_width: float        # that interval's half-width / true consumed Ah
+    charger_err_Ah: float    # |alternator error| + |shore error| [Ah]
+
+
+def run(name: str, seed: int | None, interval: float, days: int | None, verbose: bool) -> list[DayScore]:
     sc = load_scenario(name)
     sim = simulate(sc, days=days, seed=seed)
     frame = to_canonical(sim, interval_s=interval, single_shunt=True)
@@ -52,8 +67,7 @@ def run(name: str, seed: int | None, interval: float, days: int | None, verbose:
         covered = e["consumed_Ah_pi95_lo"] <= d["consumed_Ah"] <= e["consumed_Ah_pi95_hi"]
         half = 0.5 * (e["consumed_Ah_pi95_hi"] - e["consumed_Ah_pi95_lo"]) / d["consumed_Ah"]
         other_err = sum(abs(e[f"charged_Ah_{k}"] - d["charged_Ah"][k]) for k in ("alternator", "shore"))
-        rows.append((name, seed, interval, d["date"], d["consumed_Ah"], c_err, t_sol, s_err, covered, half,
-                     other_err))
+        rows.append(DayScore(name, seed, interval, d["date"], c_err, s_err, covered, half, other_err))
         if verbose:
             flag = ("C" if abs(c_err) > CONSUMED_TOL else " ") + ("S" if abs(s_err) > SOLAR_TOL else " ")
             print(f"  {flag} {name:12s} seed={seed or 'own':>4} {interval:>4.0f}s {d['date']}  consumed "
@@ -76,22 +90,22 @@ def main(argv: list[str] | None = None) -> int:
         for seed in args.seeds:
             for interval in args.intervals:
                 rows += run(name, seed or None, interval, args.days, not args.quiet)
-    c = np.array([r[5] for r in rows])
-    s = np.array([r[7] for r in rows])
+    c = np.array([r.consumed_err for r in rows])
+    s = np.array([r.solar_err for r in rows])
     print(f"\n{len(rows)} days in {time.perf_counter() - t0:.0f} s")
     for name in args.scenarios:
-        m = np.array([r[0] == name for r in rows])
-        own = m & np.array([r[1] is None for r in rows])
+        m = np.array([r.scenario == name for r in rows])
+        own = m & np.array([r.seed is None for r in rows])
         print(f"{name:12s} consumed within 8 %: {np.sum(np.abs(c[m]) <= CONSUMED_TOL):3d}/{m.sum()} "
               f"(own seed {np.sum(np.abs(c[own]) <= CONSUMED_TOL)}/{own.sum()}), mean |err| "
               f"{100 * np.mean(np.abs(c[m])):.1f} %;  solar within 15 %: {np.sum(np.abs(s[m]) <= SOLAR_TOL):3d}"
               f"/{m.sum()} (own seed {np.sum(np.abs(s[own]) <= SOLAR_TOL)}/{own.sum()}), mean |err| "
               f"{100 * np.mean(np.abs(s[m])):.1f} %")
-    cov = np.array([r[8] for r in rows])
-    half = np.array([r[9] for r in rows])
+    cov = np.array([r.covered for r in rows])
+    half = np.array([r.half_width for r in rows])
     print(f"consumed 95 % interval covers truth on {cov.sum()}/{len(cov)} days, median half-width "
           f"{100 * np.median(half):.0f} %")
-    other = np.array([r[10] for r in rows])
+    other = np.array([r.charger_err_Ah for r in rows])
     print(f"alternator + shore: mean |error| {np.mean(other):.1f} Ah per day, worst {np.max(other):.1f} Ah")
     print(f"all          consumed within 8 %: {np.sum(np.abs(c) <= CONSUMED_TOL)}/{len(c)}; "
           f"solar within 15 %: {np.sum(np.abs(s) <= SOLAR_TOL)}/{len(s)}")
