@@ -337,7 +337,8 @@ _SOURCES = ("solar", "alternator", "shore", "other")
 
 
 _DAY_COLUMNS = ["date", "complete", "consumed_Ah", "consumed_Wh", "soc_min_pct", "soc_end_pct",
-                *[f"charged_{s}_Ah" for s in _SOURCES], "charged_Ah"]
+                *[f"charged_{s}_Ah" for s in _SOURCES], "charged_Ah",
+                "consumed_Ah_lo", "consumed_Ah_hi"]  # the 95 % range of a single shunt's estimate, else NaN
 
 
 def _ledger_days(days: pd.DataFrame) -> pd.DataFrame:
@@ -350,6 +351,8 @@ def _ledger_days(days: pd.DataFrame) -> pd.DataFrame:
         col = f"charged_Ah_{src}"
         out[f"charged_{src}_Ah"] = pd.to_numeric(days[col], errors="coerce").fillna(0.0) if col in days else 0.0
     out["charged_Ah"] = out[[f"charged_{s}_Ah" for s in _SOURCES]].sum(axis=1)
+    for col, src in (("consumed_Ah_lo", "consumed_Ah_pi95_lo"), ("consumed_Ah_hi", "consumed_Ah_pi95_hi")):
+        out[col] = pd.to_numeric(days[src], errors="coerce").to_numpy() if src in days else np.nan
     return out[_DAY_COLUMNS].reset_index(drop=True)
 
 
@@ -357,7 +360,8 @@ def _report_days(report: Any) -> pd.DataFrame:
     """The report's ``days`` (DESIGN.md contract keys) as a flat DataFrame.
 
     Columns: date, complete, consumed_Ah, consumed_Wh, charged_<source>_Ah for
-    solar/alternator/shore/other, charged_Ah (total), soc_min_pct, soc_end_pct.
+    solar/alternator/shore/other, charged_Ah (total), soc_min_pct, soc_end_pct, and
+    consumed_Ah_lo/hi (the 95 % range of a single shunt's estimate, else None).
     """
     days = _to_json(report).get("days") or []
     rows = []
@@ -369,6 +373,8 @@ def _report_days(report: Any) -> pd.DataFrame:
         for s in _SOURCES:
             row[f"charged_{s}_Ah"] = _finite(charged.get(s)) or 0.0
         row["charged_Ah"] = sum(row[f"charged_{s}_Ah"] for s in _SOURCES)
+        lo_hi = d.get("consumed_Ah_pi95") or (None, None)
+        row["consumed_Ah_lo"], row["consumed_Ah_hi"] = _finite(lo_hi[0]), _finite(lo_hi[1])
         rows.append(row)
     return pd.DataFrame(rows, columns=_DAY_COLUMNS)
 

@@ -460,3 +460,27 @@ def test_a_range_too_big_for_one_analysis_gets_a_message_not_a_crash(app_ctx, mo
     section = app_ctx.source.days(*app_ctx.source.full_range())
     assert not section.ok
     assert "pick a shorter range" in section.why
+
+
+def test_day_adapters_carry_a_single_shunts_95_percent_range_and_nothing_otherwise():
+    # The report JSON's consumed_Ah_pi95 (DESIGN.md days keys) and the ledger's
+    # consumed_Ah_pi95_lo/hi reach the dashboard's flat day frame as consumed_Ah_lo/hi.
+    from dashboard.data import _ledger_days, _report_days
+
+    base = {"date": ["2026-09-21"], "complete": [True], "consumed_Ah": [48.2], "consumed_Wh": [644.0],
+            "soc_min_pct": [80.0], "soc_end_pct": [89.0]}
+    with_range = _ledger_days(pd.DataFrame(dict(base, consumed_Ah_pi95_lo=[43.2], consumed_Ah_pi95_hi=[53.9])))
+    assert with_range.loc[0, "consumed_Ah_lo"] == 43.2 and with_range.loc[0, "consumed_Ah_hi"] == 53.9
+    assert _ledger_days(pd.DataFrame(base))["consumed_Ah_lo"].isna().all()
+    day = {"date": "2026-09-21", "complete": True, "consumed_Ah": 48.2, "consumed_Wh": 644.0,
+           "charged_Ah": {"solar": 19.3}, "soc_min_pct": 80.0, "soc_end_pct": 89.0}
+    rep = _report_days({"days": [dict(day, consumed_Ah_pi95=[43.2, 53.9])]})
+    assert rep.loc[0, "consumed_Ah_lo"] == 43.2 and rep.loc[0, "consumed_Ah_hi"] == 53.9
+    assert pd.isna(_report_days({"days": [day]}).loc[0, "consumed_Ah_lo"])
+
+
+def test_trip_table_has_no_range_column_for_a_log_with_a_shunt_per_source(app_ctx):
+    from dashboard.pages import trip
+
+    _s, _f, tab, _q, _st = trip.render_trip(app_ctx.source, *app_ctx.source.full_range())
+    assert "95 % range" not in str(tab)

@@ -13,6 +13,7 @@ from __future__ import annotations
 from typing import Any
 
 import dash
+import pandas as pd
 from dash import Input, Output, callback, dcc, html, no_update
 
 from dashboard import figures, ids
@@ -81,8 +82,14 @@ def render_trip(source: DataSource, start_date: str | None, end_date: str | None
              "solar": fmt(r.charged_solar_Ah, "", 1), "alternator": fmt(r.charged_alternator_Ah, "", 1),
              "shore": fmt(r.charged_shore_Ah, "", 1), "other": fmt(r.charged_other_Ah, "", 1),
              "soc_min": fmt(r.soc_min_pct, "%", 0), "soc_end": fmt(r.soc_end_pct, "%", 0),
-             "complete": "yes" if r.complete else "partial"} for r in df.itertuples()]  # a loop over days
-    tab = table(rows, _DAY_COLUMNS, numeric=[k for k, _ in _DAY_COLUMNS if k not in ("date", "complete")])
+             "complete": "yes" if r.complete else "partial",
+             "range": (f"{r.consumed_Ah_lo:.0f}-{r.consumed_Ah_hi:.0f}"
+                       if pd.notna(r.consumed_Ah_lo) and pd.notna(r.consumed_Ah_hi) else "-")}
+            for r in df.itertuples()]  # a loop over days
+    columns = list(_DAY_COLUMNS)
+    if df["consumed_Ah_lo"].notna().any():  # one shunt: the load under charging is estimated
+        columns.insert(2, ("range", "Used, 95 % range [Ah]"))
+    tab = table(rows, columns, numeric=[k for k, _ in columns if k not in ("date", "complete")])
     return summary, figures.ledger_figure(df), tab, _quality(source, start_date, end_date), stored
 
 
