@@ -64,7 +64,9 @@ class LedgerResult:
     Attributes
     ----------
     days : one row per local date (columns :data:`LEDGER_COLUMNS` plus extras:
-        attribution_confidence, consumed_Ah_pi95_lo/hi, device_soc_diff_pct, gap_s)
+        attribution_confidence, hidden_load_h (hours whose load was inferred, not seen),
+        profile_filled_h (of those, hours filled from other days), observed_load_share,
+        consumed_Ah_pi95_lo/hi, device_soc_diff_pct, gap_s)
     mode : 'multi-channel', 'single-shunt' or 'load channel only'
     gaps : every gap found on the channels used
     solar_current_A : attributed solar current (single shunt) on a UTC index, else None
@@ -183,6 +185,9 @@ def compute_ledger(channels: dict[str, Channel], system: System, *, soc: SocResu
     gaps_all: list[Gap] = []
     notes: list[str] = []
     extras: dict[str, np.ndarray] = {"attribution_confidence": np.full(n_days, np.nan),
+                                     "hidden_load_h": np.zeros(n_days),
+                                     "profile_filled_h": np.zeros(n_days),
+                                     "observed_load_share": np.full(n_days, np.nan),
                                      "consumed_Ah_pi95_lo": np.full(n_days, np.nan),
                                      "consumed_Ah_pi95_hi": np.full(n_days, np.nan),
                                      "device_soc_diff_pct": np.full(n_days, np.nan),
@@ -233,6 +238,7 @@ def compute_ledger(channels: dict[str, Channel], system: System, *, soc: SocResu
         notes.append("no battery channel: no state of charge")
     if mode == "multi-channel":
         extras["attribution_confidence"][:] = 1.0  # measured on their own shunts
+        extras["observed_load_share"][:] = 1.0
     days = pd.DataFrame({"date": dates, "complete": complete, **cols, **extras})
     return LedgerResult(days, mode, tuple(gaps_all), solar_series, model, soc, tuple(notes), bounds)
 

@@ -40,6 +40,17 @@ from analysis.system import System
 
 #: Days whose mean |our SoC - device SoC| exceeds this are flagged [%].
 DEVICE_DISAGREEMENT_PCT: float = 5.0
+#: A day with more hours than this whose load was inferred (not seen) says so [h].
+HIDDEN_NOTE_H: float = 1.0
+
+
+def hidden_load_note(hours: float) -> str:
+    """What a day with inferred load hours says, in every face (report text, Trip page, HTML)."""
+    return (f"the load was not seen for {hours:.1f} h of this day (one shunt cannot see it while a source "
+            "charges): it was estimated, and the day's use lies in its 95 % range; logging the charge "
+            "sources on their own (a second shunt, or the solar controller's output) removes the doubt")
+
+
 #: Points kept in the downsampled SoC series for plots.
 PLOT_POINTS: int = 2000
 
@@ -243,10 +254,13 @@ def _assemble(channels, system: System, rows_rejected: int, soc: SocResult | Non
                 "charged_Wh": {s: _r(getattr(row, f"charged_Wh_{s}"), 1) for s in SOURCES},
                 "soc_min_pct": _r(row.soc_min_pct, 2), "soc_end_pct": _r(row.soc_end_pct, 2),
                 "mean_temperature_C": _r(row.mean_temperature_C, 2), "driving_h": _r(row.driving_h, 3),
-                "attribution_confidence": _r(row.attribution_confidence, 2),
+                "hidden_load_h": _r(row.hidden_load_h, 2),
+                "observed_load_share": _r(row.observed_load_share, 3),
                 "device_soc_diff_pct": _r(row.device_soc_diff_pct, 2)}
         if np.isfinite(row.consumed_Ah_pi95_lo):
             item["consumed_Ah_pi95"] = [_r(row.consumed_Ah_pi95_lo), _r(row.consumed_Ah_pi95_hi)]
+        if row.hidden_load_h > HIDDEN_NOTE_H:
+            item["hidden_load_note"] = hidden_load_note(row.hidden_load_h)
         if not row.complete:
             item["complete_why"] = (f"gap of {row.gap_s:.0f} s in this day: its charge is unknown"
                                     if row.gap_s > 0 else "the log starts or ends within this day")

@@ -82,6 +82,9 @@ REG_BINS = 7
 #: Visible gaps [s] up to about this long inside a hold or regulation are taken as hidden too.
 HIDDEN_GAP_S = 180.0
 REG_SPAN_V = 0.012
+#: Smallest always-on draw [A] that lets a full bank at rest be told from a charger's hold
+#: (below it the two look alike to a shunt with tens of mA of offset).
+REST_MIN_DRAW_A = 0.03
 #: Sunlit-hours step rate over the night step rate above which a day's steps are clouds.
 CLOUD_STEP_RATE_RATIO = 1.3
 
@@ -184,8 +187,8 @@ def _closing(mask: np.ndarray, win: int) -> np.ndarray:
     return (1.0 - (1.0 - dil).rolling(win, center=True, min_periods=1).max()).to_numpy() > 0.5
 
 
-def _hidden_masks(net_f: np.ndarray, v_bin: np.ndarray, system: System, bin_s: float
-                  ) -> tuple[np.ndarray, np.ndarray]:
+def _hidden_masks(net_f: np.ndarray, v_bin: np.ndarray, system: System, bin_s: float,
+                  rest_draw_A: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
     """(held, hidden): bins where a charger holds the full bank, and where it hides the load.
 
     Held: a charger holds the full bank at absorption or float and exactly covers
@@ -194,6 +197,14 @@ def _hidden_masks(net_f: np.ndarray, v_bin: np.ndarray, system: System, bin_s: f
     *regulated* (the voltage flat within noise at a charged level: the charger
     covers every load change itself, the net current is the bank's taper), with
     short visible gaps inside closed.
+
+    A full bank at *rest* (no charger at all: the array switched off, a parked
+    vehicle) also shows a small, flat current at a high voltage; but there the
+    bank itself feeds the always-on load, so the net current sits at minus that
+    draw, where a charger's hold sits at zero. ``rest_draw_A`` is the always-on
+    draw as the same shunt reads it at night (its offset included, so the offset
+    cancels); a run of candidate bins whose mean net current is nearer ``-rest_draw_A``
+    than zero is a rest: its load is seen (``-net``), not hidden.
     """
     cap = system.battery.rated_capacity_Ah
     blocks = max(1.0, float(system.battery.series_12V_blocks))
@@ -211,10 +222,27 @@ def _hidden_masks(net_f: np.ndarray, v_bin: np.ndarray, system: System, bin_s: f
               - pd.Series(v_f).rolling(REG_BINS, center=True, min_periods=3).min()).fillna(np.inf).to_numpy()
     regulated = (v_span <= REG_SPAN_V * blocks) & (v_f >= v_held) & (net_f > -HELD_A)
     hidden = held | regulated
+    if rest_draw_A >= REST_MIN_DRAW_A:
+        hidden &= ~_rest_runs(hidden, net_f, rest_draw_A)
+        held &= hidden
     # A few minutes of visible net current inside a hold (the charger answering a load
     # step a moment late) cannot be read on their own: the hold goes on through them.
     hidden |= _closing(hidden, 2 * max(1, int(HIDDEN_GAP_S / bin_s)) + 1)
     return held, hidden
+
+
+def _rest_runs(candidate: np.ndarray, net_f: np.ndarray, rest_draw_A: float) -> np.ndarray:
+    """Bins of the runs of ``candidate`` whose mean net current is nearer ``-rest_draw_A`` than 0.
+
+    A charger holding or regulating the bank supplies the load itself (net ~ 0, or a
+    float current > 0); a bank at rest supplies its always-on load (net ~ -draw).
+    """
+    out = np.zeros(len(candidate), dtype=bool)
+    edge = np.diff(candidate.astype(np.int8), prepend=0, append=0)
+    for s, e in zip(np.flatnonzero(edge == 1), np.flatnonzero(edge == -1)):  # loop over runs (events)
+        if float(np.mean(net_f[s:e])) < -0.5 * rest_draw_A:
+            out[s:e] = True
+    return out
 
 
 def _clear_sky_cap_A(t_mid: np.ndarray, v_bin: np.ndarray, system: System) -> np.ndarray:
@@ -264,7 +292,13 @@ def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: n
     # Widen the charging mask by a few bins: a charger's turn-off and the solar shoulders.
     widen = pd.Series(charging.astype(float)).rolling(5, center=True, min_periods=1).max().to_numpy() > 0
     net_f = np.nan_to_num(net, nan=-1.0)
-    held, hidden_load = _hidden_masks(net_f, v_bin, system, bin_s)
+    day_of_bin = np.clip(day_index(t_mid - bin_us // 2, bounds), 0, n_days - 1)
+    # The always-on draw as this shunt reads it where nothing charges (the nights, or
+    # every discharging bin without an array): a bank at rest shows it, a held one not.
+    quiet = (covered >= 0.5) & np.isfinite(net) & (net_f < 0) & ((elev < -3.0) if solar_possible else True)
+    rest_draw = _base_level(np.clip(-net_f, 0.0, None), quiet, day_of_bin,
+                            min_bins=int(BASE_MIN_H * 3600 / bin_s)) if quiet.any() else 0.0
+    held, hidden_load = _hidden_masks(net_f, v_bin, system, bin_s, rest_draw_A=rest_draw)
     train = (covered >= 0.5) & ~widen & np.isfinite(net) & ~hidden_load
     if solar_possible:
         train &= elev < -3.0
@@ -319,7 +353,6 @@ def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: n
     # Passing clouds switch solar in steps too. On a day whose sunlit hours show steps
     # markedly more often than the nights (loads alone), the steps cannot be told from
     # clouds: no step events that day.
-    day_of_bin = np.clip(day_index(t_mid - bin_us // 2, bounds), 0, n_days - 1)
     sunlit = elev > 10.0
     night_rate = at_night.sum() / max(float(hrs[train].sum()), 1e-9)
     day_steps = np.bincount(day_of_bin[step_bin[sunlit[step_bin]]], minlength=n_days)[:n_days]
@@ -395,9 +428,37 @@ def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: n
     fall_h = np.bincount(d_bin, weights=np.where(fall_use & finite, hrs, 0.0), minlength=n_days)[:n_days]
     # Hours rebuilt from steps carry the steps' night error; hours filled from the
     # profile carry the profile's; independent from hour to hour.
-    half = 1.96 * np.sqrt(read_h * sd_read ** 2 + fall_h * sd_prof ** 2)
-    extras["consumed_Ah_pi95_lo"] = np.maximum(cols["consumed_Ah"] - half, 0.0)
-    extras["consumed_Ah_pi95_hi"] = cols["consumed_Ah"] + half
+    half_read = 1.96 * np.sqrt(read_h) * sd_read
+    # Hours filled from the other days: the day's hidden hours as they were on each
+    # day that saw them (one donor day at a time, so a heavy day is heavy at every
+    # hour: a day-level effect), widened for the few days a log holds.
+    fall_ah = np.bincount(d_bin, weights=np.where(fall_use & finite, load_a * hrs, 0.0), minlength=n_days)[:n_days]
+    fill_w = np.where(fall_use & finite, hrs, 0.0)
+    fb_lo, fb_hi = _donor_interval(recon * v_load, known, hrs, fill_w, v_load, hour, d_bin, n_days, fall_ah)
+    # A charger's hold hides the whole load, and the days whose same hours were seen are
+    # days the bank was not held (clouds, a drive): they may differ in kind. On held
+    # hours the lower end reaches the always-on load.
+    held_fill = fall_use & finite & hidden_load
+    held_excess = np.bincount(d_bin, weights=np.where(held_fill, np.clip(load_a - np.maximum(base_level, load_obs),
+                                                                         0.0, None) * hrs, 0.0),
+                              minlength=n_days)[:n_days]
+    fb_lo = np.minimum(fb_lo, fall_ah - held_excess)
+    # Where only the sun can charge, no hidden hour carries more than the sun could give.
+    sun_most_ah = np.bincount(d_bin, weights=np.where(fall_use & finite,
+                                                      np.maximum(load_most, load_obs) * hrs, 0.0),
+                              minlength=n_days)[:n_days]
+    fb_hi = np.minimum(fb_hi, sun_most_ah)
+    lo_half = np.sqrt(half_read ** 2 + np.clip(fall_ah - fb_lo, 0.0, None) ** 2)
+    hi_half = np.sqrt(half_read ** 2 + np.clip(fb_hi - fall_ah, 0.0, None) ** 2)
+    extras["consumed_Ah_pi95_lo"] = np.maximum(cols["consumed_Ah"] - lo_half, 0.0)
+    extras["consumed_Ah_pi95_hi"] = cols["consumed_Ah"] + hi_half
+    seen_ah = np.bincount(d_bin, weights=np.where(observed & finite, load_a * hrs, 0.0), minlength=n_days)[:n_days]
+    extras["hidden_load_h"] = read_h + fall_h
+    extras["profile_filled_h"] = fall_h
+    with np.errstate(invalid="ignore", divide="ignore"):
+        extras["observed_load_share"] = np.where(cols["consumed_Ah"] > 0,
+                                                 np.clip(seen_ah / np.maximum(cols["consumed_Ah"], 1e-12), 0, 1),
+                                                 np.nan)
     parts, conf = _attribute(gross, hrs, elev, hour, system, bin_s, held, solar_max)
     for name in SOURCES:
         cols[f"charged_Ah_{name}"] += np.bincount(d_bin, weights=parts[name] * hrs, minlength=n_days)[:n_days]
@@ -412,6 +473,128 @@ def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: n
         extras["attribution_confidence"] = np.where(w > 0, cw / np.maximum(w, 1e-12), np.nan)
     idx = pd.DatetimeIndex(t_mid.view("M8[us]")).tz_localize("UTC")
     return pd.Series(parts["solar"], index=idx, name="solar_current_A"), model
+
+
+#: Donor days needed before their own spread widens a day's range (below it, three donors
+#: would multiply their spread by t(2) = 4.3: the random-effect model is steadier).
+MIN_DONORS = 5
+#: Two-sided 97.5 % Student t quantiles by degrees of freedom (scipy.stats.t.ppf(0.975, df)).
+_T975 = {1: 12.706, 2: 4.303, 3: 3.182, 4: 2.776, 5: 2.571, 6: 2.447, 7: 2.365, 8: 2.306, 9: 2.262,
+         10: 2.228, 12: 2.179, 15: 2.131, 20: 2.086, 30: 2.042}
+
+
+def _t975(df: int) -> float:
+    keys = [k for k in _T975 if k <= df]
+    return _T975[max(keys)] if keys else _T975[1]
+
+
+def _column_median(table: np.ndarray) -> np.ndarray:
+    """Median of each column over its finite values (NaN for a column with none), without a warning."""
+    out = np.full(table.shape[1], np.nan)
+    ok = np.isfinite(table).any(axis=0)
+    if ok.any():
+        out[ok] = np.nanmedian(table[:, ok], axis=0)
+    return out
+
+
+def _donor_interval(load_W: np.ndarray, known: np.ndarray, hrs: np.ndarray, fill_h: np.ndarray, v_load: np.ndarray,
+                    hour: np.ndarray, d_bin: np.ndarray, n_days: int, point_Ah: np.ndarray
+                    ) -> tuple[np.ndarray, np.ndarray]:
+    """95 % predictive range [Ah] of each day's profile-filled load, from the days that saw those hours.
+
+    For day ``d`` with ``fill_h[d, h]`` hours filled at local hour ``h``, each other
+    day ``d'`` that saw the same hours (at least half their weight) gives one
+    draw ``sum_h fill_h[d, h] x load_W[d', h] / V[d, h]``: the whole hidden part of
+    the day as it was on ``d'``. A heavy-use day is heavy at every hour, so hours
+    are not treated as independent (a day-level effect). With ``n`` draws the
+    range is the wider of the two-way random-effect model's range
+    (:func:`_day_effects`: between-day, within-day and hour-level variances, a
+    t quantile for the days behind them) and, with at least :data:`MIN_DONORS`
+    draws, their min-max and normal predictive interval
+    ``mean +- t(n-1) sd sqrt(1 + 1/n)``, moved to centre on ``point_Ah``.
+    """
+    hr = np.clip(np.floor(hour).astype(np.int64), 0, 23)
+    lo = np.array(point_Ah, dtype=float)
+    hi = np.array(point_Ah, dtype=float)
+    need = np.flatnonzero(np.bincount(d_bin, weights=fill_h, minlength=n_days)[:n_days] > 0)
+    if not len(need):
+        return lo, hi
+    cell = d_bin * 24 + hr
+    k_wh = np.bincount(cell, weights=np.where(known, np.nan_to_num(load_W) * hrs, 0.0),
+                       minlength=n_days * 24)[:n_days * 24].reshape(n_days, 24)
+    k_h = np.bincount(cell, weights=np.where(known, hrs, 0.0), minlength=n_days * 24)[:n_days * 24].reshape(n_days, 24)
+    seen = k_h >= 0.5
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean_W = np.where(seen, k_wh / np.maximum(k_h, 1e-12), np.nan)
+    f_h = np.bincount(cell, weights=fill_h, minlength=n_days * 24)[:n_days * 24].reshape(n_days, 24)
+    fv = np.bincount(cell, weights=fill_h * v_load, minlength=n_days * 24)[:n_days * 24].reshape(n_days, 24)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        v_cell = np.where(f_h > 0, fv / np.maximum(f_h, 1e-12), 1.0)
+    col_med = _column_median(np.where(seen, mean_W, np.nan))
+    re = _day_effects(mean_W, seen)
+    for d in need:  # loop over days (dozens to hundreds), not samples
+        w = f_h[d] / v_cell[d]                   # [h / V]: W -> Ah
+        weight = f_h[d]
+        donors = [e for e in range(n_days) if e != d and (weight * seen[e]).sum() >= 0.5 * weight.sum()]
+        draws = []
+        for e in donors:
+            m = np.where(seen[e], mean_W[e], col_med)
+            if not np.isfinite(m[weight > 0]).all():
+                continue
+            draws.append(float(np.nansum(w * m)))
+        # The day-level random-effect model's range, always; the donors' own spread when
+        # there are enough of them to have one.
+        sd = math.sqrt(float(np.sum(w) ** 2 * re.var_day_W2 + np.sum(w ** 2 * (re.var_cell_W2 + re.var_hour_W2))))
+        half = _t975(re.dof) * sd
+        q_lo, q_hi = point_Ah[d] - half, point_Ah[d] + half
+        n = len(draws)
+        if n >= MIN_DONORS:
+            x = np.asarray(draws)
+            shift = point_Ah[d] - float(np.median(x))
+            half_d = _t975(n - 1) * float(np.std(x, ddof=1)) * math.sqrt(1.0 + 1.0 / n)
+            q_lo = min(q_lo, min(float(np.mean(x)) - half_d, float(x.min())) + shift)
+            q_hi = max(q_hi, max(float(np.mean(x)) + half_d, float(x.max())) + shift)
+        lo[d] = max(0.0, min(point_Ah[d], q_lo))
+        hi[d] = max(point_Ah[d], q_hi)
+    return lo, hi
+
+
+@dataclass(frozen=True)
+class _DayEffects:
+    """Variance parts of the hour-block load ``W[d, h] = mu_h + u_d + e_dh`` [W^2] per hour filled."""
+
+    var_day_W2: float     # between days (u_d): a heavy day is heavy at every hour
+    var_cell_W2: np.ndarray   # within a day, per hour (e_dh), by hour of day (24)
+    var_hour_W2: np.ndarray   # the hour's typical level itself, known from n_h days (24)
+    dof: int
+
+
+def _day_effects(mean_W: np.ndarray, seen: np.ndarray) -> _DayEffects:
+    """Moment estimates of a two-way (day x hour) random-effect model of the seen hour-block loads.
+
+    ``mu_h`` is each hour's median over the days that saw it; a day's effect is the
+    mean of its residuals; the within-day variance is what is left. An hour seen on
+    no day takes the largest between-hour spread as its own uncertainty.
+    """
+    n_days = mean_W.shape[0]
+    mu = _column_median(np.where(seen, mean_W, np.nan))
+    r = np.where(seen, mean_W - mu, np.nan)
+    n_d = seen.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        u = np.where(n_d > 0, np.nansum(np.nan_to_num(r), axis=1) / np.maximum(n_d, 1), np.nan)
+    e = np.where(seen, r - u[:, None], np.nan)
+    dof_e = max(int(seen.sum() - (n_d > 0).sum()), 1)
+    var_e = float(np.nansum(e ** 2) / dof_e) if seen.any() else 0.0
+    used = n_d >= 3
+    var_u = 0.0
+    if used.sum() >= 2:
+        var_u = max(0.0, float(np.var(u[used], ddof=1)) - var_e * float(np.mean(1.0 / n_d[used])))
+    n_h = seen.sum(axis=0)
+    spread = float(np.nanstd(mu)) if np.isfinite(mu).sum() >= 2 else 0.0
+    var_cell = np.full(24, var_e)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        var_hour = np.where(n_h > 0, (var_u + var_e) / np.maximum(n_h, 1), max(spread ** 2, var_u + var_e))
+    return _DayEffects(var_u, var_cell, var_hour, max(1, int((n_d > 0).sum()) - 1))
 
 
 def _base_level(load_A: np.ndarray, use: np.ndarray, day: np.ndarray, *, min_bins: int) -> float:
@@ -567,7 +750,9 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
     held_cum = np.concatenate(([0], np.cumsum(held)))
     look = int(900 / bin_s)
     win = int(4 * 3600 / bin_s)
-    for s, e in zip(starts, ends):  # loop over charging runs (events), not over log rows
+    # No charger declared: no plateau is a charger (a cloud gap is not a shore charger);
+    # what the sun cannot give is 'other' below.
+    for s, e in zip(starts, ends) if declared else ():  # loop over charging runs (events), not over log rows
         g = gross[s:e]
         if len(g) < 2:
             continue
@@ -709,6 +894,13 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
         c = np.clip(np.nan_to_num(corr.reindex(np.arange(dayno.max() + 1)).to_numpy(), nan=0.3), 0.3, 0.95)
         conf = np.where(parts["solar"] > 0, np.maximum(conf, c[dayno]), conf)
     conf = np.where(parts["other"] > 0, np.maximum(conf, 0.3), conf)
+    # Only what system.toml declares is booked by name; any other charge is 'other'.
+    undeclared = [name for name in ("alternator", "shore") if name not in declared]
+    if not system.solar:
+        undeclared.append("solar")
+    for name in undeclared:
+        parts["other"] = parts["other"] + parts[name]
+        parts[name] = np.zeros(n)
     return parts, conf
 
 

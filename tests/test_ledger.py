@@ -19,11 +19,13 @@ from analysis.system import system_from_mapping
 FIX = Path(__file__).resolve().parents[1] / "fixtures" / "scenarios"
 
 
-def _system(tz="Europe/Oslo", chem="lifepo4", solar=True):
+def _system(tz="Europe/Oslo", chem="lifepo4", solar=True, chargers=()):
     d = {"site": {"latitude_deg": 60.4, "longitude_deg": 5.3, "timezone": tz},
          "battery": {"chemistry": chem, "nominal_voltage_V": 12.8, "rated_capacity_Ah": 200}}
     if solar:
         d["solar"] = [{"peak_power_W": 300}]
+    if chargers:
+        d["charger"] = [{"source": src, "max_current_A": amps} for src, amps in chargers]
     return system_from_mapping(d)
 
 
@@ -137,10 +139,24 @@ def test_single_shunt_flat_plateau_in_daytime_is_the_alternator():
     local = t.tz_convert("Europe/Oslo")
     drive = np.asarray((local.hour >= 11) & (local.hour < 13))
     df = long_frame(t, battery={"current_A": np.where(drive, 30.0, 0.0) - 4.0, "voltage_V": np.full(len(t), 13.4)})
-    led = daily_ledger(df, _system(solar=False))
+    led = daily_ledger(df, _system(solar=False, chargers=[("alternator", 30), ("shore", 20)]))
     assert np.allclose(led["charged_Ah_alternator"], 60.0, rtol=0.03)
     assert np.allclose(led["driving_h"], 2.0, atol=0.1)
     assert np.allclose(led["consumed_Ah"], 96.0, rtol=0.02)
+
+
+def test_single_shunt_books_no_charge_to_a_source_system_toml_does_not_declare():
+    # The same daytime plateau with no [[charger]] and no [[solar]] declared: the charge
+    # is real but its source is not known, so it is 'other' (issue 11: no undeclared source).
+    start = pd.Timestamp("2026-01-12", tz="Europe/Oslo").tz_convert("UTC")
+    t = pd.date_range(start, start + pd.Timedelta(days=3), freq="60s", inclusive="left")
+    local = t.tz_convert("Europe/Oslo")
+    drive = np.asarray((local.hour >= 11) & (local.hour < 13))
+    df = long_frame(t, battery={"current_A": np.where(drive, 30.0, 0.0) - 4.0, "voltage_V": np.full(len(t), 13.4)})
+    led = daily_ledger(df, _system(solar=False))
+    assert (led["charged_Ah_alternator"] == 0).all() and (led["charged_Ah_shore"] == 0).all()
+    assert (led["charged_Ah_solar"] == 0).all()
+    assert np.allclose(led["charged_Ah_other"], 60.0, rtol=0.03)
 
 
 def test_single_shunt_long_night_plateau_is_shore_power():
@@ -149,7 +165,7 @@ def test_single_shunt_long_night_plateau_is_shore_power():
     local = t.tz_convert("Europe/Oslo")
     hook = np.asarray((local.day == 13) & (local.hour >= 1) & (local.hour < 7))
     df = long_frame(t, battery={"current_A": np.where(hook, 15.0, 0.0) - 2.0, "voltage_V": np.full(len(t), 13.4)})
-    led = daily_ledger(df, _system(solar=False)).set_index("date")
+    led = daily_ledger(df, _system(solar=False, chargers=[("alternator", 30), ("shore", 15)])).set_index("date")
     assert led.loc[pd.Timestamp("2026-01-13").date(), "charged_Ah_shore"] == pytest.approx(90.0, rel=0.03)
 
 

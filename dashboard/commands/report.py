@@ -69,6 +69,10 @@ def _f(x: Any, fmt: str = ".1f", none: str = "-") -> str:
     return none if x is None else format(x, fmt)
 
 
+def _pct(share: float | None) -> str:
+    return "-" if share is None else f"{100 * share:.0f}"
+
+
 def describe(j: dict) -> list[str]:
     """The human summary of a report object (plain text, one line per day)."""
     p, dq, b, rt = j["period"], j["data_quality"], j["battery"], j.get("runtime", {})
@@ -85,7 +89,8 @@ def describe(j: dict) -> list[str]:
     ranged = any(d.get("consumed_Ah_pi95") for d in j["days"])
     head = (f"{'date':<10} {'full':>4} {'used Ah':>8} " + (f"{'95 % range':>11} " if ranged else "")
             + f"{'used Wh':>8} {'solar Ah':>8} {'alt Ah':>7} "
-            f"{'shore Ah':>8} {'other Ah':>8} {'SoC min %':>9} {'SoC end %':>9} {'conf':>5}")
+            f"{'shore Ah':>8} {'other Ah':>8} {'SoC min %':>9} {'SoC end %':>9}"
+            + (f" {'unseen h':>8} {'seen %':>6}" if ranged else ""))
     out += [head, "-" * len(head)]
     for d in j["days"]:
         c = d["charged_Ah"]
@@ -95,11 +100,17 @@ def describe(j: dict) -> list[str]:
             rng = f"{(f'{lo_hi[0]:.0f}-{lo_hi[1]:.0f}' if lo_hi else '-'):>11} "
         out.append(f"{d['date']:<10} {'yes' if d['complete'] else 'no':>4} {_f(d['consumed_Ah']):>8} {rng}"
                    f"{_f(d['consumed_Wh'], '.0f'):>8} {_f(c['solar']):>8} {_f(c['alternator']):>7} "
-                   f"{_f(c['shore']):>8} {_f(c['other']):>8} {_f(d['soc_min_pct']):>9} {_f(d['soc_end_pct']):>9} "
-                   f"{_f(d.get('attribution_confidence'), '.2f'):>5}")
+                   f"{_f(c['shore']):>8} {_f(c['other']):>8} {_f(d['soc_min_pct']):>9} {_f(d['soc_end_pct']):>9}"
+                   + (f" {_f(d.get('hidden_load_h'), '.1f'):>8} {_pct(d.get('observed_load_share')):>6}"
+                      if ranged else ""))
     if ranged:
-        out.append("(one shunt: the load is hidden while charging and is estimated; the day's use lies in the "
-                   "95 % range 19 times in 20; conf = how sure the split by source is, 0-1)")
+        out.append("(one shunt: the load is hidden while a source charges and is estimated; the day's use lies "
+                   "in its 95 % range 19 times in 20; unseen h = hours whose load was estimated, seen % = share "
+                   "of the day's use measured directly)")
+        unseen = [d for d in j["days"] if d.get("hidden_load_note")]
+        if unseen:
+            out.append(f"On {len(unseen)} day(s) the load was not seen for more than an hour: "
+                       f"{unseen[0]['hidden_load_note'].split(': ', 1)[-1]}.")
     out.append("")
     out.append(f"battery ({b.get('chemistry', '')}): rated {_f(b['rated_Ah'], '.0f')} Ah")
     if b["usable_Ah"] is not None:
