@@ -26,13 +26,23 @@ from analysis.peukert import fit_exponent
 from analysis.readings import US_PER_S, Channel
 from analysis.system import System
 
-MIN_DELTA_SOC: float = 0.4  # common practice (FIELDREF §3)
+MIN_DELTA_SOC: float = 0.4  # common practice (docs/capacity.md)
+#: How far back [us] beyond the nearest qualifying start anchor a better-known one is sought.
+PAIR_LOOKBACK_US: int = 2 * 86400 * 1_000_000
 #: One-sigma relative gain error of a shunt (common practice: ~1 %).
 SHUNT_GAIN_SIGMA: float = 0.01
-#: One-sigma uncertainty of the charge-efficiency factor (from memory: ranges of ~ +-3 %).
-ETA_SIGMA: float = 0.03
+#: One-sigma uncertainty of an assumed (chemistry-default) charge efficiency [fraction]: the
+#: published ranges (from memory) are 0.85-0.95 flooded, 0.90-0.97 AGM/gel, 0.99-0.999 LiFePO4,
+#: and lower still while a lead-acid bank gasses in absorption; half the range as sigma.
+ETA_SIGMA: dict[str, float] = {"flooded": 0.05, "agm": 0.04, "gel": 0.04, "lifepo4": 0.005}
+#: A full-to-full cycle estimates the charge efficiency only if it gave up at least this
+#: fraction of the rated capacity (smaller cycles are swamped by the resyncs' own spread).
+ETA_MIN_CYCLE_FRACTION: float = 0.2
 #: One-sigma current offset of a shunt [A] (common practice: tens of mA).
 OFFSET_SIGMA_A: float = 0.02
+#: A capacity whose 95 % half-width exceeds this fraction of itself is reported as unknown
+#: (null with the range the data allow) rather than as a number.
+MAX_CI_HALF_FRACTION: float = 0.25
 #: One-sigma uncertainty of a chemistry-default Peukert exponent (vendor ranges span ~0.05-0.1).
 K_SIGMA: float = 0.05
 
@@ -48,8 +58,10 @@ class AnchorPair:
     ah_discharged_A: float    # raw (uncorrected) discharge [Ah], >= 0
     ah_charged: float         # raw charge [Ah], >= 0
     mean_discharge_A: float   # mean discharge current while discharging [A]
-    sigma_y: float            # [Ah]
+    sigma_y: float            # [Ah], every error source as if independent of other pairs
     sigma_x: float            # [fraction]
+    sigma_y_own: float = 0.0  # [Ah], the part independent between pairs (offset, rate)
+    eta_sigma: float = 0.0    # the charge efficiency's sigma, shared by every pair
 
     @property
     def capacity_Ah(self) -> float:
@@ -118,8 +130,61 @@ def plett_tls(x: np.ndarray, y: np.ndarray, sigma_y: np.ndarray | float = 1.0, *
     return float((-b + np.sqrt(b * b + 4 * m * m * c2 * c2)) / (2 * m * m * c2))
 
 
+@dataclass(frozen=True)
+class EfficiencyEstimate:
+    """Charge (Ah) efficiency from full-to-full cycles, or None with a reason."""
+
+    eta: float | None
+    sigma: float | None
+    cycles: int
+    why: str | None
+
+
+def estimate_charge_efficiency(ch: Channel, soc: SocResult, system: System, *,
+                               peukert_k: float) -> EfficiencyEstimate:
+    """The bank's charge efficiency from the cycles between two full-charge resyncs.
+
+    Between the last moment a bank met the full-charge conditions and the next
+    resync it gave up ``Q_out`` (Peukert-corrected) and took in ``Q_in``; it ends as
+    full as it started, so ``eta = Q_out / Q_in`` (the definition of the Ah
+    efficiency, e.g. Linden's Handbook of Batteries). Cycles that gave up at least
+    :data:`ETA_MIN_CYCLE_FRACTION` of the rated capacity without a gap are
+    combined weighted by ``Q_in``; each end's full-charge spread (3 % of C) sets
+    the uncertainty. The result is bounded to 0.70-1.00.
+    """
+    from analysis.charge import FULL_SIGMA
+
+    b = system.battery
+    full = [a for a in soc.anchors if a.kind == "full"]
+    if len(full) < 2:
+        return EfficiencyEstimate(None, None, 0, f"fewer than two full-charge resyncs ({len(full)})")
+    gap_cum = np.concatenate(([0], np.cumsum(soc.gaps, dtype=np.int64)))
+    outs, ins = [], []
+    for a, z in zip(full[:-1], full[1:]):  # loop over cycles (events)
+        lo, hi = a.last_index, z.index
+        if hi <= lo or gap_cum[hi] - gap_cum[lo] > 0:
+            continue
+        t = ch.t_us[lo:hi + 1]
+        cur = np.nan_to_num(ch.current_A[lo:hi + 1], nan=0.0)
+        corr = corrected_current_A(cur, charge_efficiency=1.0, rated_current_A=b.rated_current_A,
+                                   peukert_k=peukert_k)
+        q_out = float(-trapezoid_increments(t, np.minimum(corr, 0.0)).sum())
+        q_in = float(trapezoid_increments(t, np.maximum(cur, 0.0)).sum())
+        if q_out >= ETA_MIN_CYCLE_FRACTION * b.rated_capacity_Ah and q_in > 0:
+            outs.append(q_out)
+            ins.append(q_in)
+    if not outs:
+        return EfficiencyEstimate(None, None, 0, "no full-to-full cycle gave up "
+                                  f">= {100 * ETA_MIN_CYCLE_FRACTION:.0f} % of the rated capacity")
+    q_in_sum = float(np.sum(ins))
+    eta = float(np.clip(np.sum(outs) / q_in_sum, 0.70, 1.0))
+    # Each cycle's two resyncs each miss full by ~FULL_SIGMA x C; cycles are independent.
+    sigma = float(np.sqrt(len(outs) * 2.0) * FULL_SIGMA * b.rated_capacity_Ah / q_in_sum)
+    return EfficiencyEstimate(eta, max(sigma, 0.005), len(outs), None)
+
+
 def anchor_pairs(ch: Channel, soc: SocResult, system: System, *, peukert_k: float,
-                 min_delta_soc: float = MIN_DELTA_SOC) -> list[AnchorPair]:
+                 min_delta_soc: float = MIN_DELTA_SOC, eta_sigma: float | None = None) -> list[AnchorPair]:
     """Anchor pairs spanning >= ``min_delta_soc``, free of gaps and of charging past full.
 
     For every anchor the nearest earlier anchor with a large enough SoC span
@@ -136,12 +201,16 @@ def anchor_pairs(ch: Channel, soc: SocResult, system: System, *, peukert_k: floa
     used_starts: set[int] = set()
     for j in range(1, len(anchors)):
         aj = anchors[j]
-        for i in range(j - 1, -1, -1):
-            ai = anchors[i]
-            if abs(aj.soc_pct - ai.soc_pct) / 100.0 >= min_delta_soc:
-                break
-        else:
+        # Among the earlier anchors far enough away in SoC (and with no gap between),
+        # the best known one: a full resync or a steep-knee reading rather than a
+        # shoulder reading an hour later.
+        cands = [i for i in range(j - 1, -1, -1)
+                 if abs(aj.soc_pct - anchors[i].soc_pct) / 100.0 >= min_delta_soc
+                 and gap_cum[aj.last_index] - gap_cum[anchors[i].last_index] == 0]
+        if not cands:
             continue
+        near = [i for i in cands if (anchors[cands[0]].t_us - anchors[i].t_us) <= PAIR_LOOKBACK_US]
+        ai = anchors[min(near, key=lambda i: (anchors[i].sigma, -i))]
         if ai.index in used_starts and ai.kind != "full":
             continue
         # A full anchor counts from the last moment the bank still met the full-charge conditions:
@@ -170,10 +239,14 @@ def anchor_pairs(ch: Channel, soc: SocResult, system: System, *, peukert_k: floa
         rate_term = 0.0
         if mean_dis > b.rated_current_A and peukert_k > 1.0:
             rate_term = dis_corr * K_SIGMA * np.log(mean_dis / b.rated_current_A)
-        sigma_y = float(np.sqrt((SHUNT_GAIN_SIGMA * (dis + chg)) ** 2 + (ETA_SIGMA * chg) ** 2
+        s_eta = eta_sigma if eta_sigma is not None else (0.0 if b.charge_efficiency is not None
+                                                          else ETA_SIGMA[b.chemistry])
+        sigma_y = float(np.sqrt((SHUNT_GAIN_SIGMA * (dis + chg)) ** 2 + (s_eta * chg) ** 2
                                 + (OFFSET_SIGMA_A * dt_h) ** 2 + rate_term ** 2))
         sigma_x = float(np.hypot(ai.sigma, aj.sigma))
-        pairs.append(AnchorPair(ai, aj, x, y, dis, chg, mean_dis, max(sigma_y, 1e-6), sigma_x))
+        own = float(np.sqrt((OFFSET_SIGMA_A * dt_h) ** 2 + rate_term ** 2))
+        pairs.append(AnchorPair(ai, aj, x, y, dis, chg, mean_dis, max(sigma_y, 1e-6), sigma_x,
+                                max(own, 1e-6), s_eta))
         used_starts.add(ai.index)
     return pairs
 
@@ -196,16 +269,15 @@ def estimate_capacity(pairs: list[AnchorPair], system: System, *,
                                 f"spans >= {100 * MIN_DELTA_SOC:.0f} % SoC without a gap{span}", None)
     x = np.array([p.delta_soc for p in pairs])
     y = np.array([p.ah_moved for p in pairs])
-    sy = np.array([p.sigma_y for p in pairs])
-    sx = np.array([p.sigma_x for p in pairs])
     q = float(np.median(y / x))
-    for _ in range(3):  # effective variance: Q^2 sigma_x^2 added to sigma_y^2, iterated
-        var = sy ** 2 + (q * sx) ** 2
-        q = plett_wls(x, y, np.sqrt(var))
-    var = sy ** 2 + (q * sx) ** 2
-    res = sm.WLS(y, x[:, None], weights=1.0 / var).fit()
+    for _ in range(4):  # the covariance depends on Q through the anchors' SoC errors: iterate
+        cov = pair_covariance(pairs, q)
+        res = sm.GLS(y, x[:, None], sigma=cov).fit()
+        q = float(res.params[0])
+    cov = pair_covariance(pairs, q)
+    res = sm.GLS(y, x[:, None], sigma=cov).fit()
     q = float(res.params[0])
-    se_known = float(np.sqrt(1.0 / np.sum(x * x / var)))
+    se_known = float(np.sqrt(1.0 / (x @ np.linalg.solve(cov, x))))
     se = se_known
     if len(pairs) >= 3:
         se = max(se, float(res.bse[0]))
@@ -213,7 +285,44 @@ def estimate_capacity(pairs: list[AnchorPair], system: System, *,
         return CapacityEstimate(None, None, f"anchor pairs gave a non-physical capacity ({q:.1f} Ah)", None,
                                 tuple(pairs))
     ci = (q - 1.96 * se, q + 1.96 * se)
+    if 1.96 * se > MAX_CI_HALF_FRACTION * q:
+        return CapacityEstimate(None, None, f"the known-SoC anchors cannot pin the capacity: the data allow "
+                                f"{max(ci[0], 0):.0f}-{ci[1]:.0f} Ah (the rested voltages lie where the "
+                                f"chemistry's voltage curve differs between makers; a discharge into the steep "
+                                f"last 10 % or a longer log would pin it)", None, tuple(pairs))
     return CapacityEstimate(q, ci, None, 100.0 * q / rated, tuple(pairs))
+
+
+def pair_covariance(pairs: list[AnchorPair] | tuple[AnchorPair, ...], capacity_Ah: float) -> np.ndarray:
+    """Covariance [Ah^2] of the pairs' residuals ``y_i - Q x_i``.
+
+    Independent per pair: the current offset and the rate term (``sigma_y_own``).
+    Shared: an anchor's SoC error enters every pair that starts or ends on it
+    (``Q^2 A diag(sigma_a^2) A^T`` with A the pairs-by-anchors incidence, +1 at an
+    end, -1 at a start), the shunt's gain error scales every pair's Ah alike
+    (rank one in ``y``) and so does the charge efficiency's error (rank one in the
+    charge each pair took in). Treating these as independent would count one knee
+    reading, one gain and one efficiency as many.
+    """
+    n = len(pairs)
+    keys: dict[int, int] = {}
+    sig: list[float] = []
+    inc = np.zeros((n, 2 * n))
+    for k, p in enumerate(pairs):
+        for a, sgn in ((p.start, -1.0), (p.end, 1.0)):
+            col = keys.setdefault(a.index, len(keys))
+            if col == len(sig):
+                sig.append(a.sigma)
+            inc[k, col] += sgn
+    inc = inc[:, :len(sig)]
+    y = np.array([p.ah_moved for p in pairs])
+    chg = np.array([p.ah_charged * (1.0 if p.eta_sigma else 0.0) for p in pairs])
+    eta_s = max((p.eta_sigma for p in pairs), default=0.0)
+    cov = np.diag([p.sigma_y_own ** 2 if p.sigma_y_own else p.sigma_y ** 2 for p in pairs])
+    cov += capacity_Ah ** 2 * (inc * np.square(sig)) @ inc.T
+    if any(p.sigma_y_own for p in pairs):
+        cov += SHUNT_GAIN_SIGMA ** 2 * np.outer(y, y) + eta_s ** 2 * np.outer(chg, chg)
+    return cov + 1e-9 * np.eye(n)
 
 
 def fit_peukert(pairs: list[AnchorPair], system: System, *, min_rate_ratio: float = 2.0) -> PeukertEstimate:

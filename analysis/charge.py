@@ -55,6 +55,9 @@ REARM_FRACTION: float = 0.02
 LFP_QUASI_MAX_SOC_PCT: float = 20.0
 #: One-sigma uncertainty of a quasi-OCV (low-current night) anchor [fraction].
 QUASI_SIGMA: float = 0.06
+#: A rested-voltage anchor resets the SoC only when its one-sigma uncertainty is at most this
+#: [fraction]; a looser one (the curve's spread, analysis.ocv.CURVE_SPREAD_V) counts for capacity only.
+RESET_MAX_SIGMA: float = 0.09
 
 
 @dataclass(frozen=True)
@@ -278,7 +281,8 @@ def detect_ocv_anchors(ch: Channel, system: System, gaps: np.ndarray) -> list[An
         soc = float(ocv_mod.soc_from_ocv(volt, b.chemistry, b.nominal_voltage_V))
         if not ocv_mod.trusted(soc, b.chemistry):
             continue
-        out.append(Anchor(int(e), int(ch.t_us[e]), soc, "ocv", ocv_mod.OCV_SIGMA[b.chemistry]))
+        sigma = float(ocv_mod.soc_sigma_from_ocv(volt, b.chemistry, b.nominal_voltage_V))
+        out.append(Anchor(int(e), int(ch.t_us[e]), soc, "ocv", sigma))
     return out
 
 
@@ -340,8 +344,9 @@ def detect_quasi_ocv_anchors(ch: Channel, system: System, gaps: np.ndarray,
     soc = ocv_mod.soc_from_ocv(ocv_v, b.chemistry, b.nominal_voltage_V)
     trusted_ = ocv_mod.trusted(soc, b.chemistry) if b.chemistry != "lifepo4" else soc <= LFP_QUASI_MAX_SOC_PCT
     keep_idx = keep
-    return [Anchor(int(keep_idx[k]), int(ch.t_us[k]), float(sv), "quasi-ocv", QUASI_SIGMA)
-            for k, sv, ok in zip(idx, soc, trusted_) if ok]
+    sigma = np.hypot(QUASI_SIGMA, ocv_mod.soc_sigma_from_ocv(ocv_v, b.chemistry, b.nominal_voltage_V))
+    return [Anchor(int(keep_idx[k]), int(ch.t_us[k]), float(sv), "quasi-ocv", float(sg))
+            for k, sv, sg, ok in zip(idx, soc, sigma, trusted_) if ok]
 
 
 def soc_from_anchors(charge_Ah: np.ndarray, anchors: tuple[Anchor, ...] | list[Anchor], capacity_Ah: float,
@@ -432,10 +437,16 @@ def state_of_charge(battery: Channel | pd.DataFrame, system: System, *, capacity
             q[lo + 1:hi + 1] = seg
     del inc
     anchors = detect_full_charges(ch, system, gaps, q)
+    loose: list[Anchor] = []
     if use_ocv:
-        anchors += detect_ocv_anchors(ch, system, gaps)
+        # A rested voltage resets the SoC only where the curve pins it; elsewhere (the
+        # LiFePO4 shoulder, where makers' curves differ by tenths of a volt) it only
+        # enters the capacity fit, with its wide uncertainty.
+        for a in detect_ocv_anchors(ch, system, gaps):
+            (anchors if a.sigma <= RESET_MAX_SIGMA else loose).append(a)
     anchors.sort(key=lambda a: a.index)
-    quasi = tuple(detect_quasi_ocv_anchors(ch, system, gaps)) if use_ocv else ()
+    quasi = tuple(sorted(loose + (detect_quasi_ocv_anchors(ch, system, gaps) if use_ocv else []),
+                         key=lambda a: a.index))
     start = "back-calculated from the first anchor"
     start_soc = None
     if not anchors:

@@ -50,6 +50,16 @@ TRUSTED_RANGE_PCT: dict[str, tuple[tuple[float, float], ...]] = {
 #: One-sigma uncertainty of an OCV-derived SoC [fraction of capacity] (common practice: ~ +-5 %).
 OCV_SIGMA: dict[str, float] = {"flooded": 0.05, "agm": 0.05, "gel": 0.05, "lifepo4": 0.05}
 
+#: How far a real bank's rested-voltage curve may lie from the table [V per 12 V block],
+#: taken as a +-2 sigma envelope. LiFePO4: published 4S curves differ by 0.1-0.3 V near the
+#: knees (maker to maker, cell to cell, hysteresis of 5-25 mV per cell; e.g. the trade table
+#: above against PyBaMM's Prada2013 open-circuit potentials, which sit 0.2-0.3 V lower below
+#: 30 % SoC), so 0.25 V. Lead-acid: the full-charge specific gravity varies with the design
+#: (about 1.265-1.300), i.e. ~0.03 V per cell by Linden's V_cell ~ SG + 0.84, ~0.2 V per
+#: 12 V block between designs, half of it within one chemistry's table: 0.1 V.
+#: (Common practice and from memory; see docs/ocv.md.)
+CURVE_SPREAD_V: dict[str, float] = {"flooded": 0.10, "agm": 0.10, "gel": 0.10, "lifepo4": 0.25}
+
 
 def blocks(chemistry: str, nominal_voltage_V: float) -> int:
     """Number of 12 V blocks (12 V lead-acid or 12.8 V 4S LiFePO4) in the bank."""
@@ -88,3 +98,19 @@ def trusted(soc_pct: ArrayLike, chemistry: str) -> np.ndarray:
     for lo, hi in TRUSTED_RANGE_PCT[chemistry]:
         ok |= (s >= lo) & (s <= hi)
     return ok
+
+
+def soc_sigma_from_ocv(ocv_V: ArrayLike, chemistry: str, nominal_voltage_V: float) -> np.ndarray:
+    """One-sigma uncertainty [fraction] of the SoC read from a rested voltage, curve spread included.
+
+    The SoC range the reading maps to when the bank's own curve lies anywhere within
+    +-:data:`CURVE_SPREAD_V` of the table (taken as +-2 sigma), combined with the
+    reading's own :data:`OCV_SIGMA`. On the LiFePO4 plateau and its lower shoulder a
+    0.25 V spread is 10-40 % of SoC; in the steep last 10 % it is a few %.
+    """
+    v = np.asarray(ocv_V, dtype=float)
+    dv = CURVE_SPREAD_V[chemistry] * blocks(chemistry, nominal_voltage_V)
+    hi = soc_from_ocv(v + dv, chemistry, nominal_voltage_V)
+    lo = soc_from_ocv(v - dv, chemistry, nominal_voltage_V)
+    curve = (hi - lo) / 4.0 / 100.0
+    return np.hypot(curve, OCV_SIGMA[chemistry])

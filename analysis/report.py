@@ -24,10 +24,12 @@ import pandas as pd
 from analysis.capacity import (
     MIN_DELTA_SOC,
     CapacityEstimate,
+    EfficiencyEstimate,
     PeukertEstimate,
     ResistanceEstimate,
     anchor_pairs,
     estimate_capacity,
+    estimate_charge_efficiency,
     fit_peukert,
     internal_resistance,
 )
@@ -173,13 +175,23 @@ def build_report(readings: pd.DataFrame, system: System, *, rows_rejected: int =
     cap = CapacityEstimate(None, None, "no battery channel: capacity needs the bank's net current", None)
     peuk = PeukertEstimate(b.effective_peukert_k, "system.toml" if b.peukert_k is not None else "chemistry default",
                            "no battery channel")
+    eta = EfficiencyEstimate(b.charge_efficiency, 0.0, 0, None) if b.charge_efficiency is not None else None
     if bat is not None and len(bat) > 1:
         soc = state_of_charge(bat, system)
-        pairs = anchor_pairs(bat, soc, system, peukert_k=b.effective_peukert_k)
+        if eta is None:
+            # The charge efficiency from full-to-full cycles, where the log has them; the
+            # SoC and capacity then count with it rather than with a chemistry default.
+            eta = estimate_charge_efficiency(bat, soc, system, peukert_k=b.effective_peukert_k)
+            if eta.eta is not None:
+                system = system.model_copy(update={"battery": b.model_copy(update={"charge_efficiency": eta.eta})})
+                b = system.battery
+                soc = state_of_charge(bat, system)
+        eta_sigma = eta.sigma if eta is not None and eta.eta is not None else None
+        pairs = anchor_pairs(bat, soc, system, peukert_k=b.effective_peukert_k, eta_sigma=eta_sigma)
         peuk = fit_peukert(pairs, system)
         if peuk.source == "fitted" and abs(peuk.k - b.effective_peukert_k) > 1e-6:
             soc = state_of_charge(bat, system, peukert_k=peuk.k)
-            pairs = anchor_pairs(bat, soc, system, peukert_k=peuk.k)
+            pairs = anchor_pairs(bat, soc, system, peukert_k=peuk.k, eta_sigma=eta_sigma)
         span = None
         anchors = soc.capacity_anchors
         span = 0.0
@@ -201,7 +213,7 @@ def build_report(readings: pd.DataFrame, system: System, *, rows_rejected: int =
     rt = _runtime(bat, soc, led, system, cap, peuk)
     solar, solar_analysis = _solar_section(readings, system,
                                            led.solar_current_A if "solar" not in channels else None)
-    report = _assemble(channels, system, rows_rejected, soc, cap, peuk, led, ir, rt, solar)
+    report = _assemble(channels, system, rows_rejected, soc, cap, peuk, led, ir, rt, solar, eta)
     return _with_charging(replace(report, solar_analysis=solar_analysis), readings, system)
 
 
@@ -218,6 +230,18 @@ def _with_charging(report: Report, readings: pd.DataFrame, system: System) -> Re
     return replace(report, extras={**report.extras, "charging": charging, "cautions": cautions})
 
 
+def _soh_note(cap: CapacityEstimate, rated_Ah: float) -> str | None:
+    """What a state of health above 100 % means, said beside it."""
+    if cap.usable_Ah is None or cap.usable_Ah <= rated_Ah:
+        return None
+    excess = 100.0 * (cap.usable_Ah / rated_Ah - 1.0)
+    if cap.ci95_Ah is not None and cap.ci95_Ah[0] <= rated_Ah:
+        return (f"above 100 % by {excess:.0f} points, within the 95 % interval: the bank delivers its rated "
+                "capacity, and the data cannot say by how much more")
+    return (f"above 100 % by {excess:.0f} points, beyond the 95 % interval: the bank delivers more than its "
+            "rating (a rated capacity is a minimum), or the rated capacity in system.toml is too low")
+
+
 def _runtime(bat, soc, led, system, cap, peuk) -> RuntimeEstimate:
     soc_now = float(soc.soc[-1]) if soc is not None and len(soc.soc) else None
     net = None
@@ -232,7 +256,7 @@ def _runtime(bat, soc, led, system, cap, peuk) -> RuntimeEstimate:
 
 def _assemble(channels, system: System, rows_rejected: int, soc: SocResult | None, cap: CapacityEstimate,
               peuk: PeukertEstimate, led: LedgerResult, ir: ResistanceEstimate, rt: RuntimeEstimate,
-              solar: dict) -> Report:
+              solar: dict, eta: EfficiencyEstimate | None = None) -> Report:
     b = system.battery
     t0 = min(int(c.t_us[0]) for c in channels.values())
     t1 = max(int(c.t_us[-1]) for c in channels.values())
@@ -278,6 +302,19 @@ def _assemble(channels, system: System, rows_rejected: int, soc: SocResult | Non
                "internal_resistance_steps": ir.steps,
                "internal_resistance_days": [{"date": r.date.isoformat(), "ohm": _r(r.ohm, 5), "steps": int(r.steps)}
                                             for r in ir.per_day.itertuples(index=False)] if len(ir.per_day) else []}
+    battery["charge_efficiency"] = _r(b.effective_charge_efficiency, 3)
+    if eta is not None and eta.cycles and eta.eta is not None:
+        battery["charge_efficiency_source"] = f"measured over {eta.cycles} full-to-full cycle(s)"
+        battery["charge_efficiency_sigma"] = _r(eta.sigma, 3)
+    elif b.charge_efficiency is not None and (eta is None or not eta.cycles):
+        battery["charge_efficiency_source"] = "system.toml"
+    else:
+        battery["charge_efficiency_source"] = "chemistry default"
+        if eta is not None and eta.why:
+            battery["charge_efficiency_why"] = f"not measured: {eta.why}"
+    soh_note = _soh_note(cap, b.rated_capacity_Ah)
+    if soh_note:
+        battery["state_of_health_pct_note"] = soh_note
     if cap.usable_Ah is None:
         battery["usable_Ah_why"] = cap.why
         battery["usable_Ah_ci95_why"] = cap.why

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import re
+
 import json
 import sys
 from pathlib import Path
@@ -177,14 +179,18 @@ def test_shallow_days_leave_capacity_null_with_a_reason():
     assert "40 %" in j["battery"]["usable_Ah_why"]
 
 
-def test_autumn_van_deep_cycle_gives_usable_capacity_within_5_percent_with_interval_containing_truth():
-    # autumn-van days 8-10 take the LiFePO4 bank from full to about a third and below (scenario notes);
-    # the low-knee voltage anchor (FIELDREF §2: LFP only near its knees) pairs with the full charges.
+def test_lifepo4_capacity_resting_on_one_shoulder_reading_is_null_with_a_range_that_holds_the_truth():
+    # autumn-van days 8-10 take the LiFePO4 bank from full to about a fifth (scenario notes): the
+    # only low anchor is a night voltage on the lower shoulder (~13.0 V), where makers' curves
+    # differ by 0.1-0.3 V per 12.8 V bank (docs/ocv.md; e.g. the trade table against PyBaMM's
+    # Prada2013 potentials), i.e. 10-35 % SoC. That cannot pin the capacity within +-25 %: the
+    # report says so, with the range the data allow, rather than a confident number (issue 11).
     j, truth = _sim_report("autumn-van", 14)
     b, true_ah = j["battery"], truth["battery"]["usable_Ah"]
-    assert b["usable_Ah"] == pytest.approx(true_ah, rel=0.05)
-    lo, hi = b["usable_Ah_ci95"]
+    assert b["usable_Ah"] is None and b["state_of_health_pct"] is None
+    lo, hi = (float(v) for v in re.findall(r"(\d+)-(\d+) Ah", b["usable_Ah_why"])[0])
     assert lo <= true_ah <= hi
+    assert "cannot pin" in b["usable_Ah_why"]
 
 
 def test_multichannel_simulation_consumed_Ah_within_2_percent_every_day():
