@@ -230,6 +230,28 @@ def _with_charging(report: Report, readings: pd.DataFrame, system: System) -> Re
     return replace(report, extras={**report.extras, "charging": charging, "cautions": cautions})
 
 
+#: A day whose lowest SoC is below this [%] says what that figure rests on.
+LOW_SOC_NOTE_PCT: float = 10.0
+
+
+def _low_soc_note(soc: SocResult, bounds_us: np.ndarray, day: int, b: Any, cap: CapacityEstimate) -> str:
+    """What a day's lowest SoC below :data:`LOW_SOC_NOTE_PCT` rests on: a knee voltage, or the count."""
+    lo, hi = np.searchsorted(soc.t_us, bounds_us[day:day + 2], side="left")
+    if hi <= lo:
+        return ""
+    i_min = lo + int(np.argmin(soc.soc[lo:hi]))
+    before = [a for a in soc.anchors if a.index <= i_min]
+    last = before[-1] if before else None
+    ref = (f"the measured usable capacity ({cap.usable_Ah:.0f} Ah)" if cap.usable_Ah is not None
+           else f"the rated capacity ({b.rated_capacity_Ah:.0f} Ah; the usable capacity is not known)")
+    if last is not None and last.kind == "ocv" and last.soc_pct < 50:
+        return (f"rests on the rested voltage at {last.time.isoformat()} near the bottom knee, read as "
+                f"{last.soc_pct:.0f} % +- {200 * last.sigma:.0f} points (95 %): voltage curves differ by maker there")
+    since = f"the full charge at {last.time.isoformat()}" if last is not None and last.kind == "full" else \
+        "the start of the log"
+    return f"counted from {since} against {ref}"
+
+
 def _soh_note(cap: CapacityEstimate, rated_Ah: float) -> str | None:
     """What a state of health above 100 % means, said beside it."""
     if cap.usable_Ah is None or cap.usable_Ah <= rated_Ah:
@@ -271,7 +293,7 @@ def _assemble(channels, system: System, rows_rejected: int, soc: SocResult | Non
                     "mode": led.mode, "notes": list(led.notes),
                     "complete_days": int(d["complete"].sum()) if len(d) else 0}
     days = []
-    for row in d.itertuples(index=False):  # one row per day
+    for k_day, row in enumerate(d.itertuples(index=False)):  # one row per day
         item = {"date": row.date.isoformat(), "complete": bool(row.complete),
                 "consumed_Ah": _r(row.consumed_Ah), "consumed_Wh": _r(row.consumed_Wh, 1),
                 "charged_Ah": {s: _r(getattr(row, f"charged_Ah_{s}")) for s in SOURCES},
@@ -290,6 +312,8 @@ def _assemble(channels, system: System, rows_rejected: int, soc: SocResult | Non
                                     if row.gap_s > 0 else "the log starts or ends within this day")
         if soc is None:
             item["soc_min_pct_why"] = item["soc_end_pct_why"] = "no battery channel"
+        elif np.isfinite(row.soc_min_pct) and row.soc_min_pct < LOW_SOC_NOTE_PCT:
+            item["soc_min_pct_note"] = _low_soc_note(soc, led.bounds_us, k_day, b, cap)
         days.append(item)
     battery = {"rated_Ah": b.rated_capacity_Ah, "usable_Ah": _r(cap.usable_Ah, 2),
                "usable_Ah_ci95": [_r(cap.ci95_Ah[0], 2), _r(cap.ci95_Ah[1], 2)] if cap.ci95_Ah else None,

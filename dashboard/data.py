@@ -338,7 +338,8 @@ _SOURCES = ("solar", "alternator", "shore", "other")
 
 _DAY_COLUMNS = ["date", "complete", "consumed_Ah", "consumed_Wh", "soc_min_pct", "soc_end_pct",
                 *[f"charged_{s}_Ah" for s in _SOURCES], "charged_Ah",
-                "consumed_Ah_lo", "consumed_Ah_hi"]  # the 95 % range of a single shunt's estimate, else NaN
+                "consumed_Ah_lo", "consumed_Ah_hi",  # the 95 % range of a single shunt's estimate, else NaN
+                "hidden_load_h", "observed_load_share"]  # hours whose load was inferred; share of use seen
 
 
 def _ledger_days(days: pd.DataFrame) -> pd.DataFrame:
@@ -353,6 +354,8 @@ def _ledger_days(days: pd.DataFrame) -> pd.DataFrame:
     out["charged_Ah"] = out[[f"charged_{s}_Ah" for s in _SOURCES]].sum(axis=1)
     for col, src in (("consumed_Ah_lo", "consumed_Ah_pi95_lo"), ("consumed_Ah_hi", "consumed_Ah_pi95_hi")):
         out[col] = pd.to_numeric(days[src], errors="coerce").to_numpy() if src in days else np.nan
+    for col in ("hidden_load_h", "observed_load_share"):
+        out[col] = pd.to_numeric(days[col], errors="coerce").to_numpy() if col in days else np.nan
     return out[_DAY_COLUMNS].reset_index(drop=True)
 
 
@@ -375,6 +378,8 @@ def _report_days(report: Any) -> pd.DataFrame:
         row["charged_Ah"] = sum(row[f"charged_{s}_Ah"] for s in _SOURCES)
         lo_hi = d.get("consumed_Ah_pi95") or (None, None)
         row["consumed_Ah_lo"], row["consumed_Ah_hi"] = _finite(lo_hi[0]), _finite(lo_hi[1])
+        row["hidden_load_h"] = _finite(d.get("hidden_load_h"))
+        row["observed_load_share"] = _finite(d.get("observed_load_share"))
         rows.append(row)
     return pd.DataFrame(rows, columns=_DAY_COLUMNS)
 

@@ -159,18 +159,31 @@ def _f(x: Any, nd: int = 1) -> str:
 
 
 def _table(j: dict) -> str:
-    head = ("<tr><th>date</th><th>whole day</th><th>used [Ah]</th><th>used [Wh]</th><th>solar [Ah]</th>"
-            "<th>alternator [Ah]</th><th>shore [Ah]</th><th>other [Ah]</th><th>lowest SoC [%]</th>"
-            "<th>SoC at midnight [%]</th></tr>")
+    ranged = any(d.get("consumed_Ah_pi95") for d in j["days"])
+    extra_head = "<th>used, 95 % range [Ah]</th><th>load not seen [h]</th>" if ranged else ""
+    head = ("<tr><th>date</th><th>whole day</th><th>used [Ah]</th>" + extra_head + "<th>used [Wh]</th>"
+            "<th>solar [Ah]</th><th>alternator [Ah]</th><th>shore [Ah]</th><th>other [Ah]</th>"
+            "<th>lowest SoC [%]</th><th>SoC at midnight [%]</th></tr>")
     rows = []
     for d in j["days"]:  # a loop over days, not readings
         c = d["charged_Ah"]
+        extra = ""
+        if ranged:
+            lo_hi = d.get("consumed_Ah_pi95")
+            extra = (f"<td>{f'{lo_hi[0]:.0f}-{lo_hi[1]:.0f}' if lo_hi else '-'}</td>"
+                     f"<td>{_f(d.get('hidden_load_h'))}</td>")
         rows.append(f"<tr><td>{html.escape(str(d['date']))}</td><td>{'yes' if d['complete'] else 'partial'}</td>"
-                    f"<td>{_f(d['consumed_Ah'])}</td><td>{_f(d['consumed_Wh'], 0)}</td><td>{_f(c['solar'])}</td>"
-                    f"<td>{_f(c['alternator'])}</td><td>{_f(c['shore'])}</td><td>{_f(c['other'])}</td>"
-                    f"<td>{_f(d['soc_min_pct'], 0)}</td><td>{_f(d['soc_end_pct'], 0)}</td></tr>")
+                    f"<td>{_f(d['consumed_Ah'])}</td>{extra}<td>{_f(d['consumed_Wh'], 0)}</td>"
+                    f"<td>{_f(c['solar'])}</td><td>{_f(c['alternator'])}</td><td>{_f(c['shore'])}</td>"
+                    f"<td>{_f(c['other'])}</td><td>{_f(d['soc_min_pct'], 0)}</td><td>{_f(d['soc_end_pct'], 0)}</td></tr>")
+    unseen = [d for d in j["days"] if d.get("hidden_load_note")]
+    note = ""
+    if unseen:
+        worst = max(unseen, key=lambda d: d.get("hidden_load_h") or 0)
+        note = (f"<p class='note'>On {len(unseen)} of {len(j['days'])} days the load was not seen for more than "
+                f"an hour: {html.escape(worst['hidden_load_note'].split(': ', 1)[-1])}.</p>")
     # The wrapper scrolls a wide table sideways on a phone instead of widening the whole page.
-    return f"<div class='wide'><table>{head}{''.join(rows)}</table></div>"
+    return f"{note}<div class='wide'><table>{head}{''.join(rows)}</table></div>"
 
 
 def _quality(j: dict) -> str:

@@ -16,6 +16,7 @@ import dash
 import pandas as pd
 from dash import Input, Output, callback, dcc, html, no_update
 
+from analysis.report import HIDDEN_NOTE_H, hidden_load_note
 from dashboard import figures, ids
 from dashboard.data import DataSource, current
 from dashboard.pages._parts import card, fmt, graph, missing, page_head, table
@@ -84,12 +85,23 @@ def render_trip(source: DataSource, start_date: str | None, end_date: str | None
              "soc_min": fmt(r.soc_min_pct, "%", 0), "soc_end": fmt(r.soc_end_pct, "%", 0),
              "complete": "yes" if r.complete else "partial",
              "range": (f"{r.consumed_Ah_lo:.0f}-{r.consumed_Ah_hi:.0f}"
-                       if pd.notna(r.consumed_Ah_lo) and pd.notna(r.consumed_Ah_hi) else "-")}
+                       if pd.notna(r.consumed_Ah_lo) and pd.notna(r.consumed_Ah_hi) else "-"),
+             "unseen": fmt(r.hidden_load_h, "", 1) if pd.notna(r.hidden_load_h) else "-"}
             for r in df.itertuples()]  # a loop over days
     columns = list(_DAY_COLUMNS)
+    notes: list[Any] = []
     if df["consumed_Ah_lo"].notna().any():  # one shunt: the load under charging is estimated
         columns.insert(2, ("range", "Used, 95 % range [Ah]"))
+        columns.insert(3, ("unseen", "Load not seen [h]"))
+        unseen = df[df["hidden_load_h"] > HIDDEN_NOTE_H]
+        if len(unseen):
+            notes.append(html.P(f"On {len(unseen)} of {len(df)} days the load was not seen for more than "
+                                f"{HIDDEN_NOTE_H:.0f} h: "
+                                + hidden_load_note(float(unseen["hidden_load_h"].max())).split(": ", 1)[-1] + ".",
+                                className="note"))
     tab = table(rows, columns, numeric=[k for k, _ in columns if k not in ("date", "complete")])
+    if notes:
+        tab = html.Div([*notes, tab])
     return summary, figures.ledger_figure(df), tab, _quality(source, start_date, end_date), stored
 
 
