@@ -24,7 +24,7 @@ import pandas as pd
 from analysis.charge import Anchor, SocResult, corrected_current_A, trapezoid_increments
 from analysis.peukert import fit_exponent
 from analysis.readings import US_PER_S, Channel
-from analysis.system import System
+from analysis.system import CHEMISTRY_DEFAULTS, System
 
 MIN_DELTA_SOC: float = 0.4  # common practice (docs/capacity.md)
 #: How far back [us] beyond the nearest qualifying start anchor a better-known one is sought.
@@ -150,7 +150,9 @@ def estimate_charge_efficiency(ch: Channel, soc: SocResult, system: System, *,
     efficiency, e.g. Linden's Handbook of Batteries). Cycles that gave up at least
     :data:`ETA_MIN_CYCLE_FRACTION` of the rated capacity without a gap are
     combined weighted by ``Q_in``; each end's full-charge spread (3 % of C) sets
-    the uncertainty. The result is bounded to 0.70-1.00.
+    the uncertainty, and the measurement is combined with the chemistry's default
+    and its :data:`ETA_SIGMA` (inverse-variance weights: the default is the prior).
+    The result is bounded to 0.70-1.00.
     """
     from analysis.charge import FULL_SIGMA
 
@@ -161,7 +163,9 @@ def estimate_charge_efficiency(ch: Channel, soc: SocResult, system: System, *,
     gap_cum = np.concatenate(([0], np.cumsum(soc.gaps, dtype=np.int64)))
     outs, ins = [], []
     for a, z in zip(full[:-1], full[1:]):  # loop over cycles (events)
-        lo, hi = a.last_index, z.index
+        # From the end of one full spell to the end of the next: both ends after the bank
+        # sat full (a resync fires at the tail current, before the bank is truly full).
+        lo, hi = a.last_index, z.last_index
         if hi <= lo or gap_cum[hi] - gap_cum[lo] > 0:
             continue
         t = ch.t_us[lo:hi + 1]
@@ -177,10 +181,16 @@ def estimate_charge_efficiency(ch: Channel, soc: SocResult, system: System, *,
         return EfficiencyEstimate(None, None, 0, "no full-to-full cycle gave up "
                                   f">= {100 * ETA_MIN_CYCLE_FRACTION:.0f} % of the rated capacity")
     q_in_sum = float(np.sum(ins))
-    eta = float(np.clip(np.sum(outs) / q_in_sum, 0.70, 1.0))
+    measured = float(np.clip(np.sum(outs) / q_in_sum, 0.70, 1.0))
     # Each cycle's two resyncs each miss full by ~FULL_SIGMA x C; cycles are independent.
-    sigma = float(np.sqrt(len(outs) * 2.0) * FULL_SIGMA * b.rated_capacity_Ah / q_in_sum)
-    return EfficiencyEstimate(eta, max(sigma, 0.005), len(outs), None)
+    s_meas = max(float(np.sqrt(len(outs) * 2.0) * FULL_SIGMA * b.rated_capacity_Ah / q_in_sum), 0.005)
+    # Combined with the chemistry's published range (the prior): a short cycle, whose two
+    # resyncs' spread swamps it, moves the default little; many deep cycles pin it.
+    prior = CHEMISTRY_DEFAULTS[b.chemistry]["charge_efficiency"]
+    s_prior = ETA_SIGMA[b.chemistry]
+    w_m, w_p = 1.0 / s_meas ** 2, 1.0 / s_prior ** 2
+    eta = float(np.clip((measured * w_m + prior * w_p) / (w_m + w_p), 0.70, 1.0))
+    return EfficiencyEstimate(eta, float(1.0 / np.sqrt(w_m + w_p)), len(outs), None)
 
 
 def anchor_pairs(ch: Channel, soc: SocResult, system: System, *, peukert_k: float,

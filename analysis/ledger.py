@@ -284,6 +284,35 @@ def _bank_voltage_at(t_us: np.ndarray, bank_t_us: np.ndarray, bank_V: np.ndarray
     return bank_V[lo] * (1.0 - w) + bank_V[hi] * w
 
 
+#: Share of a source's samples that must sit near zero before their median is taken as its offset.
+IDLE_SHARE_MIN: float = 0.2
+
+
+def idle_offset_A(current_A: np.ndarray, system: System) -> float:
+    """A charge source's reading while it delivers nothing [A]: its shunt's zero offset.
+
+    A solar controller at night, an alternator charger with the engine off and a
+    mains charger unplugged deliver exactly 0 A, so what their shunt reads then is
+    its offset (zero calibration, common practice for shunts). Readings within
+    ``max(0.3 A, 0.2 % of C)`` of zero are the idle ones; with at least
+    :data:`IDLE_SHARE_MIN` of the samples idle, their median is the offset, else 0.
+    """
+    c = current_A[np.isfinite(current_A)]
+    if not len(c):
+        return 0.0
+    near = np.abs(c) <= max(0.3, 0.002 * system.battery.rated_capacity_Ah)
+    if near.mean() < IDLE_SHARE_MIN:
+        return 0.0
+    return float(np.median(c[near]))
+
+
+def source_current_A(ch: Channel, system: System) -> np.ndarray:
+    """A source channel's delivered current [A, >= 0], its idle offset taken out."""
+    cur = fill0(ch.current_A)
+    off = idle_offset_A(cur, system)
+    return np.clip(cur - off, 0.0, None) if off else np.clip(cur, 0.0, None)
+
+
 def _multi_channel(bat: Channel | None, v_b: np.ndarray | None, sources: dict[str, Channel],
                    load: Channel | None, system: System, bounds: np.ndarray, gmask: dict[str, np.ndarray],
                    cols: dict[str, np.ndarray], notes: list[str]) -> None:
@@ -291,7 +320,7 @@ def _multi_channel(bat: Channel | None, v_b: np.ndarray | None, sources: dict[st
     nominal = system.battery.nominal_voltage_V
     # 1. Each source on its own time grid: delivered Ah, Wh, driving hours.
     for name, ch in sources.items():
-        cur = np.clip(fill0(ch.current_A), 0.0, None)
+        cur = source_current_A(ch, system)
         g = gmask[name]
         cols[f"charged_Ah_{name}"] += _day_sum(ch.t_us, trapezoid_increments(ch.t_us, cur, gaps=g), bounds)
         # Energy INTO THE BANK is the source's current times the bank voltage. A source
@@ -347,7 +376,7 @@ def _balance(bat: Channel, v_b: np.ndarray, bat_gaps: np.ndarray, sources: dict[
     bad = gaps_to_samples(bat_gaps, n)
     r = -fill0(bat.current_A).astype(np.float64)
     for name, ch in sources.items():
-        s_on_b, s_bad = _interp_on(bat.t_us, ch, np.clip(fill0(ch.current_A), 0.0, None), gmask[name])
+        s_on_b, s_bad = _interp_on(bat.t_us, ch, source_current_A(ch, system), gmask[name])
         r += s_on_b
         bad |= s_bad
         del s_on_b

@@ -438,15 +438,29 @@ def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: n
     # A charger's hold hides the whole load, and the days whose same hours were seen are
     # days the bank was not held (clouds, a drive): they may differ in kind. On held
     # hours the lower end reaches the always-on load.
-    held_fill = fall_use & finite & hidden_load
+    # An hour of the day that too few days ever showed (every sunlit hour of a log whose
+    # days all charge under passing clouds) has no day to learn from: its load is known
+    # only to lie between the always-on draw and what could have been carried.
+    hr_int = np.clip(np.floor(hour).astype(np.int64), 0, 23)
+    cell_h = np.bincount(d_bin * 24 + hr_int, weights=np.where(known, hrs, 0.0),
+                         minlength=n_days * 24)[:n_days * 24].reshape(n_days, 24)
+    days_seen_at = (cell_h >= 0.5).sum(axis=0)
+    unseen_hour = fall_use & finite & (days_seen_at[hr_int] < MIN_SEEN_DAYS)
+    held_fill = (fall_use & finite & hidden_load) | unseen_hour
     held_excess = np.bincount(d_bin, weights=np.where(held_fill, np.clip(load_a - np.maximum(base_level, load_obs),
                                                                          0.0, None) * hrs, 0.0),
                               minlength=n_days)[:n_days]
     fb_lo = np.minimum(fb_lo, fall_ah - held_excess)
+    # With nothing to learn from, the range is as wide above the typical guess as below it
+    # (no more than the sun could give: the cap below).
+    unseen_excess = np.bincount(d_bin, weights=np.where(unseen_hour, np.clip(load_a - np.maximum(base_level, load_obs),
+                                                                             0.0, None) * hrs, 0.0),
+                                minlength=n_days)[:n_days]
+    fb_hi = np.maximum(fb_hi, fall_ah + unseen_excess)
     # Where only the sun can charge, no hidden hour carries more than the sun could give.
-    sun_most_ah = np.bincount(d_bin, weights=np.where(fall_use & finite,
-                                                      np.maximum(load_most, load_obs) * hrs, 0.0),
-                              minlength=n_days)[:n_days]
+    sun_most = np.where(fall_use & finite & (hrs > 0), np.maximum(load_most, load_obs), 0.0)
+    with np.errstate(invalid="ignore"):  # an uncapped bin (inf) over zero hours counts nothing
+        sun_most_ah = np.bincount(d_bin, weights=np.where(hrs > 0, sun_most * hrs, 0.0), minlength=n_days)[:n_days]
     fb_hi = np.minimum(fb_hi, sun_most_ah)
     lo_half = np.sqrt(half_read ** 2 + np.clip(fall_ah - fb_lo, 0.0, None) ** 2)
     hi_half = np.sqrt(half_read ** 2 + np.clip(fb_hi - fall_ah, 0.0, None) ** 2)
@@ -475,6 +489,8 @@ def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: n
     return pd.Series(parts["solar"], index=idx, name="solar_current_A"), model
 
 
+#: Days that must have shown an hour of the day before its hidden load is drawn from them.
+MIN_SEEN_DAYS = 3
 #: Donor days needed before their own spread widens a day's range (below it, three donors
 #: would multiply their spread by t(2) = 4.3: the random-effect model is steadier).
 MIN_DONORS = 5
