@@ -1,4 +1,4 @@
-"""Probabilistic autonomy: how many days parked before the bank reaches its DoD floor.
+"""Probabilistic autonomy: how many days parked before the bank reaches its reserve.
 
 The observed days are resampled in blocks of consecutive days (a circular
 block bootstrap; Kunsch 1989, Politis & Romano 1992 - from memory), keeping
@@ -9,9 +9,10 @@ and array at once (numpy arrays of shape (candidates, sequences)).
 
 The model works at day resolution: the bank starts full, each day it loses
 that day's consumption and gains ``charge_efficiency * solar``, it cannot hold
-more than its usable energy, and it "reaches the floor" when its usable energy
-falls below zero. The crossing day is interpolated linearly, so results are
-fractional days. Sequences that never reach the floor within the horizon are
+more than its usable energy, and it "reaches the reserve" (the lowest planned
+state of charge, 1 - max DoD) when its usable energy falls below zero. The
+crossing day is interpolated linearly, so results are fractional days.
+Sequences that never reach the reserve within the horizon are
 censored at the horizon (reported as ">= horizon").
 """
 
@@ -44,14 +45,14 @@ def block_bootstrap_indices(n_days: int, horizon_days: int, n_sequences: int, *,
     return idx.reshape(n_sequences, n_blocks * b)[:, :horizon_days]
 
 
-def days_to_floor(usable_Wh: np.ndarray, array_W: np.ndarray, consumption_Wh: np.ndarray,
+def days_to_reserve(usable_Wh: np.ndarray, array_W: np.ndarray, consumption_Wh: np.ndarray,
                   solar_Wh_per_W: np.ndarray, *, charge_efficiency: float = 1.0) -> np.ndarray:
-    """Days until each candidate bank reaches its DoD floor, for each sequence.
+    """Days until each candidate bank reaches its reserve, for each sequence.
 
     Parameters
     ----------
     usable_Wh : array (C,)
-        Usable energy of each candidate bank between full and the DoD floor [Wh].
+        Usable energy of each candidate bank between full and the reserve [Wh].
     array_W : array (C,)
         Array size of each candidate [W].
     consumption_Wh : array (S, H)
@@ -64,7 +65,7 @@ def days_to_floor(usable_Wh: np.ndarray, array_W: np.ndarray, consumption_Wh: np
     Returns
     -------
     array (C, S)
-        Fractional days before the floor; ``H`` (the horizon) where it was not reached.
+        Fractional days before the reserve; ``H`` (the horizon) where it was not reached.
     """
     u = np.asarray(usable_Wh, dtype=float)[:, None]
     a = np.asarray(array_W, dtype=float)[:, None]
@@ -88,13 +89,13 @@ def days_to_floor(usable_Wh: np.ndarray, array_W: np.ndarray, consumption_Wh: np
 
 @dataclass(frozen=True)
 class AutonomySummary:
-    """Distribution of days parked before the floor, for one candidate."""
+    """Distribution of days parked before the reserve, for one candidate."""
 
     days_p50: float
     days_p90: float
     days_at_percentile: float
     percentile: float
-    chance_floor_within_target: float
+    chance_reserve_within_target: float   # chance of reaching the reserve before the target
     target_days: float
     horizon_days: int
     censored_fraction: float
@@ -112,7 +113,7 @@ def summarise(days: np.ndarray, *, target_days: float, percentile: float, horizo
     return AutonomySummary(
         days_p50=float(np.quantile(days, 0.5)), days_p90=float(np.quantile(days, 0.1)),
         days_at_percentile=at_p, percentile=percentile,
-        chance_floor_within_target=float(np.mean(days < target_days)), target_days=target_days,
+        chance_reserve_within_target=float(np.mean(days < target_days)), target_days=target_days,
         horizon_days=horizon_days, censored_fraction=float(np.mean(days >= horizon_days)),
         meets_target=bool(at_p >= target_days - 1e-9),
     )

@@ -12,8 +12,8 @@ replaced by the Peukert-corrected current (analysis.peukert, clamped so that
 
 *Anchors* are moments of known SoC:
 
-* **full-charge resync** (common practice): voltage >= the charged threshold
-  and 0 <= current <= the tail current, held for ``detection_time_s``; SoC := 100 %.
+* **full-charge resync** (common practice): voltage >= ``full_voltage_V``
+  and 0 <= current <= the full current, held for ``full_hold_s``; SoC := 100 %.
 * **OCV anchor**: after a rest (|I| ~ 0) of >= 4 h for lead-acid (>= 2 h for
   LiFePO4), the rested voltage gives SoC via analysis.ocv; for LiFePO4 only
   near its knees.
@@ -225,7 +225,7 @@ def _runs(cond: np.ndarray, t_us: np.ndarray, breaks: np.ndarray) -> tuple[np.nd
 
 def detect_full_charges(ch: Channel, system: System, gaps: np.ndarray,
                         charge_Ah: np.ndarray | None = None) -> list[Anchor]:
-    """Full-charge resyncs: V >= charged threshold, 0 <= I <= tail, for detection_time_s.
+    """Full-charge resyncs: V >= full voltage, 0 <= I <= full current, for full_hold_s.
 
     A resync re-arms only after the bank has given up at least ``REARM_FRACTION``
     of its rated capacity (counted) since the previous one; a qualifying run
@@ -236,11 +236,11 @@ def detect_full_charges(ch: Channel, system: System, gaps: np.ndarray,
     v, i = ch.voltage_V, ch.current_A
     if len(ch) < 2 or not np.isfinite(v).any():
         return []
-    cond = (v >= b.effective_charged_voltage_V) & (i >= 0.0) & (i <= b.effective_tail_current_A)
+    cond = (v >= b.effective_full_voltage_V) & (i >= 0.0) & (i <= b.effective_full_current_A)
     starts, ends = _runs(cond, ch.t_us, gaps)
     if len(starts) == 0:
         return []
-    need_us = b.detection_time_s * US_PER_S
+    need_us = b.full_hold_s * US_PER_S
     long_ = (ch.t_us[ends] - ch.t_us[starts]) >= need_us
     out: list[Anchor] = []
     rearm_Ah = REARM_FRACTION * b.rated_capacity_Ah

@@ -191,7 +191,7 @@ def analyse_charging(readings: pd.DataFrame, system: System) -> ChargingAnalysis
     h = grid.width_h
     bat = system.battery
     blocks = max(1, round(bat.series_12V_blocks))
-    charged_V = bat.effective_charged_voltage_V
+    charged_V = bat.effective_full_voltage_V
     binner = ChannelBinner(readings, grid, t_us=t_us)
     bank_V, bank_n = binner.mean("battery", "voltage_V")
     temp_C, temp_n = binner.mean("battery", "temperature_C")
@@ -207,7 +207,7 @@ def analyse_charging(readings: pd.DataFrame, system: System) -> ChargingAnalysis
     float_V = min(charged_V, 13.4 * blocks) if bat.chemistry == "lifepo4" else charged_V
     net_A, net_n = binner.mean("battery", "current_A")
     known = bank_n > 0
-    held_float = known & (bank_V >= float_V) & (net_n > 0) & (np.abs(net_A) <= bat.effective_tail_current_A)
+    held_float = known & (bank_V >= float_V) & (net_n > 0) & (np.abs(net_A) <= bat.effective_full_current_A)
     for source in SOURCES:
         rated = _rating(system, source)
         cur, n = binner.mean(source, "current_A", clip_min=0.0)

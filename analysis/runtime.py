@@ -1,7 +1,8 @@
 """Runtime left: at the present draw and over a typical day, within the usable depth of discharge.
 
 Usable charge left is ``C * (SoC/100 - (1 - max_DoD))`` [Ah]: the part of the
-present state of charge above the chemistry's floor (common practice: 50 % for
+present state of charge above the reserve, the lowest planned state of charge
+``1 - max_DoD`` (chemistry defaults in analysis.system, common practice: 50 % for
 cycled lead-acid, 20 % for LiFePO4). At a constant draw the runtime follows
 Peukert: a draw above the rated current empties the bank faster,
 ``t = Ah_left / I_eff`` with ``I_eff`` the clamped Peukert-corrected current.
@@ -35,6 +36,7 @@ class RuntimeEstimate:
     days_without_charging: float | None
     days_at_typical_day: float | None
     days_why: str | None
+    reserve_pct: float | None = None   # the lowest planned state of charge, 100 (1 - max_dod) [%]
 
     def to_json(self) -> dict:
         out = dict(self.__dict__)
@@ -94,4 +96,4 @@ def runtime_left(*, soc_now_pct: float | None, last_hour_net_A: float | None, le
             else:
                 dwhy = "a typical day charges at least what it uses: the bank does not run down"
     return RuntimeEstimate(soc_now_pct, left, float(cap), src, dod, last_hour_net_A, hours, why, cons, chg,
-                           d_none, d_typ, dwhy)
+                           d_none, d_typ, dwhy, 100.0 * (1.0 - dod))

@@ -18,7 +18,7 @@ How each size is chosen
   percentile) and hottest (95th percentile) logged temperatures; the larger is
   used. With few days, the empirical percentile.
 * **Battery** - the smallest catalogue bank that (a) holds one design day
-  between full and its DoD floor (solar only arrives in daylight, common
+  between full and its reserve, 1 - max DoD (solar only arrives in daylight, common
   practice), and (b) in the block-bootstrap simulation of parked days with the
   array you have now, lasts ``autonomy_days`` in ``percentile`` % of the
   sequences. Usable energy = Ah x V x max DoD x temperature factor (lead-acid:
@@ -454,7 +454,7 @@ def recommend(system: System, days: pd.DataFrame | None, *, autonomy_days: float
     days : DataFrame or None
         Daily ledger (see module docstring); None or empty to size from the inventory.
     autonomy_days : float
-        Target days parked before the bank reaches its DoD floor [days].
+        Target days parked before the bank reaches its reserve (1 - max DoD) [days].
     percentile : float
         Design percentile [%]: the design day's consumption percentile, and
         the share of simulated sequences that must reach ``autonomy_days``.
@@ -601,7 +601,7 @@ def recommend(system: System, days: pd.DataFrame | None, *, autonomy_days: float
             return np.repeat(days_[:, None], 1, axis=1)
         cons, per_w, _ = sim
         idx = _auto.block_bootstrap_indices(len(cons), horizon, n_sequences, seed=seed)
-        return _auto.days_to_floor(cand_usable, cand_array, cons[idx], per_w[idx], charge_efficiency=eta)
+        return _auto.days_to_reserve(cand_usable, cand_array, cons[idx], per_w[idx], charge_efficiency=eta)
 
     def summary(row: np.ndarray) -> _auto.AutonomySummary:
         return _auto.summarise(row, target_days=target, percentile=percentile, horizon_days=horizon)
@@ -624,7 +624,8 @@ def recommend(system: System, days: pd.DataFrame | None, *, autonomy_days: float
         for c, u, o, sm in zip(caps, usable, one_day_ok, sums_present)]
     battery = {
         "capacity_Ah": cap_pick, "chemistry": chem, "nominal_voltage_V": v, "energy_Wh": cap_pick * v,
-        "usable_Wh": float(usable[i_pick]), "max_dod": dod, "temperature_factor": k_t,
+        "usable_Wh": float(usable[i_pick]), "max_dod": dod, "reserve_pct": 100.0 * (1.0 - dod),
+        "temperature_factor": k_t,
         "design_temperature_C": design_T, "rate_factor": float(rate[i_pick]),
         "present_Ah": b.rated_capacity_Ah, "meets_target": meets,
         "one_design_day_Ah": design_Wh / (v * dod * k_t),
@@ -653,7 +654,7 @@ def recommend(system: System, days: pd.DataFrame | None, *, autonomy_days: float
     pres_sum = summary(simulate(present_idx_usable, np.array([present_W]))[0])
     autonomy = {"days_p50": rec_sum.days_p50, "days_p90": rec_sum.days_p90,
                 f"days_p{percentile:g}": rec_sum.days_at_percentile,
-                "chance_floor_within_target": rec_sum.chance_floor_within_target,
+                "chance_reserve_within_target": rec_sum.chance_reserve_within_target,
                 "target_days": target, "percentile": percentile, "meets_target": rec_sum.meets_target,
                 "horizon_days": horizon, "censored_fraction": rec_sum.censored_fraction,
                 "days_p50_at_horizon": rec_sum.days_p50 >= horizon,
@@ -677,8 +678,8 @@ def recommend(system: System, days: pd.DataFrame | None, *, autonomy_days: float
     if ok_rec.any():
         steps["smallest_battery_with_recommended_array_Ah"] = float(caps[int(np.argmax(ok_rec))])
     steps["explain"] = ("each row: the set, its days parked at p50 / at the design percentile, and the chance of "
-                        "reaching the DoD floor within the target; 'buys' is the gain over the row above; "
-                        "'at_horizon' means the simulation never reached the floor within the horizon")
+                        "reaching the reserve within the target; 'buys' is the gain over the row above; "
+                        "'at_horizon' means the simulation never reached the reserve within the horizon")
 
     # ---- DC-DC charger
     alt = [c for c in system.charger if c.source == "alternator"]
@@ -776,7 +777,8 @@ def recommend(system: System, days: pd.DataFrame | None, *, autonomy_days: float
         w = _dm.worksheet(design_Wh, v, psh, chemistry=chem, autonomy_days=target, max_dod=dod,
                           temperature_factor=k_t_method, design_month=design_month)
         cross = asdict(w)
-        cross["psh_source"] = "pvlib clear sky on the array plane (an upper bound: the method's array is a floor)"
+        cross["psh_source"] = ("pvlib clear sky on the array plane (an upper bound on sun hours, so the method's "
+                              "array is a minimum)")
         ratio_b = cap_pick / w.battery_capacity_Ah if w.battery_capacity_Ah else None
         ratio_a = (solar["array_W"] / w.array_W) if (solar.get("array_W") and w.array_W) else None
         cross["data_vs_method_battery"] = ratio_b
@@ -815,13 +817,13 @@ def recommend(system: System, days: pd.DataFrame | None, *, autonomy_days: float
         "inverter_efficiency": INVERTER_EFFICIENCY, "inverter_efficiency_at_cutoff": INVERTER_EFFICIENCY_AT_CUTOFF,
         "dc_dc_efficiency": DC_DC_EFFICIENCY, "dc_dc_input_V": DC_DC_INPUT_V, "seed": seed,
         "catalogue": "common nominal sizes, no brands (analysis/catalogue.py)",
-        "simulation": "day resolution; bank starts full; floor = max DoD; horizon "
+        "simulation": f"day resolution; bank starts full; reserve {100 * (1 - dod):.0f} % (1 - max DoD); horizon "
                       f"{horizon} days",
     }
     present = {"battery_Ah": b.rated_capacity_Ah, "array_W": present_W, "usable_Wh": float(present_idx_usable[0]),
                "autonomy": {"days_p50": pres_sum.days_p50, "days_p90": pres_sum.days_p90,
                             f"days_p{percentile:g}": pres_sum.days_at_percentile,
-                            "chance_floor_within_target": pres_sum.chance_floor_within_target,
+                            "chance_reserve_within_target": pres_sum.chance_reserve_within_target,
                             "meets_target": pres_sum.meets_target}}
     return SizingResult(battery=battery, solar=solar, dc_dc_charger=dc_dc, inverter=inverter, autonomy=autonomy,
                         runs=runs, design_load=design, present=present, steps=steps, cross_check=cross,
@@ -831,7 +833,7 @@ def recommend(system: System, days: pd.DataFrame | None, *, autonomy_days: float
 def _step(label: str, cap: float, arr: float, s: _auto.AutonomySummary) -> dict:
     return {"set": label, "battery_Ah": float(cap), "array_W": float(arr), "days_p50": s.days_p50,
             "days_p90": s.days_p90, "days_at_percentile": s.days_at_percentile,
-            "chance_floor_within_target": s.chance_floor_within_target, "meets_target": s.meets_target,
+            "chance_reserve_within_target": s.chance_reserve_within_target, "meets_target": s.meets_target,
             "at_horizon": s.days_at_percentile >= s.horizon_days}
 
 
@@ -856,7 +858,7 @@ def _explain_difference(ratio_b: float | None, ratio_a: float | None, sim, desig
                        f"all; on the median logged parked day the present array covered {cover * 100:.0f} % of "
                        "the use, so the simulated bank drains more slowly")
         elif sim is not None:
-            out.append(f"battery differs by x{ratio_b:.2f}: catalogue steps and the one-design-day floor; "
+            out.append(f"battery differs by x{ratio_b:.2f}: catalogue steps and the one-design-day minimum; "
                        "the method has no solar in its battery step")
         else:
             out.append(f"battery differs by x{ratio_b:.2f}: catalogue rounding and different derates")

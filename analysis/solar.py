@@ -9,7 +9,7 @@ way). Three things make the comparison honest:
 * **Saturation.** When the bank is full, or in absorption/float, the
   controller throttles and the measured yield understates what the array
   could give. A 10-minute interval counts as *saturated* when the bank voltage
-  is at or above ``battery.effective_charged_voltage_V`` (or, for LiFePO4,
+  is at or above ``battery.effective_full_voltage_V`` (or, for LiFePO4,
   held at float -- at least :data:`LFP_FLOAT_V_PER_12V` per 12 V block with the
   bank's net current within the tail current) **and** the solar output is
   below :data:`THROTTLED_BELOW` x the array's own clear-interval ratio x the
@@ -333,10 +333,10 @@ def analyse_solar(readings: pd.DataFrame, system: System, *,
 
     # -- saturation
     bat = system.battery
-    charged_V = bat.effective_charged_voltage_V
+    charged_V = bat.effective_full_voltage_V
     blocks = max(1, round(bat.series_12V_blocks))
     float_V = min(charged_V, LFP_FLOAT_V_PER_12V * blocks) if bat.chemistry == "lifepo4" else charged_V
-    tail_A = bat.effective_tail_current_A
+    tail_A = bat.effective_full_current_A
     voltage_known = bank_n > 0
     day_exp_max = day_max(exp_W)[day_codes]
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -578,7 +578,7 @@ def _diagnostics(series: pd.DataFrame, system: System, *, h: float, source: str 
                   "controller": f"MPPT x{MPPT_EFFICIENCY}; PWM pins the module at bank voltage"},
         "arrays": [{"name": a.name, "peak_power_W": a.peak_power_W, "tilt_deg": a.tilt_deg,
                     "azimuth_deg": a.azimuth_deg, "controller": a.controller} for a in system.solar],
-        "saturation": {"charged_voltage_V": round(charged_V, 2), "float_voltage_V": round(float_V, 2),
+        "saturation": {"full_voltage_V": round(charged_V, 2), "float_voltage_V": round(float_V, 2),
                        "clear_interval_ratio": round(clear_ratio_ref, 3), "clear_interval_ratio_from": ref_why,
                        "saturated_hours": _r(float(periods["hours"].sum()) if len(periods) else 0.0, 2),
                        "saturated_periods": int(len(periods))},

@@ -19,26 +19,94 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_valida
 
 Chemistry = Literal["lifepo4", "agm", "gel", "flooded"]
 
-#: Defaults by chemistry. Sources are named beside each value; see
-#: ../shared/FIELDREF.md §1-§4 and DEVELOPERS.md.
+#: Defaults by chemistry, each with its source. "From memory" marks a figure
+#: recalled from the named source rather than re-read from it; ../shared/FIELDREF.md
+#: §1-§4 holds the formulas and check values. Per-cell voltages are multiplied by
+#: 6 cells (lead-acid, per 12 V block) or 4 cells (LiFePO4, per 12.8 V block).
+#:
+#: peukert_k -- there is no standard value: the exponent is a fit to one battery's
+#:   discharges, not a material constant (Doerffel & Sharkh, J. Power Sources 155
+#:   (2006) 395, from memory), so the report fits it whenever the log allows and
+#:   these are only its starting points. Common practice (no primary source):
+#:   LiFePO4 1.00-1.05 -> 1.03; AGM 1.05-1.15 -> 1.10; gel 1.10-1.25 -> 1.15;
+#:   flooded 1.20-1.60, about 1.25 when new -> 1.25.
+#: charge_efficiency -- charge (Ah) efficiency, used only until the log holds two
+#:   full charges to measure it from (analysis.capacity). Lead-acid: 0.90, the
+#:   battery efficiency of the Sandia SAND87-7023 stand-alone PV worksheet (FIELDREF
+#:   §4, checked; analysis.design_method uses the same figure), for every lead-acid
+#:   type -- within the 0.85-0.97 usually quoted for flooded and VRLA batteries,
+#:   lower during absorption (FIELDREF §2, from memory). LiFePO4: coulombic
+#:   efficiency 0.99-0.999 (FIELDREF §2, from memory) -> 0.99, the cautious end.
+#: full_voltage_per_12V -- the bank is full only while a charger holds it at a
+#:   charge voltage; the threshold must sit above a rested full battery and at or
+#:   below every usual charge setting. Lead-acid: 2.20 V/cell = 13.2 V. A rested
+#:   full cell reads 2.10-2.15 V (OCV ~ SG + 0.84, Linden's Handbook of Batteries,
+#:   from memory; FIELDREF §2 tables); float settings run 2.20-2.25 V/cell for vented
+#:   cells (IEC 60896-11 float test: 2.14-2.25 V/cell as the maker sets it, from
+#:   memory) and 2.25-2.30 V/cell for VRLA (IEEE 1188 practice, from memory); the
+#:   EN 50272-2 / IEC 62485-2 ventilation table takes 2.23 V (vented) and 2.27 V
+#:   (VRLA) as typical float. Temperature compensation of about -4 mV/degC per cell
+#:   (common practice) lowers a warm bank's float by ~0.06 V/cell at 40 degC, so
+#:   2.20 V/cell is the level every float and absorption setting still reaches.
+#:   LiFePO4: 3.50 V/cell = 14.0 V, the middle of the 3.45-3.55 V/cell end-of-charge
+#:   window used for house banks (common practice), above the 3.35-3.40 V/cell
+#:   float and rest level and below the 3.65 V/cell charge limit of LFP cells
+#:   (common practice, from memory).
+#: full_current_pct -- the end-of-charge current at that voltage, % of the rated
+#:   capacity per hour. LiFePO4: 5 % (0.05 It), the constant-voltage termination of
+#:   the standard charge in IEC 61960-3 (from memory). Lead-acid: 2 %, the middle of
+#:   the 1-3 % of C end-of-absorption criterion in common use; a full battery at
+#:   boost voltage (2.40 V/cell) takes only 0.4 % (vented) to 0.8 % (VRLA) of C
+#:   (EN 50272-2 / IEC 62485-2 gas-current table: 4 and 8 mA/Ah), so an aged or warm
+#:   bank still gets below 2 % when full, while a bank still taking 2 % at
+#:   absorption voltage is within a few per cent of full.
+#: max_dod -- the deepest planned discharge; the reserve (lowest planned state of
+#:   charge) is 1 - max_dod. Common practice, as in sizing under IEEE 1013 and the
+#:   Sandia worksheet (FIELDREF §4): 0.5 for cycled lead-acid, 0.8 (of 0.8-0.9) for
+#:   LiFePO4.
 CHEMISTRY_DEFAULTS: dict[str, dict[str, float]] = {
-    # peukert_k: vendor-quoted typical ranges (common practice): LFP 1.00-1.05,
-    # AGM 1.05-1.15, gel 1.1-1.25, flooded 1.2-1.6 (new ~1.25).
-    # charge_efficiency: Ah efficiency, from memory: LFP 0.99-0.999,
-    # AGM/gel 0.90-0.97, flooded 0.85-0.95.
-    # charged_voltage_per_12V: full-charge resync threshold (common practice):
-    # LFP ~ absorption - 0.2 V = 14.0 V; lead-acid ~ float - 0.2 V = 13.2 V.
-    # tail_current_pct: 2-5 % of C for LFP, 2-4 % for lead-acid (common practice).
-    # max_dod: usable depth of discharge, common practice: 0.5 for cycled
-    # lead-acid, 0.8-0.9 for LFP.
-    "lifepo4": {"peukert_k": 1.03, "charge_efficiency": 0.99, "charged_voltage_per_12V": 14.0,
-                "tail_current_pct": 4.0, "max_dod": 0.8},
-    "agm": {"peukert_k": 1.10, "charge_efficiency": 0.95, "charged_voltage_per_12V": 13.2,
-            "tail_current_pct": 3.0, "max_dod": 0.5},
-    "gel": {"peukert_k": 1.15, "charge_efficiency": 0.95, "charged_voltage_per_12V": 13.2,
-            "tail_current_pct": 3.0, "max_dod": 0.5},
-    "flooded": {"peukert_k": 1.25, "charge_efficiency": 0.90, "charged_voltage_per_12V": 13.2,
-                "tail_current_pct": 3.0, "max_dod": 0.5},
+    "lifepo4": {
+        "peukert_k": 1.03,             # common practice 1.00-1.05 (no primary source)
+        "charge_efficiency": 0.99,     # 0.99-0.999, cautious end (FIELDREF §2, from memory)
+        "full_voltage_per_12V": 14.0,  # 3.50 V/cell: 3.45-3.55 V/cell end of charge (common practice)
+        "full_current_pct": 5.0,       # 0.05 It: IEC 61960-3 standard-charge termination (from memory)
+        "max_dod": 0.8,                # common practice 0.8-0.9 (FIELDREF §4)
+    },
+    "agm": {
+        "peukert_k": 1.10,             # common practice 1.05-1.15 (no primary source)
+        "charge_efficiency": 0.90,     # Sandia SAND87-7023 worksheet battery efficiency
+        "full_voltage_per_12V": 13.2,  # 2.20 V/cell: at or below every float (IEEE 1188 practice, from memory)
+        "full_current_pct": 2.0,       # 1-3 % of C in common use; full VRLA takes 0.8 % (EN 50272-2)
+        "max_dod": 0.5,                # cycled lead-acid, common practice (FIELDREF §4, IEEE 1013 sizing)
+    },
+    "gel": {
+        "peukert_k": 1.15,             # common practice 1.10-1.25 (no primary source)
+        "charge_efficiency": 0.90,     # Sandia SAND87-7023 worksheet battery efficiency
+        "full_voltage_per_12V": 13.2,  # 2.20 V/cell: at or below every float (IEEE 1188 practice, from memory)
+        "full_current_pct": 2.0,       # 1-3 % of C in common use; full VRLA takes 0.8 % (EN 50272-2)
+        "max_dod": 0.5,                # cycled lead-acid, common practice (FIELDREF §4, IEEE 1013 sizing)
+    },
+    "flooded": {
+        "peukert_k": 1.25,             # common practice 1.20-1.60, ~1.25 new (no primary source)
+        "charge_efficiency": 0.90,     # Sandia SAND87-7023 worksheet battery efficiency
+        "full_voltage_per_12V": 13.2,  # 2.20 V/cell: lowest vented float (IEC 60896-11 range, from memory)
+        "full_current_pct": 2.0,       # 1-3 % of C in common use; full vented takes 0.4 % (EN 50272-2)
+        "max_dod": 0.5,                # cycled lead-acid, common practice (FIELDREF §4, IEEE 1013 sizing)
+    },
+}
+
+#: How long the full conditions must hold before the bank counts as full [s]:
+#: 1-3 minutes is common practice (FIELDREF §2) -- long enough that a passing
+#: cloud or a load switching off does not qualify, short enough to catch a
+#: short absorption at the end of a drive.
+FULL_HOLD_S_DEFAULT = 120.0
+
+#: Keys renamed in system.toml: old -> new, by table. An old key is an error that
+#: names the new one (no silent alias: a file must mean one thing).
+RENAMED_KEYS: dict[tuple[str, str], str] = {
+    ("battery", "charged_voltage_V"): "full_voltage_V",
+    ("battery", "tail_current_pct"): "full_current_pct",
+    ("battery", "detection_time_s"): "full_hold_s",
 }
 
 
@@ -74,9 +142,12 @@ class Battery(_Strict):
     # Optional overrides of the chemistry defaults above.
     peukert_k: float | None = Field(default=None, ge=1.0, le=1.8)
     charge_efficiency: float | None = Field(default=None, gt=0.5, le=1.0)
-    charged_voltage_V: float | None = Field(default=None, gt=0, le=80)
-    tail_current_pct: float | None = Field(default=None, gt=0, le=20)
-    detection_time_s: float = Field(default=120, ge=10, le=3600)
+    # The bank counts as full (SoC := 100 %) when, while charging, its voltage is at
+    # least full_voltage_V and the charge current at most full_current_pct of the
+    # rated capacity, both for full_hold_s.
+    full_voltage_V: float | None = Field(default=None, gt=0, le=80)
+    full_current_pct: float | None = Field(default=None, gt=0, le=20)
+    full_hold_s: float = Field(default=FULL_HOLD_S_DEFAULT, ge=10, le=3600)
     max_dod: float | None = Field(default=None, gt=0.05, le=1.0)
 
     def _default(self, key: str) -> float:
@@ -103,19 +174,31 @@ class Battery(_Strict):
         return self._default("charge_efficiency")
 
     @property
-    def effective_charged_voltage_V(self) -> float:
-        if self.charged_voltage_V is not None:
-            return self.charged_voltage_V
-        return self._default("charged_voltage_per_12V") * round(self.series_12V_blocks)
+    def effective_full_voltage_V(self) -> float:
+        """Bank voltage at or above which, while charging, the bank can count as full [V]."""
+        if self.full_voltage_V is not None:
+            return self.full_voltage_V
+        return self._default("full_voltage_per_12V") * round(self.series_12V_blocks)
 
     @property
-    def effective_tail_current_A(self) -> float:
-        pct = self.tail_current_pct if self.tail_current_pct is not None else self._default("tail_current_pct")
-        return pct / 100.0 * self.rated_capacity_Ah
+    def effective_full_current_pct(self) -> float:
+        if self.full_current_pct is not None:
+            return self.full_current_pct
+        return self._default("full_current_pct")
+
+    @property
+    def effective_full_current_A(self) -> float:
+        """Charge current at or below which, at the full voltage, the bank can count as full [A]."""
+        return self.effective_full_current_pct / 100.0 * self.rated_capacity_Ah
 
     @property
     def effective_max_dod(self) -> float:
         return self.max_dod if self.max_dod is not None else self._default("max_dod")
+
+    @property
+    def reserve_pct(self) -> float:
+        """The reserve: the lowest planned state of charge, 100 x (1 - max_dod) [%]."""
+        return 100.0 * (1.0 - self.effective_max_dod)
 
 
 class SolarArray(_Strict):
@@ -184,10 +267,17 @@ def _location(loc: tuple) -> str:
     return ".".join(parts)
 
 
-def _explain(exc: ValidationError, source: str) -> str:
+def _explain(exc: ValidationError, source: str, *,
+             renamed: dict[tuple[str, str], str] | None = None) -> str:
+    renamed = RENAMED_KEYS if renamed is None else renamed
     lines = [f"{source}: invalid system description"]
     for err in exc.errors():
         key = _location(err["loc"]) or "(top level)"
+        loc = tuple(str(x) for x in err["loc"] if not isinstance(x, int))
+        if err["type"] == "extra_forbidden" and loc[-2:] in renamed:
+            lines.append(f"  {key}: this key is now called {renamed[loc[-2:]]} (same meaning and unit); "
+                         "rename it")
+            continue
         if err["type"] == "extra_forbidden":
             lines.append(f"  {key}: unknown key (check its spelling; see DESIGN.md for the schema)")
             continue

@@ -185,7 +185,12 @@ def _decode_head(raw: bytes, path: Path) -> tuple[str, str]:
     if not probe.strip():
         raise UnusableInput(f"{path}: the file holds only NUL bytes (a logger that lost power before "
                             "writing?); nothing to import")
-    if probe[:65536].count(b"\x00") > 0.01 * min(len(probe), 65536):
+    head64 = probe[:65536]
+    lines = head64.split(b"\n")
+    # Binary formats hold NUL bytes on most "lines"; a stray NUL or two on one line of a short
+    # text log is a damaged line (quarantined later), not a binary file.
+    if (head64.count(b"\x00") > 0.01 * min(len(probe), 65536)
+            and sum(b"\x00" in ln for ln in lines) > 0.25 * len(lines)):
         raise UnusableInput(f"{path}: this is a binary file (NUL bytes), not a text log; "
                             "export the log as CSV from the monitor or logger and import that")
     if raw.startswith(b"\xef\xbb\xbf"):

@@ -132,7 +132,7 @@ class BankModel:
     absorption_V: float
     float_V: float
     soc_cv: float                    # SoC [-] where absorption (CV) starts
-    tail_current_A: float
+    absorption_end_current_A: float  # what the full bank still takes at absorption voltage [A]
     max_charge_current_A: float
     float_current_A: float
     rebulk_soc: float
@@ -150,7 +150,8 @@ class BankModel:
         if soc <= self.soc_cv:
             return self.max_charge_current_A
         x = max(0.0, (1.0 - soc) / (1.0 - self.soc_cv))
-        return self.tail_current_A + (self.max_charge_current_A - self.tail_current_A) * x ** self.taper_exponent
+        i_end = self.absorption_end_current_A
+        return i_end + (self.max_charge_current_A - i_end) * x ** self.taper_exponent
 
 
 @dataclass
@@ -232,7 +233,7 @@ def run_bank(bank: BankModel, *, dt_s: float, source_A: np.ndarray, load_W: np.n
     rp = bank.polarisation_ohm
     a_rel = 1.0 - math.exp(-dt_s / bank.relaxation_s)
     v_abs, v_flt = bank.absorption_V, bank.float_V
-    i_tail, i_float = bank.tail_current_A, bank.float_current_A
+    i_tail, i_float = bank.absorption_end_current_A, bank.float_current_A
     knee0 = bank.soc_cv - 0.1
     lvd = bank.low_voltage_disconnect_soc if enable_disconnect else -1.0
     cold = bank.no_charge_below_C

@@ -50,7 +50,9 @@ class TruthBattery(_Strict):
     absorption_V: float = Field(gt=0, le=80)
     float_V: float = Field(gt=0, le=80)
     soc_cv_pct: float = Field(ge=50, lt=100)
-    tail_current_pct: float = Field(gt=0, le=20)
+    # The current the full bank still takes at absorption voltage, where the charger
+    # goes to float [% of the rated capacity per hour].
+    absorption_end_current_pct: float = Field(gt=0, le=20)
     max_charge_C: float = Field(gt=0, le=5)
     float_current_pct: float = Field(default=0.0, ge=0, le=5)
     rebulk_soc_pct: float = Field(default=95.0, ge=50, lt=100)
@@ -139,6 +141,10 @@ class ScenarioParams(_Strict):
     device: Device = Device()
 
 
+#: Keys renamed in scenario files: an old key is an error naming the new one.
+_RENAMED: dict[tuple[str, str], str] = {("battery", "tail_current_pct"): "absorption_end_current_pct"}
+
+
 class ScenarioError(ValueError):
     """A scenario file that cannot be used; the message names the file and key."""
 
@@ -152,4 +158,4 @@ def parse_scenario(text: str, *, source: str) -> ScenarioParams:
     try:
         return ScenarioParams.model_validate(data)
     except ValidationError as exc:
-        raise ScenarioError(_explain(exc, source).replace("system description", "scenario")) from None
+        raise ScenarioError(_explain(exc, source, renamed=_RENAMED).replace("system description", "scenario")) from None

@@ -55,7 +55,9 @@ def _parser() -> argparse.ArgumentParser:
     s.add_argument("--html", metavar="FILE", help="also write a self-contained HTML report")
 
     s = sub.add_parser("size", help="right-sizing recommendation")
-    s.add_argument("--autonomy-days", type=float, default=None, metavar="N")
+    s.add_argument("--autonomy-days", type=float, default=None, metavar="N",
+                   help="days parked without charging before the bank reaches its reserve, the lowest "
+                        "planned state of charge (1 - max_dod) (default 3)")
     s.add_argument("--percentile", type=float, default=90.0, help="design-day percentile (default 90)")
     s.add_argument("--json", action="store_true")
 

@@ -494,14 +494,15 @@ class LiveSnapshot:
     draw_A : mean battery current over the last five minutes [A] (negative = discharging)
     soc_pct, soc_source : state of charge and where it came from
     temperature_C : battery temperature, if measured
-    remaining_Ah : charge left above the chemistry's usual floor [Ah]
-    runtime_at_draw_h : hours to that floor at ``draw_A`` (None when charging or unknown)
+    remaining_Ah : charge left above the reserve [Ah]
+    runtime_at_draw_h : hours to the reserve at ``draw_A`` (None when charging or unknown)
     typical_day_Ah : median consumption of the recent complete days [Ah]
-    runtime_typical_days : days to the floor at the typical day's use
+    runtime_typical_days : days to the reserve at the typical day's use
     alarms : plain sentences (low voltage, unusual draw); empty when all is well
     notes : why a figure is missing
     readings : the last hour, canonical long frame
     low_voltage_V : the alarm level used [V]
+    reserve_pct : the reserve, the lowest planned state of charge (1 - max_dod) [%]
     """
 
     t: pd.Timestamp | None
@@ -520,6 +521,21 @@ class LiveSnapshot:
     notes: tuple[str, ...]
     readings: pd.DataFrame
     low_voltage_V: float | None
+    reserve_pct: float | None = None
+
+
+def full_charge_summary(system: System) -> str:
+    """One line: the full-charge settings and the reserve in use, each saying where it comes from."""
+    b = system.battery
+
+    def origin(value: Any) -> str:
+        return "set" if value is not None else "default"
+
+    return (f"Counted as full when, while charging, the bank holds at least {b.effective_full_voltage_V:.2f} V "
+            f"(full_voltage_V, {origin(b.full_voltage_V)}) and takes at most {b.effective_full_current_A:.1f} A "
+            f"({b.effective_full_current_pct:g} % of {b.rated_capacity_Ah:g} Ah: full_current_pct, "
+            f"{origin(b.full_current_pct)}) for {b.full_hold_s:g} s (full_hold_s). Reserve: "
+            f"{b.reserve_pct:.0f} % state of charge (1 - max_dod, {origin(b.max_dod)}).")
 
 
 # -- the data source -------------------------------------------------------------------
@@ -627,7 +643,8 @@ class DataSource:
         b = system.battery
         return system, (f"{source}: valid. Battery {b.rated_capacity_Ah:g} Ah {b.chemistry} at "
                         f"{b.nominal_voltage_V:g} V; {len(system.solar)} solar array(s), "
-                        f"{len(system.charger)} charger(s), {len(system.load)} planned load(s).")
+                        f"{len(system.charger)} charger(s), {len(system.load)} planned load(s).\n"
+                        + full_charge_summary(system))
 
     def save_system_text(self, text: str) -> tuple[bool, str]:
         """Write ``system.toml`` only when the text is valid; (saved, message)."""
@@ -867,7 +884,7 @@ class DataSource:
         remaining = runtime_h = runtime_days = None
         runtime_left, rwhy = _optional("analysis.runtime", "runtime_left")
         if system is not None and soc is not None and runtime_left is not None:
-            # analysis.runtime: usable charge above the chemistry's floor; Peukert-corrected present draw.
+            # analysis.runtime: usable charge above the reserve (1 - max_dod); Peukert-corrected present draw.
             est = runtime_left(soc_now_pct=soc, last_hour_net_A=draw,
                                ledger_days=ledger_days if ledger_days is not None else pd.DataFrame(),
                                system=system, capacity_Ah=usable,
@@ -889,7 +906,8 @@ class DataSource:
                 alarms.append(f"Unusual draw: {-draw:.1f} A is more than {UNUSUAL_DRAW_FACTOR:g}x the "
                               f"heaviest usual draw of the past week ({usual:.1f} A).")
         return LiveSnapshot(t_last, v, i, p, draw, soc, soc_source, temp, remaining, runtime_h, typical,
-                            runtime_days, tuple(alarms), tuple(notes), recent, low_v)
+                            runtime_days, tuple(alarms), tuple(notes), recent, low_v,
+                            system.battery.reserve_pct if system is not None else None)
 
     # -- upload -----------------------------------------------------------------------------
     def import_upload(self, filename: str, contents: str) -> dict[str, Any]:

@@ -251,7 +251,7 @@ def ledger_figure(days: pd.DataFrame) -> go.Figure:
 
 def soc_figure(soc: pd.Series | None, *, resync_times: Sequence[Any] = (), tz: str = "UTC",
                device_soc: pd.Series | None = None, n_out: int = SCREEN_POINTS) -> go.Figure:
-    """State of charge over time with the full-charge resync points marked.
+    """State of charge over time with the detected full charges marked (SoC set to 100 % there).
 
     Parameters
     ----------
@@ -275,7 +275,7 @@ def soc_figure(soc: pd.Series | None, *, resync_times: Sequence[Any] = (), tz: s
         if len(resync_times):
             rt = pd.DatetimeIndex(pd.to_datetime(list(resync_times), utc=True))
             fig.add_trace(go.Scatter(x=rt.tz_convert(tz).tz_localize(None), y=np.full(len(rt), 100.0),
-                                     mode="markers", name="full-charge resync",
+                                     mode="markers", name="full charge (SoC set to 100 %)",
                                      marker={"symbol": "triangle-down", "size": 9, "color": PALETTE["solar"]}))
     fig.update_yaxes(title_text="state of charge [%]", range=[0, 105])
     return _base_layout(fig, title="State of charge")

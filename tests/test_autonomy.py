@@ -12,7 +12,7 @@ def test_constant_drain_without_sun_lasts_usable_over_daily_use():
     # Energy balance (no charge): days = usable energy / daily use exactly, interpolated within the day.
     cons = np.full((5, 20), 300.0)
     sol = np.zeros((5, 20))
-    days = au.days_to_floor(np.array([1000.0, 1500.0]), np.array([0.0, 0.0]), cons, sol)
+    days = au.days_to_reserve(np.array([1000.0, 1500.0]), np.array([0.0, 0.0]), cons, sol)
     assert days[0] == pytest.approx(1000 / 300)
     assert days[1] == pytest.approx(5.0)
 
@@ -20,7 +20,7 @@ def test_constant_drain_without_sun_lasts_usable_over_daily_use():
 def test_solar_above_use_never_reaches_the_floor_and_is_censored():
     cons = np.full((3, 15), 300.0)
     sol = np.full((3, 15), 2.0)  # Wh per W per day
-    days = au.days_to_floor(np.array([500.0]), np.array([200.0]), cons, sol)
+    days = au.days_to_reserve(np.array([500.0]), np.array([200.0]), cons, sol)
     assert np.all(days == 15)
     s = au.summarise(days[0], target_days=3, percentile=90, horizon_days=15)
     assert s.censored_fraction == 1.0 and s.meets_target
@@ -30,15 +30,15 @@ def test_bank_cannot_store_more_than_its_usable_energy():
     # A sunny day cannot bank energy beyond "full": after a huge surplus the next deficit starts from full.
     cons = np.array([[0.0, 600.0, 600.0]])
     sol = np.array([[100.0, 0.0, 0.0]])
-    days = au.days_to_floor(np.array([1000.0]), np.array([100.0]), cons, sol)
+    days = au.days_to_reserve(np.array([1000.0]), np.array([100.0]), cons, sol)
     assert days[0, 0] == pytest.approx(1 + 1000 / 600)
 
 
 def test_charge_efficiency_scales_the_solar_credit():
     cons = np.full((1, 10), 500.0)
     sol = np.full((1, 10), 1.0)
-    d_full = au.days_to_floor(np.array([1000.0]), np.array([250.0]), cons, sol, charge_efficiency=1.0)
-    d_half = au.days_to_floor(np.array([1000.0]), np.array([250.0]), cons, sol, charge_efficiency=0.5)
+    d_full = au.days_to_reserve(np.array([1000.0]), np.array([250.0]), cons, sol, charge_efficiency=1.0)
+    d_half = au.days_to_reserve(np.array([1000.0]), np.array([250.0]), cons, sol, charge_efficiency=0.5)
     assert d_full[0, 0] == pytest.approx(1000 / 250)
     assert d_half[0, 0] == pytest.approx(1000 / 375)
 
@@ -48,7 +48,7 @@ def test_more_usable_energy_never_gives_fewer_days():
     cons = rng.uniform(200, 900, (200, 40))
     sol = rng.uniform(0, 4, (200, 40))
     u = np.array([500.0, 800.0, 1200.0, 2000.0, 4000.0])
-    days = au.days_to_floor(u, np.full(5, 150.0), cons, sol)
+    days = au.days_to_reserve(u, np.full(5, 150.0), cons, sol)
     assert np.all(np.diff(days, axis=0) >= -1e-12)
 
 
@@ -83,7 +83,7 @@ def test_summary_p90_is_the_days_ninety_percent_of_sequences_reach():
     s = au.summarise(days, target_days=11, percentile=90, horizon_days=200)
     assert s.days_p90 == pytest.approx(np.quantile(days, 0.1))
     assert s.days_p50 == pytest.approx(50.5)
-    assert s.chance_floor_within_target == pytest.approx(0.10)  # 1..10 days fall short of 11
+    assert s.chance_reserve_within_target == pytest.approx(0.10)  # 1..10 days fall short of 11
     assert not s.meets_target  # p90 = 10.9 < 11
 
 

@@ -293,6 +293,10 @@ def test_live_callback_renders_tiles_and_a_figure(app_ctx):
     assert stamp.startswith("Newest reading")
     assert len(tiles) >= 4
     assert fig.layout.height == 440
+    text = str(runtime)
+    # The lowest planned state of charge is the reserve (issue 13): LiFePO4 default max_dod 0.8.
+    assert "Charge left above the reserve" in text and "20 % state of charge" in text
+    assert "floor" not in text.lower()
 
 
 # -- setup: system.toml and upload -------------------------------------------------------------
@@ -314,6 +318,25 @@ def test_valid_system_text_is_written(copy_ctx):
     assert saved, message
     assert "rated_capacity_Ah = 280" in src.system_path.read_text()
     assert src.system().value.battery.rated_capacity_Ah == 280
+
+
+def test_setup_check_shows_the_full_charge_settings_and_reserve_in_use(copy_ctx):
+    from dashboard.pages import setup
+
+    text = copy_ctx.source.system_path.read_text().replace("rated_hours = 20", "rated_hours = 20\nfull_hold_s = 300")
+    out = str(setup.render_system_action(copy_ctx.source, "check", text))
+    assert "notice-error" not in out
+    # LiFePO4 defaults (analysis.system): 3.50 V/cell x 4, 0.05 It of 200 Ah; the hold as set.
+    assert "14.00 V (full_voltage_V, default)" in out and "10.0 A (5 % of 200 Ah" in out
+    assert "for 300 s (full_hold_s)" in out and "Reserve: 20 % state of charge" in out
+
+
+def test_setup_check_names_the_new_key_for_an_old_one(copy_ctx):
+    from dashboard.pages import setup
+
+    text = copy_ctx.source.system_path.read_text().replace("rated_hours = 20", "rated_hours = 20\ntail_current_pct = 4")
+    out = str(setup.render_system_action(copy_ctx.source, "save", text))
+    assert "notice-error" in out and "tail_current_pct: this key is now called full_current_pct" in out
 
 
 def test_setup_callback_check_reports_validation_messages(copy_ctx):

@@ -121,7 +121,7 @@ def test_soc_figure_marks_every_full_charge_resync_at_100_percent(page, scenario
     assert resyncs, "spring-truck reaches full charge in its first days"
     traces = {t["name"]: t for t in _by_title(page)["State of charge"]["data"]}
     assert traces["estimated"]["line"]["color"] == figures.PALETTE["soc"]
-    marks = traces["full-charge resync"]
+    marks = traces["full charge (SoC set to 100 %)"]
     assert len(marks["x"]) == len(resyncs)
     np.testing.assert_allclose(_values(marks["y"]), 100.0)
 

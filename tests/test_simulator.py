@@ -30,7 +30,7 @@ REPO = Path(__file__).resolve().parents[1]
 def _bank(**kw) -> BankModel:
     base = dict(chemistry="flooded", blocks_12V=1, capacity_Ah=100.0, rated_hours=20.0, peukert_k=1.25,
                 charge_efficiency=1.0, internal_resistance_ohm=0.01, polarisation_ohm=0.0, relaxation_s=600.0,
-                absorption_V=14.4, float_V=13.6, soc_cv=0.95, tail_current_A=1.0, max_charge_current_A=50.0,
+                absorption_V=14.4, float_V=13.6, soc_cv=0.95, absorption_end_current_A=1.0, max_charge_current_A=50.0,
                 float_current_A=0.0, rebulk_soc=0.95)
     base.update(kw)
     return BankModel(**base)
@@ -96,7 +96,7 @@ def test_absorption_tapers_to_tail_current_then_floats():
     # Trade practice (common practice): constant current, then constant voltage with the current
     # falling to the tail current, then float at a lower voltage with (almost) no current.
     n = 8 * 3600 // 10
-    bank = _bank(chemistry="lifepo4", peukert_k=1.0, absorption_V=14.2, float_V=13.5, tail_current_A=4.0,
+    bank = _bank(chemistry="lifepo4", peukert_k=1.0, absorption_V=14.2, float_V=13.5, absorption_end_current_A=4.0,
                  soc_cv=0.95)
     run = run_bank(bank, dt_s=10.0, source_A=np.full(n, 30.0), load_W=np.zeros(n), soc0=0.8)
     assert run.full_steps, "the bank never reached full"
@@ -341,6 +341,16 @@ def test_scenario_toml_files_have_no_unknown_keys():
         text = (REPO / "collector" / "scenarios" / f"{name}.scenario.toml").read_text()
         assert "scenario" in tomllib.loads(text)
         load_scenario(name)  # validates both files; unknown keys would raise
+
+
+def test_old_scenario_key_is_an_error_naming_the_new_one():
+    from collector.sim_scenario import ScenarioError, parse_scenario
+
+    text = (REPO / "collector" / "scenarios" / "autumn-van.scenario.toml").read_text()
+    old = text.replace("absorption_end_current_pct =", "tail_current_pct =")
+    with pytest.raises(ScenarioError, match=r"battery\.tail_current_pct: this key is now called "
+                                            r"absorption_end_current_pct"):
+        parse_scenario(old, source="autumn-van.scenario.toml")
 
 
 # --- The collector interface and the demo

@@ -145,7 +145,7 @@ def _parked_wet_spell(capacity_Ah: float, array_W: float, days: int):
 def test_recommended_set_survives_the_scenarios_wet_spell_in_its_own_physics(tmp_path, capsys):
     # Outside check of the recommendation: the scenario simulator's bank physics (collector/simulated.py,
     # written independently of the sizing code), parked from full through the scenario's overcast spell for
-    # the target days, never takes the recommended bank below its DoD floor.
+    # the target days, never takes the recommended bank below its reserve.
     from collector.simulated import simulate, to_canonical
     from collector.store import Store
 

@@ -273,7 +273,7 @@ def test_simulated_autonomy_of_the_pick_is_reproduced_by_the_bootstrap_directly(
     per_w = parked["charged_Ah_solar"].to_numpy() * 12.8 / 200
     horizon = r.autonomy["horizon_days"]
     idx = au.block_bootstrap_indices(len(cons), horizon, 500, seed=4)
-    d = au.days_to_floor(np.array([r.battery["capacity_Ah"] * 12.8 * 0.8]), np.array([r.autonomy["of"]["array_W"]]),
+    d = au.days_to_reserve(np.array([r.battery["capacity_Ah"] * 12.8 * 0.8]), np.array([r.autonomy["of"]["array_W"]]),
                          cons[idx], per_w[idx], charge_efficiency=0.99)[0]
     assert r.autonomy["days_p90"] == pytest.approx(np.quantile(d, 0.1))
 

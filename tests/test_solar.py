@@ -281,8 +281,8 @@ def test_sky_is_classified_from_the_curve_shape():
     assert analyse_solar(frame, system).days["sky"].tolist() == skies
 
 
-def test_lead_acid_bulk_charging_above_charged_voltage_is_not_saturation():
-    # 24 V lead-acid: 13.2 V x 2 is the charged threshold; at 27.0 V in bulk the array
+def test_lead_acid_bulk_charging_above_full_voltage_is_not_saturation():
+    # 24 V lead-acid: 13.2 V x 2 is the full voltage (2.20 V/cell, analysis.system); at 27.0 V in bulk the array
     # still delivers its full output, so nothing is throttled.
     system = make_system(chemistry="agm", nominal_V=24.0)
     frame, _ = synthetic_log(system, days=2, bank_V=27.0)

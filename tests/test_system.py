@@ -83,14 +83,58 @@ def test_invalid_toml_names_the_file():
 
 
 def test_chemistry_defaults_scale_with_bank_voltage():
-    # Common practice (FIELDREF §2): LFP charged threshold ~14.0 V per 12 V
-    # block; lead-acid ~13.2 V per 12 V block; tail 2-5 % of C.
+    # Sources beside CHEMISTRY_DEFAULTS: LFP 3.50 V/cell (3.45-3.55 V/cell end of charge,
+    # common practice) and 0.05 It (IEC 61960-3 standard charge, from memory); lead-acid
+    # 2.20 V/cell (at or below every float setting) and 2 % of C (1-3 % in common use).
     lfp24 = parse_system(DESIGN_EXAMPLE.replace("nominal_voltage_V = 12.8", "nominal_voltage_V = 25.6"))
-    assert lfp24.battery.effective_charged_voltage_V == pytest.approx(28.0)
+    assert lfp24.battery.effective_full_voltage_V == pytest.approx(8 * 3.50)
+    assert lfp24.battery.effective_full_current_A == pytest.approx(0.05 * 200)
     agm = parse_system(DESIGN_EXAMPLE.replace('"lifepo4"', '"agm"').replace("12.8", "24"))
-    assert agm.battery.effective_charged_voltage_V == pytest.approx(26.4)
+    assert agm.battery.effective_full_voltage_V == pytest.approx(12 * 2.20)
+    assert 0.01 * 200 <= agm.battery.effective_full_current_A <= 0.03 * 200
     assert agm.battery.effective_max_dod == 0.5
-    assert 0.02 * 200 <= lfp24.battery.effective_tail_current_A <= 0.05 * 200
+    assert agm.battery.reserve_pct == pytest.approx(50.0)
+    assert lfp24.battery.reserve_pct == pytest.approx(20.0)
+    assert agm.battery.full_hold_s == 120
+
+
+def test_every_chemistry_default_names_its_source():
+    # Each value in CHEMISTRY_DEFAULTS carries its source on its own line (issue 13).
+    import inspect
+
+    import analysis.system as system_module
+
+    src = inspect.getsource(system_module)
+    block = src[src.index("CHEMISTRY_DEFAULTS: dict"):src.index("FULL_HOLD_S_DEFAULT =")]
+    value_lines = [ln for ln in block.splitlines() if ln.strip().startswith('"') and ":" in ln
+                   and not ln.strip().endswith("{")]
+    assert len(value_lines) == 4 * 5
+    assert all("#" in ln and len(ln.split("#", 1)[1].strip()) > 10 for ln in value_lines)
+
+
+def test_full_charge_overrides_win_over_defaults():
+    text = DESIGN_EXAMPLE.replace("rated_hours = 20", "rated_hours = 20\nfull_voltage_V = 13.9\n"
+                                  "full_current_pct = 3\nfull_hold_s = 300")
+    b = parse_system(text).battery
+    assert b.effective_full_voltage_V == 13.9
+    assert b.effective_full_current_A == pytest.approx(6.0)  # 3 % of 200 Ah
+    assert b.full_hold_s == 300
+
+
+@pytest.mark.parametrize(("old", "new", "value"), [("charged_voltage_V", "full_voltage_V", "14.0"),
+                                                   ("tail_current_pct", "full_current_pct", "4"),
+                                                   ("detection_time_s", "full_hold_s", "120")])
+def test_old_full_charge_key_is_an_error_naming_the_new_key(old, new, value):
+    text = DESIGN_EXAMPLE.replace("rated_hours = 20", f"rated_hours = 20\n{old} = {value}")
+    with pytest.raises(SystemError_, match=rf"battery\.{old}: this key is now called {new}") as info:
+        parse_system(text, source="van/system.toml")
+    assert str(info.value).startswith("van/system.toml: invalid system description")
+
+
+def test_old_key_outside_the_battery_table_is_just_unknown():
+    text = DESIGN_EXAMPLE.replace("timezone = ", "tail_current_pct = 3\ntimezone = ")
+    with pytest.raises(SystemError_, match=r"site\.tail_current_pct: unknown key"):
+        parse_system(text)
 
 
 def test_overrides_win_over_chemistry_defaults():
@@ -98,3 +142,18 @@ def test_overrides_win_over_chemistry_defaults():
     b = parse_system(text).battery
     assert b.effective_peukert_k == 1.08
     assert b.effective_charge_efficiency == 0.97
+
+
+@pytest.mark.parametrize(("old", "new"), [("charged_voltage_V", "full_voltage_V"),
+                                          ("tail_current_pct", "full_current_pct"),
+                                          ("detection_time_s", "full_hold_s")])
+def test_cli_exits_2_naming_the_new_key(tmp_path, capsys, old, new):
+    from dashboard.cli import main
+
+    bad = tmp_path / "BAD.toml"
+    bad.write_text(DESIGN_EXAMPLE.replace("rated_hours = 20", f"rated_hours = 20\n{old} = 3"))
+    for command in (["status"], ["size", "--json"]):
+        code = main(["--store", str(tmp_path / "s.sqlite"), "--system", str(bad), *command])
+        err = capsys.readouterr().err
+        assert code == 2, command
+        assert f"battery.{old}: this key is now called {new}" in err and str(bad) in err

@@ -133,7 +133,8 @@ def describe(j: dict) -> list[str]:
     out.append("")
     if rt:
         out.append(f"runtime left (SoC now {_f(rt.get('soc_now_pct'), '.0f')} %, {_f(rt.get('usable_left_Ah'))} Ah "
-                   f"usable above the {100 * (1 - rt.get('max_dod', 0)):.0f} % floor, {rt.get('capacity_source')}):")
+                   f"usable above the {rt.get('reserve_pct', 100 * (1 - rt.get('max_dod', 0))):.0f} % reserve, "
+                   f"{rt.get('capacity_source')}):")
         if rt.get("hours_at_present_draw") is not None:
             out.append(f"  at this draw ({_f(-rt['present_draw_A'], '.2f')} A): {_f(rt['hours_at_present_draw'])} h")
         else:

@@ -112,7 +112,8 @@ def describe(j: dict) -> list[str]:
         lines.append(f"  Planned {pva['planned_Wh_per_day']:.0f} Wh/day vs measured mean "
                      f"{pva['actual_mean_Wh_per_day']:.0f} Wh/day ({_f(pva['difference_pct'], '+.0f')} %)")
     lines.append(f"Battery: {b['capacity_Ah']:.0f} Ah {b['chemistry']} at {b['nominal_voltage_V']:g} V "
-                 f"(now {b['present_Ah']:.0f} Ah); usable {b['usable_Wh']:.0f} Wh at {b['max_dod'] * 100:.0f} % DoD, "
+                 f"(now {b['present_Ah']:.0f} Ah); usable {b['usable_Wh']:.0f} Wh at {b['max_dod'] * 100:.0f} % DoD "
+                 f"(keeps a {100 * (1 - b['max_dod']):.0f} % reserve), "
                  f"temperature factor {b['temperature_factor']:.2f}")
     if not b["meets_target"]:
         lines.append(f"  {b['meets_target_why']}")
@@ -141,8 +142,8 @@ def describe(j: dict) -> list[str]:
 
     lines.append(f"Autonomy parked ({au['method']}): median {days(au['days_p50'])} days, "
                  f"{days(au[f'days_p{p:g}'])} days in {p:g} % of spells (target {au['target_days']:g}: "
-                 f"{'met' if au['meets_target'] else 'NOT met'}); chance of reaching the floor within the target "
-                 f"{au['chance_floor_within_target'] * 100:.0f} %")
+                 f"{'met' if au['meets_target'] else 'NOT met'}); chance of reaching the reserve within the target "
+                 f"{au['chance_reserve_within_target'] * 100:.0f} %")
     pa = pres["autonomy"]
     lines.append(f"  Present system ({pres['battery_Ah']:.0f} Ah, {pres['array_W']:.0f} W): median "
                  f"{days(pa['days_p50'])} days, {days(pa[f'days_p{p:g}'])} days in {p:g} % of spells"

@@ -1,4 +1,9 @@
-"""``drawdown status [--json]``: what the store holds, per channel its rows, first and last time."""
+"""``drawdown status [--json]``: what the store holds, per channel its rows, first and last time.
+
+It also checks the system description when there is one: a ``system.toml`` that
+does not validate (a typo, a renamed key) is reported here with its key and the
+command exits 2, rather than the first analysis failing later.
+"""
 
 from __future__ import annotations
 
@@ -10,7 +15,11 @@ from dashboard.context import Context, print_json
 def status_dict(ctx: Context) -> dict[str, Any]:
     """The status object (DESIGN.md ``status`` keys plus import totals); never creates a store."""
     out: dict[str, Any] = {"store": str(ctx.store_path), "exists": ctx.store_path.exists(), "channels": {},
-                           "imports": 0, "rows_stored": 0, "rows_rejected": 0, "quarantine": None}
+                           "imports": 0, "rows_stored": 0, "rows_rejected": 0, "quarantine": None,
+                           "system": None}
+    if ctx.has_system():
+        ctx.load_system()  # UsageError (exit 2) naming the file and the key when it does not validate
+        out["system"] = str(ctx.system_path)
     if not out["exists"]:
         return out
     store = ctx.open_store()
@@ -33,6 +42,8 @@ def run(args: Any, ctx: Context) -> int:
         print_json(st)
         return 0
     print(f"store: {st['store']}" + ("" if st["exists"] else " (not created yet: nothing imported)"))
+    print(f"system: {st['system']} (valid)" if st["system"] else
+          f"system: {ctx.system_path} (not written yet; see README 'Describe your system')")
     chans = st["channels"]
     if not chans:
         print("no readings stored yet; try 'drawdown import FILE' or 'drawdown demo'")

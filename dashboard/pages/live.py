@@ -78,14 +78,18 @@ def render_live(source: DataSource) -> tuple[Any, Any, Any, Any, Any]:
     ]
     if snap.temperature_C is not None:
         tiles.append(card("Battery temperature", fmt(snap.temperature_C, "°C", 1)))
-    floor = ""
+    # Runtimes count down to the reserve, the lowest planned state of charge (1 - max_dod).
+    to_reserve = f", down to the {snap.reserve_pct:.0f} % reserve" if snap.reserve_pct is not None else ""
     runtime = [
         card("Runtime left at this draw", _hours(snap.runtime_at_draw_h),
-             ("charging: not running down" if snap.draw_A is not None and snap.draw_A >= -0.05
-              else f"at {fmt(-snap.draw_A if snap.draw_A is not None else None, 'A', 1)} (5-minute mean)") + floor),
+             "charging: not running down" if snap.draw_A is not None and snap.draw_A >= -0.05
+             else f"at {fmt(-snap.draw_A if snap.draw_A is not None else None, 'A', 1)} (5-minute mean)"
+             + to_reserve),
         card("Runtime left at a typical day", fmt(snap.runtime_typical_days, "days", 1),
              f"typical day uses {fmt(snap.typical_day_Ah, 'Ah', 0)}" if snap.typical_day_Ah else None),
-        card("Charge left above the usual floor", fmt(snap.remaining_Ah, "Ah", 0)),
+        card("Charge left above the reserve", fmt(snap.remaining_Ah, "Ah", 0),
+             f"reserve: {snap.reserve_pct:.0f} % state of charge (max_dod in system.toml)"
+             if snap.reserve_pct is not None else None),
     ]
     if snap.notes:
         runtime.append(html.Div(notice(list(snap.notes), kind="info"), className="card-wide"))

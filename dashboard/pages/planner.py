@@ -89,16 +89,19 @@ def render_plan(source: DataSource, autonomy_days: float | None, percentile: flo
     def now(value: Any, unit: str) -> str | None:
         return f"you have {fmt(value, unit, 0)}" if value is not None else None
 
+    # The reserve: the lowest planned state of charge, which the days parked count down to.
+    reserve = (f"keeps a {bat['reserve_pct']:.0f} % reserve" if bat.get("reserve_pct") is not None else None)
     design = js.get("design_load") or {}
     basis = (f"from {design.get('n_days')} logged day(s)" if design.get("n_days")
              else "from the planned loads in system.toml (no whole logged days)")
     cards = html.Div([
-        html.P(f"For {fmt(autonomy_days, '', 1)} days parked on {fmt(percentile, '', 0)} % of days, "
-               f"{basis}; days {rng[0]} to {rng[1]}.", className="hint"),
+        html.P(f"For {fmt(autonomy_days, '', 1)} days parked, down to the reserve, on "
+               f"{fmt(percentile, '', 0)} % of days, {basis}; days {rng[0]} to {rng[1]}.", className="hint"),
         html.Div([
             card("Battery", fmt(bat.get("capacity_Ah"), "Ah", 0),
                  " · ".join(x for x in (str(bat.get("chemistry") or ""),
-                                        now(bat.get("present_Ah", present_sys.get("battery_Ah")), "Ah")) if x) or None),
+                                        now(bat.get("present_Ah", present_sys.get("battery_Ah")), "Ah"),
+                                        reserve) if x) or None),
             card("Solar array", fmt(sol.get("array_W"), "W", 0),
                  sol.get("array_W_why") or now(sol.get("present_W", present_sys.get("array_W")), "W")),
             card("DC-DC charger", fmt(dcdc.get("current_A"), "A", 0),

@@ -30,6 +30,11 @@ chemistry = "lifepo4"          # lifepo4 | agm | gel | flooded
 nominal_voltage_V = 12.8
 rated_capacity_Ah = 200        # at rated_hours
 rated_hours = 20
+# Optional: the chemistry's defaults are used unless you set these.
+# full_voltage_V = 14.0        # full when charging holds the bank at least this...
+# full_current_pct = 5         # ...with the charge current at most this % of rated_capacity_Ah...
+# full_hold_s = 120            # ...for this long: SoC is then set to 100 %
+# max_dod = 0.8                # deepest planned discharge; the reserve is 1 - max_dod
 
 [[solar]]
 peak_power_W = 300
@@ -51,6 +56,8 @@ def layout(**_kwargs: Any) -> html.Div:
         html.H2("System description"),
         html.P(f"File: {source.system_path}" + ("" if text is not None else " (not written yet: an example "
                                                 "is shown; edit it and save)"), className="hint"),
+        html.P("Check shows the full-charge settings and the reserve in use, with the chemistry's defaults "
+               "for any you leave out.", className="hint"),
         dcc.Textarea(id=ids.SETUP_TEXT, value=text if text is not None else EXAMPLE_SYSTEM, className="toml",
                      spellCheck=False, rows=22),
         html.Div([html.Button("Check", id=ids.SETUP_VALIDATE, n_clicks=0, className="button"),
