@@ -36,6 +36,7 @@ import pandas as pd
 
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(ROOT / "fixtures"))
 
 from analysis.report import build_report  # noqa: E402
 from analysis.system import parse_system  # noqa: E402
@@ -126,7 +127,7 @@ def score(case: str, seed: int, layout: str, report: dict, truth: dict) -> Score
 
 
 def run_case(name: str, seed: int, days: int | None, tmp: Path, verbose: bool) -> list[Score]:
-    from fixtures.independent.family import make_case
+    from independent.family import make_case
 
     case = make_case(name, seed=seed, days=days, out_dir=tmp / f"{name}-{seed}")
     truth = case.truth if isinstance(case.truth, dict) else json.loads(Path(case.truth_json).read_text())
@@ -199,7 +200,7 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--days", type=int, default=None, help="days per log (default: each case's own)")
     ap.add_argument("-q", "--quiet", action="store_true", help="only the summary")
     args = ap.parse_args(argv)
-    from fixtures.independent import family
+    from independent import family
 
     seeds = args.seeds or {"tune": list(family.SEEDS_TUNE), "report": list(family.SEEDS_REPORT),
                            "all": list(family.SEEDS_TUNE) + list(family.SEEDS_REPORT)}[args.half]
