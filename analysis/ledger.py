@@ -385,17 +385,24 @@ def _balance(bat: Channel, v_b: np.ndarray, bat_gaps: np.ndarray, sources: dict[
     else:
         l_on_b = np.zeros(n)
     bad_iv = _bad_intervals(bad)
+    # With a load shunt too, the load is measured twice: directly, and as the balance. Their
+    # shunts' offsets are independent, so the mean of the two halves the error variance.
+    meas_ah = meas_wh = None
+    if load is not None:
+        meas_ah = _day_sum(bat.t_us, trapezoid_increments(bat.t_us, l_on_b, gaps=bad_iv, dt_h=bat.dt_h), bounds)
+        meas_wh = _day_sum(bat.t_us, trapezoid_increments(bat.t_us, l_on_b * v_b, gaps=bad_iv, dt_h=bat.dt_h),
+                           bounds)
     # 3. Persistent positive residual (measured load - gross load) = an unmeasured source ("other").
     l_on_b -= r
     other_day, other_wh = _other_source(bat, l_on_b, v_b, bad_iv, system, bounds)
     del l_on_b
     cols["charged_Ah_other"] += other_day
     cols["charged_Wh_other"] += other_wh
-    cols["consumed_Ah"] += _day_sum(bat.t_us, trapezoid_increments(bat.t_us, r, gaps=bad_iv, dt_h=bat.dt_h),
-                                    bounds) + other_day
+    bal_ah = _day_sum(bat.t_us, trapezoid_increments(bat.t_us, r, gaps=bad_iv, dt_h=bat.dt_h), bounds) + other_day
     r *= v_b  # in place: gross load power [W]
-    cols["consumed_Wh"] += _day_sum(bat.t_us, trapezoid_increments(bat.t_us, r, gaps=bad_iv, dt_h=bat.dt_h),
-                                    bounds) + other_wh
+    bal_wh = _day_sum(bat.t_us, trapezoid_increments(bat.t_us, r, gaps=bad_iv, dt_h=bat.dt_h), bounds) + other_wh
+    cols["consumed_Ah"] += bal_ah if meas_ah is None else 0.5 * (bal_ah + meas_ah)
+    cols["consumed_Wh"] += bal_wh if meas_wh is None else 0.5 * (bal_wh + meas_wh)
 
 
 def _other_source(bat: Channel, resid_A: np.ndarray, v_b: np.ndarray, bad_iv: np.ndarray, system: System,

@@ -85,6 +85,10 @@ REG_SPAN_V = 0.012
 #: Smallest always-on draw [A] that lets a full bank at rest be told from a charger's hold
 #: (below it the two look alike to a shunt with tens of mA of offset).
 REST_MIN_DRAW_A = 0.03
+#: Median voltage change over half an hour [V per 12 V block] below which a drawing bank at a
+#: charged voltage is relaxing at rest, not pinned by a charger (a hold's is 0 within a logger's
+#: 1 mV; a LiFePO4 bank resting after a charge falls some 2-10 mV per half hour for hours).
+REST_DECAY_V = 0.002
 #: Sunlit-hours step rate over the night step rate above which a day's steps are clouds.
 CLOUD_STEP_RATE_RATIO = 1.3
 
@@ -222,26 +226,41 @@ def _hidden_masks(net_f: np.ndarray, v_bin: np.ndarray, system: System, bin_s: f
               - pd.Series(v_f).rolling(REG_BINS, center=True, min_periods=3).min()).fillna(np.inf).to_numpy()
     regulated = (v_span <= REG_SPAN_V * blocks) & (v_f >= v_held) & (net_f > -HELD_A)
     hidden = held | regulated
-    if rest_draw_A >= REST_MIN_DRAW_A:
-        hidden &= ~_rest_runs(hidden, net_f, rest_draw_A)
-        held &= hidden
+    hidden &= ~_rest_runs(hidden, net_f, rest_draw_A, v_f, bins_per_30min=max(1, int(1800 / bin_s)), blocks=blocks)
+    held &= hidden
     # A few minutes of visible net current inside a hold (the charger answering a load
     # step a moment late) cannot be read on their own: the hold goes on through them.
     hidden |= _closing(hidden, 2 * max(1, int(HIDDEN_GAP_S / bin_s)) + 1)
     return held, hidden
 
 
-def _rest_runs(candidate: np.ndarray, net_f: np.ndarray, rest_draw_A: float) -> np.ndarray:
-    """Bins of the runs of ``candidate`` whose mean net current is nearer ``-rest_draw_A`` than 0.
+def _rest_runs(candidate: np.ndarray, net_f: np.ndarray, rest_draw_A: float, v_bin: np.ndarray | None = None,
+               *, bins_per_30min: int = 30, blocks: float = 1.0) -> np.ndarray:
+    """Bins of the runs of ``candidate`` that are a bank at rest, not a charger's hold.
 
     A charger holding or regulating the bank supplies the load itself (net ~ 0, or a
-    float current > 0); a bank at rest supplies its always-on load (net ~ -draw).
+    float current > 0) and pins the voltage at its set-point. A bank at rest supplies
+    its loads (net < 0: nearer ``-rest_draw_A`` than zero), and its voltage relaxes
+    downwards for hours after a charge (the polarisation decays). So a run is a rest
+    when its mean net current is nearer ``-rest_draw_A`` than zero, or when it draws
+    (mean net < 0) while its voltage keeps falling: the median change over half an hour
+    below :data:`REST_DECAY_V` per 12 V block (a hold's is zero; a robust, Theil-Sen-like
+    slope that a one-off step from absorption to float does not move).
     """
     out = np.zeros(len(candidate), dtype=bool)
     edge = np.diff(candidate.astype(np.int8), prepend=0, append=0)
+    k = max(1, bins_per_30min)
     for s, e in zip(np.flatnonzero(edge == 1), np.flatnonzero(edge == -1)):  # loop over runs (events)
-        if float(np.mean(net_f[s:e])) < -0.5 * rest_draw_A:
+        mean_net = float(np.mean(net_f[s:e]))
+        if rest_draw_A >= REST_MIN_DRAW_A and mean_net < -0.5 * rest_draw_A:
             out[s:e] = True
+        elif v_bin is not None and e - s > k:
+            # Bin by bin: where, over the surrounding hour, the bank draws and its voltage
+            # keeps falling (a run may hold a rest and a hold one after the other).
+            v = pd.Series(v_bin[s:e])
+            change = (v.shift(-k) - v).rolling(2 * k, center=True, min_periods=k // 2).median()
+            draw = pd.Series(net_f[s:e]).rolling(2 * k, center=True, min_periods=k // 2).mean()
+            out[s:e] = ((change < -REST_DECAY_V * blocks) & (draw < 0)).to_numpy()
     return out
 
 
@@ -404,7 +423,12 @@ def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: n
     p_day = np.bincount(day_of_bin[hid_read], weights=(profile * hrs)[hid_read], minlength=n_days)[:n_days]
     stray = (r_day > STRAY_RATIO * p_day + STRAY_AH) | (r_day < p_day / STRAY_RATIO - STRAY_AH)
     readable &= ~stray[day_of_bin]
-    typical = np.where(np.isfinite(profile), profile, np.maximum(pred, floor))
+    # An hour of the day never seen takes the mean of the hours that were seen (at least
+    # what the bank gave up then): harmonics fitted on the nights have no support in the
+    # day and run away there. The range of such hours is wide (below).
+    seen_mean = _seen_hour_mean(profile, hour)
+    typical = np.where(np.isfinite(profile), profile, np.maximum(seen_mean if np.isfinite(seen_mean) else pred,
+                                                                 floor))
     fall_use = ~observed & ~readable
     fallback = _hour_topped_up(load_obs, typical, hrs, t_mid, fall_use,
                                other_A=np.where(observed, load_obs, np.where(readable, recon, 0.0)))
@@ -502,6 +526,16 @@ _T975 = {1: 12.706, 2: 4.303, 3: 3.182, 4: 2.776, 5: 2.571, 6: 2.447, 7: 2.365, 
 def _t975(df: int) -> float:
     keys = [k for k in _T975 if k <= df]
     return _T975[max(keys)] if keys else _T975[1]
+
+
+def _seen_hour_mean(profile_A: np.ndarray, hour: np.ndarray) -> float:
+    """Mean over the hours of the day that have a typical load [A] (NaN when none has)."""
+    hr = np.clip(np.floor(hour).astype(np.int64), 0, 23)
+    ok = np.isfinite(profile_A)
+    if not ok.any():
+        return float("nan")
+    table = pd.Series(profile_A[ok]).groupby(hr[ok]).mean()
+    return float(table.mean())
 
 
 def _column_median(table: np.ndarray) -> np.ndarray:

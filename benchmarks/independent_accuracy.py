@@ -75,7 +75,7 @@ class Score:
 def analyse(csv: Path, system_text: str, tmp: Path) -> dict:
     """Import ``csv`` into a new store and build the report, as ``drawdown import`` + ``report`` do."""
     system = parse_system(system_text)
-    store_path = tmp / f"{csv.stem}.sqlite"
+    store_path = csv.parent / f"{csv.stem}.sqlite"  # one store per log (cases share tmp)
     store = Store(store_path)
     try:
         import_file(csv, store, nominal_voltage_V=system.battery.nominal_voltage_V, tz=system.site.timezone)
