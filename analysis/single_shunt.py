@@ -480,7 +480,11 @@ def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: n
     unseen_excess = np.bincount(d_bin, weights=np.where(unseen_hour, np.clip(load_a - np.maximum(base_level, load_obs),
                                                                              0.0, None) * hrs, 0.0),
                                 minlength=n_days)[:n_days]
-    fb_hi = np.maximum(fb_hi, fall_ah + unseen_excess)
+    # ... or, if more, as if every such hour ran like the heaviest typical hour that was seen.
+    top_A = float(np.nanmax(profile)) if np.isfinite(profile).any() else 0.0
+    heavy_extra = np.bincount(d_bin, weights=np.where(unseen_hour, np.clip(top_A - load_a, 0.0, None) * hrs, 0.0),
+                              minlength=n_days)[:n_days]
+    fb_hi = np.maximum(fb_hi, fall_ah + np.maximum(unseen_excess, heavy_extra))
     # Where only the sun can charge, no hidden hour carries more than the sun could give.
     sun_most = np.where(fall_use & finite & (hrs > 0), np.maximum(load_most, load_obs), 0.0)
     with np.errstate(invalid="ignore"):  # an uncapped bin (inf) over zero hours counts nothing
