@@ -49,8 +49,9 @@ HIDDEN_NOTE_H: float = 1.0
 def hidden_load_note(hours: float) -> str:
     """What a day with inferred load hours says, in every face (report text, Trip page, HTML)."""
     return (f"the load was not seen for {hours:.1f} h of this day (one shunt cannot see it while a source "
-            "charges): it was estimated, and the day's use lies in its 95 % range; logging the charge "
-            "sources on their own (a second shunt, or the solar controller's output) removes the doubt")
+            "charges): it was estimated, with a 95 % range that can still miss on a day unlike the others; "
+            "logging the charge sources on their own (a second shunt, or the solar controller's output) "
+            "removes the doubt")
 
 
 #: Points kept in the downsampled SoC series for plots.
