@@ -8,7 +8,9 @@
    and state of health with a 95 % interval (analysis.capacity); the SoC is
    then re-run against the usable capacity;
 4. the daily ledger (analysis.ledger), internal resistance per day, runtime left;
-5. the solar section from analysis.solar when that module is present.
+5. the solar section (analysis.solar) and the charging diagnostics (analysis.charging).
+
+The :class:`Report` keeps the typed results beside the JSON sections.
 
 Everything that cannot be estimated is ``None`` with a sibling ``*_why``.
 """
@@ -34,9 +36,11 @@ from analysis.capacity import (
     internal_resistance,
 )
 from analysis.charge import SocResult, state_of_charge
+from analysis.charging import ChargingAnalysis, analyse_charging
 from analysis.ledger import SOURCES, LedgerResult, compute_ledger
 from analysis.readings import US_PER_S, split_channels
 from analysis.runtime import RuntimeEstimate, runtime_left
+from analysis.solar import SolarAnalysis, analyse_solar
 from analysis.json_values import rounded
 from analysis.system import System
 
@@ -65,7 +69,12 @@ def _r(x: Any, nd: int = 3) -> Any:
 
 @dataclass(frozen=True)
 class Report:
-    """The report: contract sections plus extras; ``soc`` and ``ledger`` for the dashboard."""
+    """The report: contract sections plus extras, and the typed results they were made from.
+
+    ``to_json()`` is the one place the JSON is made; ``soc``, ``ledger`` and the typed
+    fields (capacity with its anchor pairs, Peukert, resistance, runtime, the ledger,
+    solar and charging analyses) are what the dashboard and the HTML report draw.
+    """
 
     period: dict
     data_quality: dict
@@ -77,7 +86,14 @@ class Report:
     ledger: pd.DataFrame | None = field(default=None, repr=False)
     resistance_per_day: pd.DataFrame | None = field(default=None, repr=False)
     #: analysis.solar.SolarAnalysis behind ``solar`` (its plot series), or None.
-    solar_analysis: Any = field(default=None, repr=False, compare=False)
+    solar_analysis: SolarAnalysis | None = field(default=None, repr=False, compare=False)
+    # The typed results behind the JSON sections: every face renders these (no look-up by name).
+    capacity: CapacityEstimate | None = field(default=None, repr=False, compare=False)
+    peukert: PeukertEstimate | None = field(default=None, repr=False, compare=False)
+    resistance: ResistanceEstimate | None = field(default=None, repr=False, compare=False)
+    runtime: RuntimeEstimate | None = field(default=None, repr=False, compare=False)
+    ledger_result: LedgerResult | None = field(default=None, repr=False, compare=False)
+    charging: ChargingAnalysis | None = field(default=None, repr=False, compare=False)
 
     def to_json(self) -> dict:
         """The report JSON object (DESIGN.md keys first, then extras)."""
@@ -123,15 +139,11 @@ def _iso_us(t: int) -> str:
 
 
 def _solar_section(readings: pd.DataFrame, system: System, solar_current: pd.Series | None
-                   ) -> tuple[dict, Any]:
+                   ) -> tuple[dict, SolarAnalysis | None]:
     """The report's ``solar`` object and the analysis behind it (None when it could not run)."""
     try:
-        from analysis.solar import analyse_solar  # another module; optional
-    except ImportError:
-        return {"performance_ratio": None, "performance_ratio_why": "solar analysis not available", "days": []}, None
-    try:
         res = analyse_solar(readings, system, solar_current_A=solar_current)
-        out = res.to_json() if hasattr(res, "to_json") else dict(res)
+        out = res.to_json()
     except Exception as exc:  # noqa: BLE001 - one section must not sink the whole report
         return ({"performance_ratio": None, "performance_ratio_why": f"solar analysis failed: {exc}", "days": []},
                 None)
@@ -215,7 +227,9 @@ def build_report(readings: pd.DataFrame, system: System, *, rows_rejected: int =
     solar, solar_analysis = _solar_section(readings, system,
                                            led.solar_current_A if "solar" not in channels else None)
     report = _assemble(channels, system, rows_rejected, soc, cap, peuk, led, ir, rt, solar, eta)
-    return _with_charging(replace(report, solar_analysis=solar_analysis), readings, system)
+    report = replace(report, solar_analysis=solar_analysis, capacity=cap, peukert=peuk, resistance=ir,
+                     runtime=rt, ledger_result=led)
+    return _with_charging(report, readings, system)
 
 
 def _with_charging(report: Report, readings: pd.DataFrame, system: System) -> Report:
@@ -224,11 +238,10 @@ def _with_charging(report: Report, readings: pd.DataFrame, system: System) -> Re
     Lithium charged below 0 degC is a safety finding (DESIGN.md): it goes to the
     report's top-level ``cautions`` as well as to ``charging.findings``.
     """
-    from analysis.charging import analyse_charging
-
-    charging = analyse_charging(readings, system).to_json()
+    analysis = analyse_charging(readings, system)
+    charging = analysis.to_json()
     cautions = [f for f in charging.get("findings", []) if "below 0 degC" in f or "below freezing" in f]
-    return replace(report, extras={**report.extras, "charging": charging, "cautions": cautions})
+    return replace(report, extras={**report.extras, "charging": charging, "cautions": cautions}, charging=analysis)
 
 
 #: A day whose lowest SoC is below this [%] says what that figure rests on.

@@ -56,6 +56,7 @@ from analysis import catalogue as _cat
 from analysis import design_method as _dm
 from analysis.cautions import build_cautions
 from analysis.charging import dc_dc_input_current_A
+from analysis.json_values import json_ready
 from analysis.system import System
 from analysis.wiring import RunSizing, size_run
 
@@ -117,6 +118,9 @@ DEFAULT_RUN_LENGTHS_M: dict[str, float] = {
 }
 #: Peak DC load on the distribution feeder when neither logs nor inventory say [A] (stated).
 DEFAULT_DISTRIBUTION_A: float = 30.0
+#: Month names for sentences (design month, months an array cannot cover).
+MONTH_NAMES: tuple[str, ...] = ("January", "February", "March", "April", "May", "June", "July", "August",
+                                "September", "October", "November", "December")
 #: The starter (vehicle) battery's nominal voltage [V] (stated assumption).
 STARTER_VOLTAGE_V: float = 12.0
 
@@ -372,12 +376,15 @@ class SizingResult:
     assumptions: dict
     cautions: list[str]
     notes: list[str]
+    #: Plain sentences that say what the answer means against the present system (analysis.answers).
+    verdict: list[str] = field(default_factory=list)
 
     def to_json(self) -> dict:
-        runs = []
-        for r in self.runs:
-            j = r.to_json()
-            runs.append(j)
+        """The ``size`` JSON object, floats rounded (3 decimals; small values 4 significant digits)."""
+        runs = [r.to_json() for r in self.runs]
+        return json_ready({"verdict": self.verdict, **self._sections(runs)})
+
+    def _sections(self, runs: list[dict]) -> dict:
         return {
             "battery": self.battery, "solar": self.solar, "dc_dc_charger": self.dc_dc_charger,
             "inverter": self.inverter, "autonomy": self.autonomy, "runs": runs,
@@ -570,11 +577,30 @@ def recommend(system: System, days: pd.DataFrame | None, *, autonomy_days: float
                    "design_month_psh_h": psh, "performance_ratio": pr, "performance_ratio_source": pr_source,
                    "months_of_use": use_months, "clear_sky_psh_by_month_h":
                    {int(m): float(x) for m, x in psh_month.items()}}
+    if arr_pick is None and months is None and psh > 0:
+        # No months of use known (no logs): size for the darkest month a mobile array can still
+        # refill, and say which months need the alternator or shore power instead.
+        coverable = [m for m in use_months if psh_month[m] > 0 and design_Wh / (psh_month[m] * pr)
+                     <= _cat.ARRAY_MAX_W]
+        if coverable:
+            uncovered = sorted(set(use_months) - set(coverable))
+            design_month = int(min(coverable, key=lambda m: psh_month[m]))
+            psh = float(psh_month[design_month])
+            array_need = design_Wh / (psh * pr)
+            arr_pick = _cat.smallest_at_least(tuple(s for s in array_sizes if s >= present_W), array_need)
+            solar.update({"required_W": array_need, "design_month": design_month, "design_month_psh_h": psh,
+                          "months_not_covered": uncovered,
+                          "months_not_covered_why": (
+                              f"in {', '.join(MONTH_NAMES[m - 1] for m in uncovered)} no mobile array (up to "
+                              f"{_cat.ARRAY_MAX_W:.0f} W) refills the design day: rely on alternator or shore "
+                              "charge then")})
+            notes.append(f"no months of use known (no logs): the array is sized for {MONTH_NAMES[design_month - 1]}, "
+                         f"the darkest month it can cover; {solar['months_not_covered_why']}")
     if arr_pick is None:
         solar["array_W"] = None
         need_txt = (f"needs {array_need:.0f} W, beyond a {_cat.ARRAY_MAX_W:.0f} W mobile array"
                     if math.isfinite(array_need) else "cannot be done by any array (polar night)")
-        solar["array_W_why"] = (f"refilling {design_Wh:.0f} Wh in month {design_month} "
+        solar["array_W_why"] = (f"refilling {design_Wh:.0f} Wh in {MONTH_NAMES[design_month - 1]} "
                                 f"({psh:.2f} clear-sky sun hours) {need_txt}: rely on alternator or shore "
                                 "charge in that month, or size for the months you use the system")
         rec_array = present_W
@@ -670,9 +696,15 @@ def recommend(system: System, days: pd.DataFrame | None, *, autonomy_days: float
     s_sims = simulate(su, np.full(len(step_caps), rec_array))
     steps["battery"] = _with_gains([_step(f"{c:.0f} Ah", c, rec_array, summary(r))
                                     for c, r in zip(step_caps, s_sims)])
-    arr_steps = np.array(sorted({present_W, *(s for s in array_sizes if s >= present_W)}))[:8]
-    a_sims = simulate(np.repeat(rec_usable, len(arr_steps)), arr_steps)
-    steps["array"] = _with_gains([_step(f"{a:.0f} W", cap_pick, a, summary(r)) for a, r in zip(arr_steps, a_sims)])
+    if sim is None:
+        steps["array"] = []
+        steps["array_why"] = ("no logs: the days parked count days with no charge at all, so a larger array does "
+                              "not change them (it refills the bank between spells)")
+    else:
+        arr_steps = np.array(sorted({present_W, *(s for s in array_sizes if s >= present_W)}))[:8]
+        a_sims = simulate(np.repeat(rec_usable, len(arr_steps)), arr_steps)
+        steps["array"] = _with_gains([_step(f"{a:.0f} W", cap_pick, a, summary(r))
+                                      for a, r in zip(arr_steps, a_sims)])
     full_sims = simulate(usable, np.full(len(caps), rec_array))
     ok_rec = one_day_ok & np.array([summary(r).meets_target for r in full_sims])
     if ok_rec.any():
@@ -866,6 +898,14 @@ def _explain_difference(ratio_b: float | None, ratio_a: float | None, sim, desig
         out.append(f"array differs by x{ratio_a:.2f}: the method divides by wire, battery, controller and module "
                    f"losses (and 1.2 oversize) on clear-sky sun hours; the data-driven figure uses the "
                    f"performance ratio {pr:g} instead, and never goes below the present array")
+    if ratio_a is None:
+        out.append("array: no comparison, the data-driven answer sized no array (see the solar section)")
+    elif 0.7 <= ratio_a <= 1.43 and ratio_b is not None and not 0.7 <= ratio_b <= 1.43:
+        out.append(f"array: the two answers agree within a factor of 0.7-1.43 (x{ratio_a:.2f})")
+    if ratio_b is None:
+        out.append("battery: no comparison, one of the two answers has no battery size")
+    elif 0.7 <= ratio_b <= 1.43 and (ratio_a is None or not 0.7 <= ratio_a <= 1.43):
+        out.append(f"battery: the two answers agree within a factor of 0.7-1.43 (x{ratio_b:.2f})")
     if not out:
         out.append("the data-driven and method answers agree within a factor of 0.7-1.43")
     return out

@@ -25,7 +25,6 @@ import base64
 import binascii
 import dataclasses
 import functools
-import importlib
 import json
 import logging
 import math
@@ -33,7 +32,6 @@ import os
 import re
 import tempfile
 import threading
-from types import SimpleNamespace
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 from pathlib import Path
@@ -42,6 +40,14 @@ from typing import Any, Generic, TypeVar
 import numpy as np
 import pandas as pd
 
+from analysis.sizing import SizingInputError
+from analysis.charge import coulomb_count_Ah
+from analysis.answers import pair_ci95_Ah, size_with, sizing_inputs
+from analysis.ledger import compute_ledger
+from analysis.readings import split_channels
+from analysis.report import Report, build_report
+from analysis.runtime import runtime_left
+from analysis.solar import analyse_solar
 from analysis.system import System, SystemError_, parse_system
 from dashboard import figures
 
@@ -62,6 +68,8 @@ HEALTH_DAYS = 120
 LIVE_WINDOW = pd.Timedelta(hours=1)
 #: The present draw is the mean battery current over this window (one sample is too noisy).
 DRAW_WINDOW = pd.Timedelta(minutes=5)
+#: A newest reading older than this is not "now": the live view says it shows the last known state.
+STALE_AFTER = pd.Timedelta(minutes=15)
 #: The "typical day" of the live view is the median of complete days in this window before the newest reading.
 TYPICAL_DAYS = pd.Timedelta(days=14)
 
@@ -90,18 +98,6 @@ class Section(Generic[T]):
     @property
     def ok(self) -> bool:
         return self.value is not None
-
-
-def _optional(module: str, name: str) -> tuple[Callable[..., Any] | None, str | None]:
-    """``module.name`` if it can be imported, else (None, a reason the page can show)."""
-    try:
-        mod = importlib.import_module(module)
-    except ImportError as exc:
-        return None, f"not available yet ({module} is not installed: {exc.name or exc})"
-    fn = getattr(mod, name, None)
-    if fn is None:
-        return None, f"not available yet ({module}.{name} does not exist yet)"
-    return fn, None
 
 
 def _to_json(obj: Any) -> dict[str, Any]:
@@ -180,9 +176,6 @@ def _open_store(path: str):
 @_single_flight(maxsize=8)
 def _report_cached(store_path: str, key: tuple, start_iso: str, end_iso: str, system_text: str
                    ) -> tuple[Any, str | None]:
-    build_report, why = _optional("analysis.report", "build_report")
-    if build_report is None:
-        return None, f"Analysis {why}."
     system = parse_system(system_text)
     with _open_store(store_path) as store:
         readings = store.read(start_iso, end_iso)
@@ -203,20 +196,8 @@ def _ledger_cached(store_path: str, key: tuple, start_iso: str, end_iso: str, sy
                    ) -> tuple[Any, str | None]:
     """The daily ledger (analysis.ledger.LedgerResult): the report's own, else computed directly."""
     report, _why = _report_cached(store_path, key, start_iso, end_iso, system_text)
-    if report is not None:
-        part = _find_part(report, "LedgerResult", "ledger", "ledger_result")
-        if part is not None:
-            return part, None
-        if isinstance(getattr(report, "ledger", None), pd.DataFrame):
-            # analysis.report keeps the ledger's day frame; its gaps and mode are in the JSON.
-            js = _to_json(report)
-            gaps = tuple(SimpleNamespace(**g) for g in js.get("data_quality", {}).get("gaps") or [])
-            return SimpleNamespace(days=report.ledger, soc=None, gaps=gaps,
-                                   mode=(js.get("attribution") or {}).get("mode"), notes=()), None
-    compute_ledger, why = _optional("analysis.ledger", "compute_ledger")
-    split_channels, why2 = _optional("analysis.readings", "split_channels")
-    if compute_ledger is None or split_channels is None:
-        return None, f"The daily ledger is {why or why2}."
+    if report is not None and report.ledger_result is not None:
+        return report.ledger_result, None
     system = parse_system(system_text)
     with _open_store(store_path) as store:
         readings = store.read(start_iso, end_iso)
@@ -232,9 +213,6 @@ def _ledger_cached(store_path: str, key: tuple, start_iso: str, end_iso: str, sy
 @_single_flight(maxsize=8)
 def _solar_cached(store_path: str, key: tuple, start_iso: str, end_iso: str, system_text: str
                   ) -> tuple[Any, str | None]:
-    analyse_solar, why = _optional("analysis.solar", "analyse_solar")
-    if analyse_solar is None:
-        return None, f"Solar analysis {why}."
     system = parse_system(system_text)
     if not system.solar:
         return None, "The system description lists no solar array ([[solar]] in system.toml)."
@@ -249,20 +227,31 @@ def _solar_cached(store_path: str, key: tuple, start_iso: str, end_iso: str, sys
         return None, f"The solar analysis could not run on this range: {exc}"
 
 
+@_single_flight(maxsize=8)
+def _sizing_inputs_cached(store_path: str, key: tuple, start_iso: str, end_iso: str, system_text: str
+                          ) -> tuple[Any, str | None]:
+    """The sizing's measured inputs of a range (:func:`analysis.answers.sizing_inputs`, as ``drawdown size``)."""
+    system = parse_system(system_text)
+    with _open_store(store_path) as store:
+        readings = store.read(start_iso, end_iso)
+    try:
+        return sizing_inputs(readings, system), None
+    except Exception as exc:  # noqa: BLE001 - a page shows the reason instead of an error
+        log.exception("sizing_inputs failed")
+        return None, f"The sizing inputs could not be measured on this range: {exc}"
+
+
 @_single_flight(maxsize=32)
 def _sizing_cached(store_path: str, key: tuple, start_iso: str, end_iso: str, system_text: str,
                    autonomy_days: float, percentile: float) -> tuple[Any, str | None]:
-    recommend, why = _optional("analysis.sizing", "recommend")
-    if recommend is None:
-        return None, f"Sizing {why}."
-    system = parse_system(system_text)
-    report, _rwhy = _report_cached(store_path, key, start_iso, end_iso, system_text)
-    ledger, _lwhy = _ledger_cached(store_path, key, start_iso, end_iso, system_text)
-    days = getattr(ledger, "days", None)
-    pr = _finite(_to_json(report).get("solar", {}).get("performance_ratio")) if report is not None else None
+    """The sizing answer: the same :func:`analysis.answers.size_with` call as ``drawdown size``."""
+    inputs, why = _sizing_inputs_cached(store_path, key, start_iso, end_iso, system_text)
+    if inputs is None:
+        return None, why
     try:
-        result = recommend(system, days if days is not None else pd.DataFrame(),
-                           autonomy_days=autonomy_days, percentile=percentile, performance_ratio=pr)
+        result = size_with(inputs, parse_system(system_text), autonomy_days=autonomy_days, percentile=percentile)
+    except SizingInputError as exc:
+        return None, f"The sizing needs more input: {exc}"
     except Exception as exc:  # noqa: BLE001
         log.exception("recommend failed")
         return None, f"The sizing could not run: {exc}"
@@ -326,8 +315,8 @@ def _usual_draw_cached(store_path: str, key: tuple, start_iso: str, end_iso: str
 
 def clear_caches() -> None:
     """Forget every cached result (tests; after writing system.toml)."""
-    for fn in (_report_cached, _ledger_cached, _solar_cached, _sizing_cached, _screen_series_cached,
-               _usual_draw_cached):
+    for fn in (_report_cached, _ledger_cached, _solar_cached, _sizing_inputs_cached, _sizing_cached,
+               _screen_series_cached, _usual_draw_cached):
         fn.cache_clear()
 
 
@@ -384,35 +373,10 @@ def _report_days(report: Any) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=_DAY_COLUMNS)
 
 
-def _soc_of(report: Any) -> tuple[pd.Series | None, list[pd.Timestamp]]:
-    """The report's SoC series [%] and its full-charge resync times, whatever shape it has."""
-    soc = getattr(report, "soc", None)
-    resync: list[pd.Timestamp] = []
-    if soc is not None and hasattr(soc, "soc_pct") and not isinstance(soc, pd.Series):  # analysis.charge.SocResult
-        resync = list(getattr(soc, "resync_times", []) or [])
-        soc = soc.soc_pct
-    for name in ("resync_times", "resyncs"):
-        if not resync and getattr(report, name, None) is not None:
-            resync = list(getattr(report, name))
-    if not resync and hasattr(report, "to_json"):
-        resync = list(_to_json(report).get("resyncs") or [])
-    if soc is not None and not isinstance(soc, pd.Series):
-        soc = None
-    return soc, [pd.Timestamp(t) for t in resync]
-
-
-def _find_part(report: Any, class_name: str, *attr_names: str) -> Any:
-    """The report's sub-result of a given class (by name), looked up by attribute, tolerant of naming."""
-    for name in attr_names:
-        obj = getattr(report, name, None)
-        if obj is not None and type(obj).__name__ == class_name:
-            return obj
-    fields = getattr(report, "__dataclass_fields__", None) or getattr(report, "__dict__", {})
-    for name in fields:
-        obj = getattr(report, name, None)
-        if type(obj).__name__ == class_name:
-            return obj
-    return None
+def _soc_of(report: Report) -> tuple[pd.Series | None, list[pd.Timestamp]]:
+    """The report's SoC series [%] and its full-charge resync times."""
+    resync = list(report.extras.get("resyncs") or [])
+    return report.soc, [pd.Timestamp(t) for t in resync]
 
 
 @dataclass(frozen=True)
@@ -422,7 +386,8 @@ class Health:
     Attributes
     ----------
     battery : the report's ``battery`` JSON (DESIGN.md keys, plus ``..._why`` reasons)
-    capacity_points : per anchor pair: t (end, UTC), usable_Ah, lo_Ah, hi_Ah, delta_soc_pct
+    capacity_points : per anchor pair: t and start (local), usable_Ah, lo_Ah, hi_Ah (its 95 % interval),
+        delta_soc_pct, mean_discharge_A, start_kind, end_kind
     resistance_points : per day: t (local date), resistance_ohm, steps
     resistance_trend_ohm_per_30d : linear trend, None when too few days
     peukert_points : (current_A, runtime_h) pairs used in the fit
@@ -438,49 +403,33 @@ class Health:
     peukert_source: str | None
     rated_Ah: float
     rated_hours: float
+    tz: str = "UTC"
 
 
-def _health_of(report: Any, system: System) -> Health:
-    battery = dict(_to_json(report).get("battery") or {})
-    cap = _find_part(report, "CapacityEstimate", "capacity")
+def _health_of(report: Report, system: System) -> Health:
+    """The health page's pieces from the report's typed capacity, Peukert and resistance results."""
+    battery = dict(report.battery)
+    cap, pk, res = report.capacity, report.peukert, report.resistance
+    tz = system.site.timezone
     rows = []
-    if cap is not None and getattr(cap, "pairs", ()):
-        for pair in cap.pairs:  # a loop over discharges (a handful), not over readings
-            q = float(pair.capacity_Ah)
-            # 95 % interval of one pair: y/x with relative errors added in quadrature (FIELDREF §3).
-            rel = math.hypot(pair.sigma_y / max(abs(pair.ah_moved), 1e-9),
-                             pair.sigma_x / max(abs(pair.delta_soc), 1e-9))
-            rows.append({"t": pair.end.time, "usable_Ah": q, "lo_Ah": q * (1 - 1.96 * rel),
-                         "hi_Ah": q * (1 + 1.96 * rel), "delta_soc_pct": 100 * abs(pair.delta_soc),
-                         "mean_discharge_A": float(pair.mean_discharge_A)})
-    else:
-        for pair in battery.get("anchor_pairs") or []:  # analysis.report's JSON form (no per-pair sigma)
-            rows.append({"t": pd.Timestamp(pair["end"]), "usable_Ah": _finite(pair.get("capacity_Ah")),
-                         "delta_soc_pct": abs(_finite(pair.get("delta_soc_pct")) or 0.0),
-                         "mean_discharge_A": _finite(pair.get("mean_discharge_A"))})
-    pts = pd.DataFrame(rows, columns=["t", "usable_Ah", "lo_Ah", "hi_Ah", "delta_soc_pct", "mean_discharge_A"])
-    if len(pts) and pts["lo_Ah"].isna().all():
-        pts = pts.drop(columns=["lo_Ah", "hi_Ah"])
-    res = _find_part(report, "ResistanceEstimate", "resistance", "internal_resistance")
-    per_day = getattr(res, "per_day", None) if res is not None else getattr(report, "resistance_per_day", None)
-    if per_day is None or not len(per_day):
-        per_day = pd.DataFrame(battery.get("internal_resistance_days") or [], columns=["date", "ohm", "steps"])
+    for pair in cap.pairs if cap is not None else ():  # a loop over discharges (a handful), not over readings
+        lo, hi = pair_ci95_Ah(pair)
+        rows.append({"t": pd.Timestamp(pair.end.time).tz_convert(tz), "start": pd.Timestamp(pair.start.time).tz_convert(tz),
+                     "usable_Ah": float(pair.capacity_Ah), "lo_Ah": lo, "hi_Ah": hi,
+                     "delta_soc_pct": 100 * abs(pair.delta_soc), "mean_discharge_A": float(pair.mean_discharge_A),
+                     "start_kind": pair.start.kind, "end_kind": pair.end.kind})
+    pts = pd.DataFrame(rows, columns=["t", "start", "usable_Ah", "lo_Ah", "hi_Ah", "delta_soc_pct",
+                                      "mean_discharge_A", "start_kind", "end_kind"])
+    per_day = res.per_day if res is not None and len(res.per_day) else pd.DataFrame(columns=["date", "ohm", "steps"])
     rpts = pd.DataFrame({"t": pd.to_datetime(per_day["date"]), "resistance_ohm": per_day["ohm"].astype(float),
                          "steps": per_day["steps"] if "steps" in per_day else np.nan})
-    trend = _finite(getattr(res, "trend_ohm_per_30d", None)) if res is not None else \
-        _finite(battery.get("internal_resistance_trend_ohm_per_30d"))
-    pk = _find_part(report, "PeukertEstimate", "peukert")
-    if pk is not None and getattr(pk, "points", ()):
-        peukert_points = tuple(pk.points)
-    else:
-        # Each discharge between two anchors: capacity Q at mean current I -> runtime to empty t = Q / I.
-        ok = pts.dropna(subset=["usable_Ah", "mean_discharge_A"])
-        ok = ok[ok["mean_discharge_A"] > 0]
-        peukert_points = tuple(zip(ok["mean_discharge_A"], ok["usable_Ah"] / ok["mean_discharge_A"]))
+    trend = _finite(res.trend_ohm_per_30d) if res is not None else None
+    # Only the discharges the Peukert fit used are "your discharges": a chemistry default has none.
+    peukert_points = tuple(pk.points) if pk is not None and pk.source == "fitted" else ()
     return Health(battery=battery, capacity_points=pts, resistance_points=rpts,
                   resistance_trend_ohm_per_30d=trend, peukert_points=peukert_points,
-                  peukert_source=getattr(pk, "source", None) or battery.get("peukert_k_source"),
-                  rated_Ah=system.battery.rated_capacity_Ah, rated_hours=system.battery.rated_hours)
+                  peukert_source=pk.source if pk is not None else battery.get("peukert_k_source"),
+                  rated_Ah=system.battery.rated_capacity_Ah, rated_hours=system.battery.rated_hours, tz=tz)
 
 
 @dataclass(frozen=True)
@@ -503,6 +452,11 @@ class LiveSnapshot:
     readings : the last hour, canonical long frame
     low_voltage_V : the alarm level used [V]
     reserve_pct : the reserve, the lowest planned state of charge (1 - max_dod) [%]
+    runtime_no_charging_days : days to the reserve at the typical day's use with no charging at all
+    runtime_typical_days : (above) days to the reserve when the typical day's charging also continues
+    typical_day_charged_Ah : median charge of the recent complete days [Ah]
+    age : how old the newest reading is
+    stale : the newest reading is older than :data:`STALE_AFTER`: not live, the last known state
     """
 
     t: pd.Timestamp | None
@@ -522,6 +476,10 @@ class LiveSnapshot:
     readings: pd.DataFrame
     low_voltage_V: float | None
     reserve_pct: float | None = None
+    runtime_no_charging_days: float | None = None
+    typical_day_charged_Ah: float | None = None
+    age: pd.Timedelta | None = None
+    stale: bool = False
 
 
 def full_charge_summary(system: System) -> str:
@@ -772,14 +730,26 @@ class DataSource:
         if isinstance(k, Section):
             return k
         report, _why = _report_cached(*k)
-        if report is not None:
-            part = _find_part(report, "SolarAnalysis", "solar")
-            if part is not None:
-                return Section(part)
+        if report is not None and report.solar_analysis is not None:
+            return Section(report.solar_analysis)
         value, why = _solar_cached(*k)
         return Section(value, why)
 
-    def sizing(self, start_date: str, end_date: str, *, autonomy_days: float, percentile: float) -> Section[Any]:
+    def sizing(self, start_date: str | None = None, end_date: str | None = None, *, autonomy_days: float,
+               percentile: float) -> Section[Any]:
+        """The sizing answer of a range (:func:`analysis.answers.size_with`, as ``drawdown size``; cached).
+
+        Without a range (nothing stored) it sizes from the ``[[load]]`` inventory alone.
+        """
+        if start_date is None or end_date is None:
+            sys_s = self.system()
+            if not sys_s.ok:
+                return Section(why=sys_s.why)
+            try:
+                return Section(size_with(sizing_inputs(None, sys_s.value), sys_s.value,
+                                         autonomy_days=float(autonomy_days), percentile=float(percentile)))
+            except SizingInputError as exc:
+                return Section(why=f"The sizing needs more input: {exc}")
         k = self._keyed(start_date, end_date)
         if isinstance(k, Section):
             return k
@@ -808,8 +778,12 @@ class DataSource:
         return _screen_series_cached(str(self.store_path), key, channel, tuple(quantities), s, e, int(n_out))
 
     # -- live view ------------------------------------------------------------------------
-    def live(self) -> LiveSnapshot:
-        """The newest stored readings and what they mean (see :class:`LiveSnapshot`)."""
+    def live(self, *, now: Any = None) -> LiveSnapshot:
+        """The newest stored readings and what they mean (see :class:`LiveSnapshot`).
+
+        ``now`` (UTC; default the clock) decides whether the newest reading is
+        still live or :data:`STALE_AFTER` old and shown as the last known state.
+        """
         notes: list[str] = []
         empty = LiveSnapshot(None, None, None, None, None, None, "", None, None, None, None, None, (), (),
                              pd.DataFrame(), None)
@@ -859,8 +833,7 @@ class DataSource:
                 series = soc_s.value[0]
                 t_soc = series.index[-1]
                 since = bat[bat["t"] >= t_soc]
-                coulomb_count_Ah, _why = _optional("analysis.charge", "coulomb_count_Ah")
-                if coulomb_count_Ah is not None and t_soc >= t_last - LIVE_WINDOW - pd.Timedelta(hours=1):
+                if t_soc >= t_last - LIVE_WINDOW - pd.Timedelta(hours=1):
                     moved = coulomb_count_Ah(since["t"], since["current_A"].fillna(0.0).to_numpy()) \
                         if len(since) > 1 else 0.0
                     cap = usable or system.battery.rated_capacity_Ah
@@ -881,9 +854,8 @@ class DataSource:
         if soc is None and _finite(row["soc_pct"]) is not None:
             soc, soc_source = _finite(row["soc_pct"]), "the monitor's own figure"
 
-        remaining = runtime_h = runtime_days = None
-        runtime_left, rwhy = _optional("analysis.runtime", "runtime_left")
-        if system is not None and soc is not None and runtime_left is not None:
+        remaining = runtime_h = runtime_days = no_charge_days = typical_charged = None
+        if system is not None and soc is not None:
             # analysis.runtime: usable charge above the reserve (1 - max_dod); Peukert-corrected present draw.
             est = runtime_left(soc_now_pct=soc, last_hour_net_A=draw,
                                ledger_days=ledger_days if ledger_days is not None else pd.DataFrame(),
@@ -891,11 +863,11 @@ class DataSource:
                                peukert_k=peukert_k or system.battery.effective_peukert_k)
             remaining, runtime_h = _finite(est.usable_left_Ah), _finite(est.hours_at_present_draw)
             runtime_days = _finite(est.days_at_typical_day)
+            no_charge_days = _finite(est.days_without_charging)
             typical = _finite(est.typical_day_consumed_Ah) or typical
+            typical_charged = _finite(est.typical_day_charged_Ah)
             if runtime_days is None and est.days_why:
                 notes.append(f"Runtime at a typical day: {est.days_why}.")
-        elif runtime_left is None:
-            notes.append(f"Runtime left is {rwhy}.")
         alarms: list[str] = []
         if low_v is not None and v is not None and v < low_v:
             alarms.append(f"Low voltage: {v:.2f} V is below {low_v:.1f} V. Reduce the load or charge soon.")
@@ -905,9 +877,12 @@ class DataSource:
             if usual is not None and -draw > UNUSUAL_DRAW_FACTOR * usual and -draw > 1.0:
                 alarms.append(f"Unusual draw: {-draw:.1f} A is more than {UNUSUAL_DRAW_FACTOR:g}x the "
                               f"heaviest usual draw of the past week ({usual:.1f} A).")
+        age = (pd.Timestamp.now(tz="UTC") if now is None else pd.Timestamp(now)) - t_last
         return LiveSnapshot(t_last, v, i, p, draw, soc, soc_source, temp, remaining, runtime_h, typical,
                             runtime_days, tuple(alarms), tuple(notes), recent, low_v,
-                            system.battery.reserve_pct if system is not None else None)
+                            system.battery.reserve_pct if system is not None else None,
+                            runtime_no_charging_days=no_charge_days, typical_day_charged_Ah=typical_charged,
+                            age=age, stale=age > STALE_AFTER)
 
     # -- upload -----------------------------------------------------------------------------
     def import_upload(self, filename: str, contents: str) -> dict[str, Any]:
@@ -927,9 +902,8 @@ class DataSource:
             The file is written to a private temporary folder, parsed as data
             (never executed) and deleted.
         """
-        import_file, why = _optional("collector.csv_file", "import_file")
-        if import_file is None:
-            return {"ok": False, "error": f"Importing by upload is {why}."}
+        from collector.csv_file import import_file
+
         try:
             _header, payload = contents.split(",", 1)
             raw = base64.b64decode(payload, validate=True)

@@ -169,7 +169,7 @@ def _line(t: Any, y: Any, *, name: str, colour: str, n_out: int = SCREEN_POINTS,
 # -- live view ----------------------------------------------------------------------
 
 def live_figure(readings: pd.DataFrame, *, low_voltage_V: float | None = None,
-                tz: str = "UTC", n_out: int = SCREEN_POINTS) -> go.Figure:
+                tz: str = "UTC", n_out: int = SCREEN_POINTS, title: str | None = None) -> go.Figure:
     """The last hour: battery voltage on top, current of every channel below.
 
     Parameters
@@ -206,7 +206,9 @@ def live_figure(readings: pd.DataFrame, *, low_voltage_V: float | None = None,
         fig.add_trace(_line(t_local[mask].tz_localize(None), cur, name=str(name), colour=colour,
                             n_out=n_out), row=2, col=1)
     fig.add_hline(y=0, line={"color": PALETTE["muted"], "width": 0.8}, row=2, col=1)
-    _base_layout(fig, height=440)
+    _base_layout(fig, height=440 + (30 if title else 0), title=title)
+    if title:
+        fig.update_xaxes(title_text=f"local time ({tz})", row=2, col=1)
     fig.update_annotations(font_size=12)
     return fig
 
@@ -312,17 +314,25 @@ def readings_figure(series: Mapping[str, tuple[Any, Any]], *, tz: str = "UTC", t
 # -- battery health ---------------------------------------------------------------------
 
 def capacity_figure(estimates: pd.DataFrame | None, *, rated_Ah: float, overall_Ah: float | None = None,
-                    overall_ci95: Sequence[float] | None = None) -> go.Figure:
-    """Usable capacity estimates over time with their 95 % intervals [Ah].
+                    overall_ci95: Sequence[float] | None = None, tz: str | None = None) -> go.Figure:
+    """Usable capacity per discharge with its 95 % interval, the combined estimate and the rating [Ah].
 
     Parameters
     ----------
     estimates
-        Rows with ``t`` (or ``date``), ``usable_Ah`` and optionally ``lo_Ah``/``hi_Ah``.
+        Rows with ``t`` (end of the discharge; or ``date``), ``usable_Ah`` and optionally
+        ``lo_Ah``/``hi_Ah`` (its 95 % interval), ``start``, ``delta_soc_pct``, ``mean_discharge_A``.
     rated_Ah
         The bank's rated capacity, drawn as a reference line [Ah].
     overall_Ah, overall_ci95
-        The combined estimate and interval, drawn as a band when given.
+        The combined estimate and interval, drawn as a line and a band when given.
+    tz
+        The site's zone: times are shown in it (and named in the axis title).
+
+    Notes
+    -----
+    The reference lines are legend entries, not labels on the plot, so a label never
+    sits on a point; the time axis spans at least a week, with dates as ticks.
     """
     has_points = estimates is not None and len(estimates) > 0
     if not has_points and (overall_Ah is None or not np.isfinite(overall_Ah)):
@@ -330,25 +340,56 @@ def capacity_figure(estimates: pd.DataFrame | None, *, rated_Ah: float, overall_
                               "known states of charge (a full charge or a rested voltage).",
                               title="Usable capacity")
     fig = go.Figure()
+    x = None
     if has_points:
-        x = pd.to_datetime(estimates["t"] if "t" in estimates else estimates["date"])
+        x = pd.DatetimeIndex(pd.to_datetime(estimates["t"] if "t" in estimates else estimates["date"]))
+        if x.tz is not None:
+            x = x.tz_convert(tz or "UTC").tz_localize(None)
         err = None
-        if "lo_Ah" in estimates and "hi_Ah" in estimates:
+        if "lo_Ah" in estimates and "hi_Ah" in estimates and estimates["lo_Ah"].notna().any():
             err = {"type": "data", "symmetric": False,
                    "array": (estimates["hi_Ah"] - estimates["usable_Ah"]).to_numpy(dtype=float),
                    "arrayminus": (estimates["usable_Ah"] - estimates["lo_Ah"]).to_numpy(dtype=float),
                    "color": PALETTE["soc"]}
-        fig.add_trace(go.Scatter(x=x, y=estimates["usable_Ah"], mode="markers", name="per discharge",
-                                 error_y=err, marker={"color": PALETTE["soc"], "size": 8}))
+        hover = []
+        for r in estimates.itertuples(index=False):  # a loop over discharges (a handful)
+            lo, hi = getattr(r, "lo_Ah", None), getattr(r, "hi_Ah", None)
+            parts = [f"{r.usable_Ah:.0f} Ah"]
+            if lo is not None and hi is not None and np.isfinite(lo):
+                parts.append(f"95 % interval {lo:.0f}–{hi:.0f} Ah")
+            if getattr(r, "delta_soc_pct", None) is not None:
+                parts.append(f"over {r.delta_soc_pct:.0f} % of SoC")
+            if getattr(r, "mean_discharge_A", None) is not None:
+                parts.append(f"at {r.mean_discharge_A:.1f} A mean discharge")
+            hover.append("<br>".join(parts))
+        fig.add_trace(go.Scatter(x=x, y=estimates["usable_Ah"], mode="markers", name="one discharge (95 % interval)",
+                                 error_y=err, marker={"color": PALETTE["soc"], "size": 9}, text=hover,
+                                 hovertemplate="%{x|%d %b %Y %H:%M}<br>%{text}<extra></extra>"))
+    lo_x, hi_x = (x.min(), x.max()) if x is not None and len(x) else (None, None)
+    if lo_x is None:
+        lo_x = hi_x = pd.Timestamp.now(tz=tz or "UTC").tz_localize(None).normalize()
+    mid = lo_x + (hi_x - lo_x) / 2
+    half = max((hi_x - lo_x) / 2 + pd.Timedelta(days=1), pd.Timedelta(days=3.5))
+    span = [mid - half, mid + half]
     if overall_Ah is not None and np.isfinite(overall_Ah):
-        fig.add_hline(y=overall_Ah, line={"color": PALETTE["soc"], "width": 2},
-                      annotation_text=f"estimate {overall_Ah:.0f} Ah", annotation_position="top left")
         if overall_ci95 is not None and len(overall_ci95) == 2 and None not in overall_ci95:
-            fig.add_hrect(y0=overall_ci95[0], y1=overall_ci95[1], fillcolor=PALETTE["band"], line_width=0)
-    fig.add_hline(y=rated_Ah, line={"color": PALETTE["muted"], "dash": "dash", "width": 1},
-                  annotation_text=f"rated {rated_Ah:.0f} Ah", annotation_position="bottom right")
+            fig.add_trace(go.Scatter(x=[span[0], span[1], span[1], span[0]],
+                                     y=[overall_ci95[0], overall_ci95[0], overall_ci95[1], overall_ci95[1]],
+                                     fill="toself", fillcolor=PALETTE["band"], line={"width": 0}, mode="lines",
+                                     name="its 95 % interval", hoverinfo="skip"))
+        fig.add_trace(go.Scatter(x=span, y=[overall_Ah] * 2, mode="lines", line={"color": PALETTE["soc"], "width": 2},
+                                 name=f"estimate {overall_Ah:.0f} Ah", hoverinfo="skip"))
+    fig.add_trace(go.Scatter(x=span, y=[rated_Ah] * 2, mode="lines",
+                             line={"color": PALETTE["muted"], "dash": "dash", "width": 1},
+                             name=f"rated {rated_Ah:.0f} Ah", hoverinfo="skip"))
     fig.update_yaxes(title_text="usable capacity [Ah]", rangemode="tozero")
-    return _base_layout(fig, title="Usable capacity")
+    fig.update_xaxes(type="date", range=span, tickformat="%d %b", hoverformat="%d %b %Y %H:%M",
+                     title_text=f"end of the discharge ({tz})" if tz else None)
+    fig.update_layout(hovermode="closest")
+    fig = _base_layout(fig, title="Usable capacity")
+    if tz:
+        fig.update_layout(legend_y=-0.24, margin_b=84)
+    return fig
 
 
 def resistance_figure(points: pd.DataFrame | None, *, overall_ohm: float | None = None) -> go.Figure:
@@ -367,6 +408,18 @@ def resistance_figure(points: pd.DataFrame | None, *, overall_ohm: float | None 
                       annotation_text=f"{overall_ohm * 1e3:.1f} mΩ", annotation_position="top left")
     fig.update_yaxes(title_text="internal resistance [mΩ]", rangemode="tozero")
     return _base_layout(fig, title="Internal resistance")
+
+
+def _log_ticks(values: Any) -> dict[str, Any]:
+    """Tick values and labels at 1-2-5 steps covering ``values`` (a log axis)."""
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v) & (v > 0)]
+    if not v.size:
+        return {}
+    lo, hi = np.floor(np.log10(v.min())), np.ceil(np.log10(v.max()))
+    ticks = [m * 10.0 ** e for e in np.arange(lo, hi + 1) for m in (1, 2, 5)]
+    ticks = [t for t in ticks if v.min() / 1.01 <= t <= v.max() * 1.01]
+    return {"tickvals": ticks, "ticktext": [f"{t:g}" for t in ticks], "minor": {"showgrid": False}}
 
 
 def peukert_figure(current_A: Sequence[float] | None, hours: Sequence[float] | None, *, k: float | None,
@@ -395,12 +448,15 @@ def peukert_figure(current_A: Sequence[float] | None, hours: Sequence[float] | N
     fig.add_trace(go.Scatter(x=i, y=ideal, mode="lines", name="k = 1 (no rate loss)",
                              line={"color": PALETTE["expected"], "dash": "dash"}))
     if current_A is not None and hours is not None and len(current_A):
-        fig.add_trace(go.Scatter(x=list(current_A), y=list(hours), mode="markers", name="from your discharges",
+        fig.add_trace(go.Scatter(x=list(current_A), y=list(hours), mode="markers", name="your discharges (fit)",
                                  marker={"color": PALETTE["consumed"], "size": 8}))
-    fig.update_xaxes(type="log", title_text="discharge current [A]")
-    fig.update_yaxes(type="log", title_text="runtime to empty [h]")
+    # Labelled ticks at 1-2-5 steps only: plotly's own log ticks label every digit and collide on a phone.
+    fig.update_xaxes(type="log", title_text="discharge current [A]", **_log_ticks(i))
+    fig.update_yaxes(type="log", title_text="runtime to empty [h]", **_log_ticks(np.concatenate([t, ideal])))
     fig.update_layout(hovermode="closest")
-    fig = _base_layout(fig, title="Peukert fit")
+    fitted = current_A is not None and len(current_A) > 0
+    fig = _base_layout(fig, title="Peukert fit", subtitle=None if fitted else (
+        "no fit: the exponent is a default, no two discharges at different rates qualified"))
     # This plot has an x-axis title: move the legend clear of it.
     fig.update_layout(legend_y=-0.24, margin_b=84)
     return fig
@@ -476,25 +532,49 @@ def solar_power_figure(t: Any, measured_W: Any, expected_W: Any | None = None, *
 
 # -- upgrade planner ---------------------------------------------------------------------
 
-def autonomy_figure(present: Mapping[str, Any] | None, proposed: Mapping[str, Any] | None) -> go.Figure:
-    """Days of autonomy at the median and at the 90th-percentile day, present vs proposed."""
+def autonomy_figure(present: Mapping[str, Any] | None, proposed: Mapping[str, Any] | None, *,
+                    percentile: float = 90.0, horizon_days: float | None = None,
+                    no_charge: bool = False) -> go.Figure:
+    """Days parked from full to the reserve, at the median spell and at the design percentile: present vs proposed.
+
+    Parameters
+    ----------
+    present, proposed
+        Autonomy dicts with ``days_p50`` and ``days_p<percentile>`` [days].
+    percentile
+        The design percentile the planner was asked for (the second bar group).
+    horizon_days
+        The simulation's horizon: a bar at it reads "at least".
+    no_charge
+        True when the days count no charge at all (sizing without logs); else the
+        days count the array's solar, with no driving or hook-up.
+    """
     fig = go.Figure()
     rows = [("present", present, PALETTE["expected"]), ("proposed", proposed, PALETTE["soc"])]
+    key = f"days_p{percentile:g}"
     drawn = False
-    for label, values, colour in rows:
+
+    def label(v: float | None) -> str:
+        if v is None:
+            return "–"
+        return f"≥ {horizon_days:g} d" if horizon_days is not None and v >= horizon_days else f"{v:.1f} d"
+
+    for name, values, colour in rows:
         if not values:
             continue
-        y = [values.get("days_p50"), values.get("days_p90")]
+        y = [values.get("days_p50"), values.get(key, values.get("days_p90") if percentile == 90 else None)]
         if all(v is None for v in y):
             continue
         drawn = True
-        fig.add_trace(go.Bar(x=["typical day (p50)", "heavy day (p90)"], y=y, name=label, marker_color=colour,
-                             text=[f"{v:.1f} d" if v is not None else "n/a" for v in y], textposition="outside"))
+        fig.add_trace(go.Bar(x=["median spell", f"{percentile:g} % of spells"], y=y, name=name, marker_color=colour,
+                             text=[label(v) for v in y], textposition="outside", cliponaxis=False))
     if not drawn:
-        return message_figure("No autonomy figures.", title="Days of autonomy")
+        return message_figure("No autonomy figures.", title="Days parked")
     fig.update_layout(barmode="group")
-    fig.update_yaxes(title_text="days without charging", rangemode="tozero")
-    return _base_layout(fig, title="Days of autonomy", height=300)
+    fig.update_yaxes(title_text="days, full to reserve", rangemode="tozero")
+    sub = ("no charge at all (no logs)" if no_charge
+           else "with the array's solar on the logged days; no driving or hook-up")
+    return _base_layout(fig, title="Days parked before the reserve", subtitle=sub, height=320)
 
 
 # -- zoom ------------------------------------------------------------------------------------

@@ -30,7 +30,7 @@ import plotly.io as pio
 from plotly.offline import get_plotlyjs
 
 from analysis.system import System
-from dashboard import figures
+from dashboard import figures, labels
 from dashboard.data import _health_of, _report_days, _soc_of, _to_json
 
 #: The dashboard footer's caution (dashboard/app.py ``_shell``), repeated word for word at the foot of the report.
@@ -51,12 +51,20 @@ _CSS = (
     f"header{{background:{_P['soc']};color:#fff;padding:0.8em 1.2em}}header h1{{margin:0;font-size:1.4em}}"
     "header p{margin:0.2em 0 0;opacity:0.85;font-size:0.9em}"
     "h2{font-size:1.1em;margin:1.6em 0 0.5em}"
-    f".fig{{background:{_P['paper']};border:1px solid #e0dbd0;border-radius:8px;margin:0.8em 0;padding:4px}}"
+    f".fig{{background:{_P['paper']};border:1px solid #e0dbd0;border-radius:8px;margin:0.8em 0;padding:4px;"
+    "padding-top:28px}"
+    # The chart toolbar sits in the strip above the chart, never over its title.
+    ".fig .modebar-container{top:-24px!important}"
     ".wide{overflow-x:auto}"
     f"table{{border-collapse:collapse;font-size:0.88em;background:{_P['paper']}}}"
     "td,th{border:1px solid #e0dbd0;padding:3px 8px;text-align:right}th{background:#ece8df}"
     "td:first-child,th:first-child{text-align:left}"
     f"pre{{background:{_P['paper']};border:1px solid #e0dbd0;padding:1em;overflow-x:auto;font-size:0.82em}}"
+    ".cards{display:grid;grid-template-columns:repeat(auto-fit,minmax(200px,1fr));gap:0.6em}"
+    f".card{{background:{_P['paper']};border:1px solid #e0dbd0;border-radius:8px;padding:0.6em 0.8em}}"
+    f".card .label{{font-size:0.8em;color:{_P['muted']};text-transform:uppercase}}"
+    ".card .value{font-size:1.5em;font-weight:650}"
+    f".card .note{{font-size:0.85em;color:{_P['muted']}}}"
     f"footer{{color:{_P['muted']};font-size:0.85em;border-top:1px solid #e0dbd0;margin-top:2em;padding-top:0.8em}}"
 )
 
@@ -119,7 +127,7 @@ def report_figures(report: Any, *, system: System | None = None, solar: Any = No
         h = _health_of(report, system)
         ci = b.get("usable_Ah_ci95")
         health.append(figures.capacity_figure(h.capacity_points, rated_Ah=h.rated_Ah,
-                                              overall_Ah=b.get("usable_Ah"), overall_ci95=ci))
+                                              overall_Ah=b.get("usable_Ah"), overall_ci95=ci, tz=h.tz))
         health.append(figures.resistance_figure(h.resistance_points, overall_ohm=b.get("internal_resistance_ohm")))
         pts = h.peukert_points
         health.append(figures.peukert_figure([p[0] for p in pts], [p[1] for p in pts], k=b.get("peukert_k"),
@@ -212,7 +220,65 @@ def _period_text(period: dict, tz: str) -> str:
             "plot times are local.")
 
 
-def render_html(report: Any, *, system: System | None = None, solar: Any = None) -> str:
+def _headline(report: Any, j: dict, sizing: dict | None) -> str:
+    """The figures an installer looks for first: use per day, usable capacity and health, solar, what to upgrade."""
+    e = html.escape
+    days = [d for d in j["days"] if d.get("complete") and d.get("consumed_Ah") is not None]
+    use = sorted(abs(d["consumed_Ah"]) for d in days)
+    use_wh = sorted(abs(d["consumed_Wh"]) for d in days if d.get("consumed_Wh") is not None)
+    med = (lambda v: v[len(v) // 2] if len(v) % 2 else (v[len(v) // 2 - 1] + v[len(v) // 2]) / 2)
+    b = j["battery"]
+    s = j.get("solar") or {}
+    cards = [("Use per whole day", f"{med(use):.0f} Ah" if use else "-",
+              f"median of {len(use)} days; {med(use_wh):.0f} Wh" if use_wh else b.get("usable_Ah_why") or ""),
+             ("Usable capacity", f"{b['usable_Ah']:.0f} Ah" if b.get("usable_Ah") is not None else "-",
+              (f"95 % interval {b['usable_Ah_ci95'][0]:.0f}-{b['usable_Ah_ci95'][1]:.0f} Ah; state of health "
+               f"{b['state_of_health_pct']:.0f} % of {b['rated_Ah']:g} Ah") if b.get("usable_Ah") is not None
+              else f"not known: {b.get('usable_Ah_why')}"),
+             ("Solar performance ratio", f"{s['performance_ratio']:.2f}" if s.get("performance_ratio") is not None
+              else "-", "measured / clear-sky expectation" if s.get("performance_ratio") is not None
+              else str(s.get("performance_ratio_why") or "")),
+             ]
+    if sizing is not None:
+        bat, arr = sizing["battery"], sizing["solar"]
+        cards.append(("What to upgrade", f"{bat['capacity_Ah']:.0f} Ah, "
+                      + (f"{arr['array_W']:.0f} W" if arr.get("array_W") is not None else "no array size"),
+                      f"for {sizing['autonomy']['target_days']:g} days parked in "
+                      f"{sizing['autonomy']['percentile']:g} % of spells; details below"))
+    out = "<div class='cards'>" + "".join(
+        f"<div class='card'><div class='label'>{e(a)}</div><div class='value'>{e(v)}</div>"
+        f"<div class='note'>{e(labels.for_people(n))}</div></div>" for a, v, n in cards) + "</div>"
+    if sizing is not None and sizing.get("verdict"):
+        out += "<ul class='verdict'>" + "".join(f"<li>{e(labels.for_people(v))}</li>" for v in sizing["verdict"]) + "</ul>"
+    return out
+
+
+def _sizing_part(sizing: dict) -> str:
+    """Sizes and the cable table (each size with its own voltage drop), with assumptions and cautions."""
+    e = html.escape
+    bat, arr, dc, inv = sizing["battery"], sizing["solar"], sizing["dc_dc_charger"], sizing["inverter"]
+    items = [f"Battery {bat['capacity_Ah']:.0f} Ah {labels.chemistry(bat['chemistry'])} (you have "
+             f"{bat['present_Ah']:.0f} Ah)",
+             (f"Solar array {arr['array_W']:.0f} W (you have {arr['present_W']:.0f} W)" if arr.get("array_W") is not None
+              else f"Solar array: no size ({arr.get('array_W_why')})"),
+             (f"DC-DC charger {dc['current_A']:.0f} A" if dc.get("current_A") is not None
+              else f"DC-DC charger: none ({dc.get('current_A_why')})"),
+             (f"Inverter {inv['continuous_W']:.0f} W continuous, {inv['surge_W']:.0f} W surge"
+              if inv.get("continuous_W") is not None else f"Inverter: none ({inv.get('continuous_W_why')})")]
+    rows = labels.run_rows(sizing.get("runs") or [])
+    head = "".join(f"<th>{e(h)}</th>" for _k, h in labels.RUN_COLUMNS)
+    body = "".join("<tr>" + "".join(f"<td>{e(str(r[k]))}</td>" for k, _h in labels.RUN_COLUMNS) + "</tr>" for r in rows)
+    a = sizing["assumptions"]
+    assumptions = (f"Assumptions: conductor {a['conductor_temperature_C']:g} °C, {a['insulation_rating_C']} °C insulation, "
+                   f"not bundled; one-way run lengths {labels.run_lengths(a['run_lengths_one_way_m'])}; "
+                   f"{a['simulation']}.")
+    return ("<ul>" + "".join(f"<li>{e(labels.for_people(i))}</li>" for i in items) + "</ul>"
+            + f"<div class='wide'><table class='runs'><tr>{head}</tr>{body}</table></div>"
+            + f"<p>{e(assumptions)}</p><ul class='cautions'>"
+            + "".join(f"<li>{e(labels.for_people(c))}</li>" for c in sizing.get("cautions") or []) + "</ul>")
+
+
+def render_html(report: Any, *, system: System | None = None, solar: Any = None, sizing: Any = None) -> str:
     """The whole report as one HTML document (plotly.js inline once, no network needed).
 
     Parameters
@@ -225,6 +291,9 @@ def render_html(report: Any, *, system: System | None = None, solar: Any = None)
     solar
         An ``analysis.solar.SolarAnalysis`` of the same readings for the solar
         power plot; optional (the per-day solar plot comes from the report).
+    sizing
+        An ``analysis.sizing.SizingResult`` (``drawdown size``'s answer): its
+        headline and cable table open the report; optional.
 
     Returns
     -------
@@ -234,12 +303,13 @@ def render_html(report: Any, *, system: System | None = None, solar: Any = None)
     from dashboard.commands.report import describe
 
     j = _to_json(report)
+    sz = sizing.to_json() if sizing is not None else None
     figs = report_figures(report, system=system, solar=solar)
     e = html.escape
     title = "drawdown report"
     if system is not None:
         b = system.battery
-        title += f" - {b.nominal_voltage_V:g} V {b.chemistry} bank, {b.rated_capacity_Ah:g} Ah"
+        title += f" - {b.nominal_voltage_V:g} V {labels.chemistry(b.chemistry)} bank, {b.rated_capacity_Ah:g} Ah"
     p = j["period"]
     tz = system.site.timezone if system is not None else str(p.get("timezone") or "UTC")
     s = j.get("solar") or {}
@@ -254,7 +324,9 @@ def render_html(report: Any, *, system: System | None = None, solar: Any = None)
         f"<title>{e(title)}</title><style>{_CSS}</style>"
         f"<script type='text/javascript'>{get_plotlyjs()}</script></head><body>"
         f"<header><h1>{e(title)}</h1><p>{e(_period_text(p, tz))}</p></header><main>"
-        "<h2>State of charge and daily ledger</h2>" + "".join(_fig_html(f) for f in figs["trip"])
+        "<h2>At a glance</h2>" + _headline(report, j, sz)
+        + ("<h2>What to upgrade, with cables and fuses</h2>" + _sizing_part(sz) if sz is not None else "")
+        + "<h2>State of charge and daily ledger</h2>" + "".join(_fig_html(f) for f in figs["trip"])
         + "<h2>Battery health</h2>" + "".join(_fig_html(f) for f in figs["health"])
         + "<h2>Solar</h2>" + solar_part
         + "<h2>Daily ledger</h2>" + _table(j)
@@ -265,8 +337,9 @@ def render_html(report: Any, *, system: System | None = None, solar: Any = None)
         "</main></body></html>")
 
 
-def write_html(report: Any, path: Path, *, system: System | None = None, solar: Any = None) -> Path:
+def write_html(report: Any, path: Path, *, system: System | None = None, solar: Any = None,
+               sizing: Any = None) -> Path:
     """Write :func:`render_html` to ``path`` (folders created); returns the path."""
     path.parent.mkdir(parents=True, exist_ok=True)
-    path.write_text(render_html(report, system=system, solar=solar), encoding="utf-8")
+    path.write_text(render_html(report, system=system, solar=solar, sizing=sizing), encoding="utf-8")
     return path

@@ -235,3 +235,33 @@ def test_request_without_the_token_is_refused_when_a_token_is_configured(demo, w
         assert w.errors == []
     finally:
         stop_server(proc)
+
+
+def test_planner_page_dom_shows_what_size_json_says(server, demo, watched, capsys):
+    """The planner's cards and cable table in the browser are `drawdown size --json`'s, run by run (issue 12)."""
+    import json
+
+    from dashboard import labels
+    from dashboard.cli import main
+
+    assert main(["--store", str(demo.store_path), "--system", str(demo.system_path), "size", "--json",
+                 "--autonomy-days", "2"]) == 0
+    j = json.loads(capsys.readouterr().out)
+    w = watched(390)
+    w.page.goto(server + "/planner")
+    w.page.wait_for_selector("#plan-runs-table tbody tr")
+    w.settle()
+    values = w.page.eval_on_selector_all("#plan-result .card .card-value", "els => els.map(e => e.innerText)")
+    assert values[0].replace("\u202f", " ") == f"{j['battery']['capacity_Ah']:,.0f} Ah"
+    assert values[1].replace("\u202f", " ") == f"{j['solar']['array_W']:,.0f} W"
+    rows = w.page.eval_on_selector_all("#plan-runs-table tbody tr",
+                                       "trs => trs.map(tr => Array.from(tr.cells).map(td => td.innerText))")
+    want = [list(r.values()) for r in labels.run_rows(j["runs"])]
+    assert [[c.strip() for c in r][:1] for r in rows] == [[w_[0]] for w_ in want]
+    # On a phone each row is a card: every cell is visible and labelled with its column.
+    labels_shown = w.page.eval_on_selector_all("#plan-runs-table tbody tr:first-child td",
+                                               "tds => tds.map(td => getComputedStyle(td, '::before').content)")
+    assert labels_shown[1].strip('"') == "Current [A]"
+    for got, exp in zip(rows, want):
+        assert [c.strip() for c in got] == exp
+    assert w.errors == []

@@ -1,10 +1,11 @@
 """``drawdown size``: right-sized battery, array, DC-DC charger and inverter, with cable runs.
 
-Reads the stored readings and ``system.toml``, builds the daily ledger
-(``analysis.ledger.daily_ledger``), measures the array's performance ratio
-when it can (``analysis.solar.analyse_solar``), and calls
-:func:`analysis.sizing.recommend`. With no readings it sizes from the
-``[[load]]`` inventory; with neither it exits 2 saying what is missing.
+Reads the stored readings and ``system.toml`` and asks
+:func:`analysis.answers.size_answer` -- the same function the Upgrade planner
+page calls -- for the answer (daily ledger, measured performance ratio, lowest
+temperature and peak DC load, then :func:`analysis.sizing.recommend`). With no
+readings it sizes from the ``[[load]]`` inventory; with neither it exits 2
+saying what is missing.
 """
 
 from __future__ import annotations
@@ -12,62 +13,13 @@ from __future__ import annotations
 import math
 import sys
 
-import numpy as np
-
+from dashboard import labels
 from dashboard.context import UsageError, print_json, warn
 
 
-def _ledger(readings, system):
-    """The daily ledger frame, or None (with a warning on stderr) when it cannot be built."""
-    if readings is None or len(readings) == 0:
-        return None
-    try:
-        from analysis.ledger import daily_ledger
-    except ImportError:
-        warn("drawdown size: the daily ledger (analysis.ledger) is not available in this build; "
-             "sizing from the [[load]] inventory instead")
-        return None
-    try:
-        days = daily_ledger(readings, system)
-    except ValueError as exc:  # the stored data cannot make a ledger (no usable channel): say so
-        warn(f"drawdown size: the daily ledger could not be built ({exc}); "
-             "sizing from the [[load]] inventory instead")
-        return None
-    frame = getattr(days, "days", days)  # a result object or the frame itself
-    if hasattr(frame, "to_frame") and not hasattr(frame, "columns"):
-        frame = frame.to_frame()
-    return frame
-
-
-def _performance_ratio(readings, system) -> float | None:
-    if readings is None or len(readings) == 0 or not system.solar:
-        return None
-    try:
-        from analysis.solar import analyse_solar
-
-        pr = analyse_solar(readings, system).performance_ratio
-    except ValueError as exc:  # not measurable from these data: fall back to the stated default
-        warn(f"drawdown size: performance ratio not measured ({exc}); using the default")
-        return None
-    if pr is None or not math.isfinite(pr) or not 0.05 <= pr <= 1.2:
-        return None
-    return float(pr)
-
-
-def _from_readings(readings) -> tuple[float | None, float | None]:
-    """Lowest logged temperature [degC] and the 99.5th percentile load current [A]."""
-    if readings is None or len(readings) == 0:
-        return None, None
-    t = readings["temperature_C"].to_numpy(dtype=float)
-    t_min = float(np.nanmin(t)) if np.isfinite(t).any() else None
-    load = readings.loc[readings["channel"] == "load", "current_A"].to_numpy(dtype=float)
-    load = np.abs(load[np.isfinite(load)])
-    peak = float(np.quantile(load, 0.995)) if load.size >= 100 else None
-    return t_min, peak
-
-
 def run(args, ctx) -> int:
-    from analysis.sizing import SizingInputError, recommend
+    from analysis.answers import size_answer
+    from analysis.sizing import SizingInputError
 
     n = 3.0 if args.autonomy_days is None else args.autonomy_days
     if not math.isfinite(n) or not 0 < n <= 60:
@@ -78,12 +30,9 @@ def run(args, ctx) -> int:
     readings = None
     if ctx.store_path.exists():
         readings = ctx.open_store().read()
-    days = _ledger(readings, system)
-    pr = _performance_ratio(readings, system)
-    t_min, peak = _from_readings(readings)
     try:
-        result = recommend(system, days, autonomy_days=n, percentile=args.percentile, performance_ratio=pr,
-                           min_temperature_C=t_min, peak_dc_load_A=peak)
+        # The same function the Upgrade planner calls: one answer for the same store and targets.
+        result = size_answer(readings, system, autonomy_days=n, percentile=args.percentile)
     except SizingInputError as exc:
         raise UsageError(str(exc)) from None
     out = result.to_json()
@@ -94,16 +43,29 @@ def run(args, ctx) -> int:
     return 0
 
 
-def _f(x, fmt: str = ".0f", none: str = "n/a") -> str:
+def _f(x, fmt: str = ".0f", none: str = "-") -> str:
     return none if x is None else format(x, fmt)
 
 
+def _gain(row: dict, horizon: float) -> str:
+    """What a step row buys over the row above, or nothing to say."""
+    gain = row.get("buys_days_at_percentile")
+    if gain is None:
+        return ""
+    if row["at_horizon"]:
+        return " (no shortfall within the simulated horizon)" if abs(gain) < 0.05 else f" (at least {gain:+.1f} days)"
+    return " (no gain)" if abs(gain) < 0.05 else f" ({gain:+.1f} days)"
+
+
 def describe(j: dict) -> list[str]:
-    """Readable lines for a sizing result (``SizingResult.to_json()``)."""
+    """Readable lines for a sizing result (``SizingResult.to_json()``); the planner page shows the same figures."""
     b, s, dc, inv, au, dl = j["battery"], j["solar"], j["dc_dc_charger"], j["inverter"], j["autonomy"], j["design_load"]
     pres = j["present_system"]
-    lines = ["Right-sizing recommendation", ""]
     a = j["assumptions"]
+    chem = labels.chemistry(b["chemistry"])
+    lines = ["Right-sizing recommendation", ""]
+    if j.get("verdict"):
+        lines += ["In short:", *(f"  {labels.for_people(v)}" for v in j["verdict"]), ""]
     lines.append(f"Design day: {a['design_Wh_per_day']:.0f} Wh ({a['design_Ah_per_day']:.1f} Ah) per day, "
                  f"{dl['percentile']:g}th percentile, from {dl['source']}"
                  + (f" ({dl['n_days']} complete days; mean {dl['mean_Wh_per_day']:.0f} Wh)" if dl['n_days'] else ""))
@@ -111,17 +73,21 @@ def describe(j: dict) -> list[str]:
     if pva:
         lines.append(f"  Planned {pva['planned_Wh_per_day']:.0f} Wh/day vs measured mean "
                      f"{pva['actual_mean_Wh_per_day']:.0f} Wh/day ({_f(pva['difference_pct'], '+.0f')} %)")
-    lines.append(f"Battery: {b['capacity_Ah']:.0f} Ah {b['chemistry']} at {b['nominal_voltage_V']:g} V "
+    lines.append(f"Battery: {b['capacity_Ah']:.0f} Ah {chem} at {b['nominal_voltage_V']:g} V "
                  f"(now {b['present_Ah']:.0f} Ah); usable {b['usable_Wh']:.0f} Wh at {b['max_dod'] * 100:.0f} % DoD "
                  f"(keeps a {100 * (1 - b['max_dod']):.0f} % reserve), "
                  f"temperature factor {b['temperature_factor']:.2f}")
     if not b["meets_target"]:
         lines.append(f"  {b['meets_target_why']}")
-    lines.append(f"Solar array: {_f(s['array_W'])} W (now {s['present_W']:.0f} W); refills the design day in month "
-                 f"{s['design_month']} ({s['design_month_psh_h']:.2f} clear-sky sun hours x performance ratio "
-                 f"{s['performance_ratio']:.2f}, {s['performance_ratio_source']})")
-    if s.get("array_W_why"):
-        lines.append(f"  {s['array_W_why']}")
+    month = labels.month(s["design_month"])
+    if s.get("array_W") is None:
+        lines.append(f"Solar array: no size (now {s['present_W']:.0f} W) - {s.get('array_W_why')}")
+    else:
+        lines.append(f"Solar array: {s['array_W']:.0f} W (now {s['present_W']:.0f} W); refills the design day in "
+                     f"{month} ({s['design_month_psh_h']:.2f} clear-sky sun hours x performance ratio "
+                     f"{s['performance_ratio']:.2f}, {s['performance_ratio_source']})")
+        if s.get("months_not_covered_why"):
+            lines.append(f"  {s['months_not_covered_why']}")
     if dc.get("current_A") is None:
         lines.append(f"DC-DC charger: none - {dc['current_A_why']}")
     else:
@@ -140,7 +106,7 @@ def describe(j: dict) -> list[str]:
     def days(x: float) -> str:
         return f">= {h:g}" if x >= h else f"{x:.1f}"
 
-    lines.append(f"Autonomy parked ({au['method']}): median {days(au['days_p50'])} days, "
+    lines.append(f"Autonomy, days parked from full to the reserve ({au['method']}): median {days(au['days_p50'])} days, "
                  f"{days(au[f'days_p{p:g}'])} days in {p:g} % of spells (target {au['target_days']:g}: "
                  f"{'met' if au['meets_target'] else 'NOT met'}); chance of reaching the reserve within the target "
                  f"{au['chance_reserve_within_target'] * 100:.0f} %")
@@ -148,39 +114,40 @@ def describe(j: dict) -> list[str]:
     lines.append(f"  Present system ({pres['battery_Ah']:.0f} Ah, {pres['array_W']:.0f} W): median "
                  f"{days(pa['days_p50'])} days, {days(pa[f'days_p{p:g}'])} days in {p:g} % of spells"
                  + (" - already meets the target" if pa["meets_target"] else " - short of the target"))
-    for key, title in (("battery", "What each battery step buys (with the recommended array):"),
+    no_logs = not au.get("sequences")
+    for key, title in (("battery", "What each battery step buys" + (":" if no_logs else " (with the recommended array):")),
                        ("array", "What each array step buys (with the recommended battery):")):
         rows = j["steps"].get(key, [])
         if not rows:
+            if j["steps"].get(f"{key}_why"):
+                lines.append(f"Array steps: none - {j['steps'][f'{key}_why']}")
             continue
         lines.append(title)
         for row in rows:
-            gain = row.get("buys_days_at_percentile")
-            g = "" if gain is None else (f" (at least {gain:+.1f} days)" if row["at_horizon"]
-                                         else f" ({gain:+.1f} days)")
             lines.append(f"  {row['battery_Ah']:.0f} Ah + {row['array_W']:.0f} W: median {days(row['days_p50'])} d, "
-                         f"p{p:g} {days(row['days_at_percentile'])} d{g}"
+                         f"p{p:g} {days(row['days_at_percentile'])} d{_gain(row, h)}"
                          f"{'' if row['meets_target'] else ' - short of the target'}")
     cc = j["cross_check"]
     if cc.get("battery_capacity_Ah") is not None:
         lines.append(f"Cross-check ({cc['method']}): battery {cc['battery_capacity_Ah']:.0f} Ah, array "
-                     f"{cc['array_W']:.0f} W")
+                     f"{_f(cc.get('array_W'))} W")
         for e in cc["explanation"]:
             lines.append(f"  {e}")
-    lines.append("Cable runs (one-way length; fuse at the source end):")
+    lines.append("Cable runs (one-way length; fuse at the source end; each size with its own voltage drop):")
     for r in j["runs"]:
         if r["cross_section_mm2"] is None:
             lines.append(f"  {r['name']}: {r['current_A']:.0f} A over {r['length_m']:g} m - {r['why']}")
         else:
             lines.append(f"  {r['name']}: {r['current_A']:.0f} A over {r['length_m']:g} m -> "
-                         f"{r['cross_section_mm2']:g} mm2 ({r['voltage_drop_pct']:.1f} % drop) or {r['awg']} AWG "
-                         f"({r['awg_choice']['voltage_drop_pct']:.1f} %), fuse {r['fuse_A']:g} A")
-    lines.append(f"Assumptions: conductor {a['conductor_temperature_C']:g} degC, {a['insulation_rating_C']} degC "
-                 f"insulation, not bundled; run lengths {a['run_lengths_one_way_m']}; {a['simulation']}")
+                         f"{r['cross_section_mm2']:g} mm² ({r['voltage_drop_pct']:.1f} % drop) or {r['awg']} AWG "
+                         f"({r['awg_choice']['voltage_drop_pct']:.1f} % drop), fuse {r['fuse_A']:g} A")
+    lines.append(f"Assumptions: conductor {a['conductor_temperature_C']:g} °C, {a['insulation_rating_C']} °C "
+                 f"insulation, not bundled; one-way run lengths {labels.run_lengths(a['run_lengths_one_way_m'])}; "
+                 f"{a['simulation']}")
     for n in j["notes"]:
-        lines.append(f"Note: {n}")
+        lines.append(f"Note: {labels.for_people(n)}")
     for c in j["cautions"]:
-        lines.append(f"Caution: {c}")
+        lines.append(f"Caution: {labels.for_people(c)}")
     return lines
 
 

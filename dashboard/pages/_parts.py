@@ -53,7 +53,7 @@ def missing(section: str, why: str | None) -> html.Div:
 
 def table(rows: Iterable[Mapping[str, Any]], columns: Sequence[tuple[str, str]], *,
           id_: str | None = None, numeric: Iterable[str] = ()) -> html.Div:
-    """A plain HTML table in a horizontally scrollable box (narrow screens scroll the table, not the page).
+    """A plain HTML table; on a phone (<= 600 px) each row is shown as a card with every column labelled.
 
     Parameters
     ----------
@@ -66,10 +66,12 @@ def table(rows: Iterable[Mapping[str, Any]], columns: Sequence[tuple[str, str]],
     """
     num = set(numeric)
     head = html.Thead(html.Tr([html.Th(h, className="num" if k in num else None) for k, h in columns]))
-    body = html.Tbody([html.Tr([html.Td(r.get(k, ""), className="num" if k in num else None)
-                                for k, _ in columns]) for r in rows])
+    # Each cell carries its column's header: on a phone every row becomes a card of "header: value" lines
+    # (drawdown.css), so no column is cut off and the page never scrolls sideways.
+    body = html.Tbody([html.Tr([html.Td(r.get(k, ""), className="num" if k in num else None, **{"data-label": h})
+                                for k, h in columns]) for r in rows])
     kw = {"id": id_} if id_ else {}
-    return html.Div(html.Table([head, body], className="table"), className="table-wrap", **kw)
+    return html.Div(html.Table([head, body], className="table"), className="table-wrap as-cards", **kw)
 
 
 def page_head(title: str, lead: str) -> html.Div:

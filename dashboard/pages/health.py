@@ -60,10 +60,16 @@ def render_health(source: DataSource) -> tuple[Any, Any, Any, Any]:
         card("Internal resistance", fmt(r * 1e3 if r is not None else None, "mΩ", 1),
              (f"trend {trend * 1e3:+.2f} mΩ per 30 days" if trend is not None else None) or _why(b, "internal_resistance_ohm")),
     ], className="cards")
+    n = len(h.capacity_points)
+    pairs = (f"{n} discharge{'s' if n != 1 else ''} between two known states of charge, each drawn with its "
+             "95 % interval." if n else "No discharge between two known states of charge yet.")
+    fit = ("The Peukert exponent is fitted from your discharges." if h.peukert_points else
+           f"The Peukert exponent is the {h.peukert_source or 'default'} value: no two discharges at different "
+           "rates qualified for a fit, so the Peukert plot shows no measured points.")
     summary = html.Div([html.P(f"From the stored history {full[0]} to {full[1]} (at most the newest "
-                               f"{HEALTH_DAYS} days).", className="hint"), cards])
+                               f"{HEALTH_DAYS} days). {pairs} {fit}", className="hint"), cards])
     cap_fig = figures.capacity_figure(h.capacity_points, rated_Ah=h.rated_Ah, overall_Ah=b.get("usable_Ah"),
-                                      overall_ci95=ci)
+                                      overall_ci95=ci, tz=h.tz)
     res_fig = figures.resistance_figure(h.resistance_points, overall_ohm=r)
     pts = h.peukert_points
     pk_fig = figures.peukert_figure([p[0] for p in pts], [p[1] for p in pts], k=k,

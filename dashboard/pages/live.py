@@ -1,7 +1,7 @@
 """Live view: the bank right now -- voltage, current, power, state of charge, runtime left, the last hour.
 
 Until a live collector writes into the store this shows the newest stored
-readings (and says how old they are). Refreshes every few seconds with
+readings in a "not live" state of its own: how old they are, no all-clear. Refreshes every few seconds with
 ``dcc.Interval``; the work is in :meth:`dashboard.data.DataSource.live`.
 """
 
@@ -13,7 +13,7 @@ import dash
 import pandas as pd
 from dash import Input, Output, callback, dcc, html
 
-from dashboard import figures, ids
+from dashboard import figures, ids, labels
 from dashboard.data import DataSource, LiveSnapshot, current
 from dashboard.pages._parts import card, fmt, graph, notice, page_head
 
@@ -25,7 +25,7 @@ REFRESH_MS = 5000
 
 def layout(**_kwargs: Any) -> html.Div:
     return html.Div([
-        page_head("Now", "The newest readings of the bank, refreshed every few seconds."),
+        page_head("Now", "The bank at its newest reading: live while a collector writes, else the last known state."),
         html.Div(id=ids.LIVE_STAMP, className="stamp"),
         html.Div(id=ids.LIVE_ALARM),
         html.Div(id=ids.LIVE_TILES, className="cards"),
@@ -35,8 +35,8 @@ def layout(**_kwargs: Any) -> html.Div:
     ])
 
 
-def _age(t: pd.Timestamp) -> str:
-    age = pd.Timestamp.now(tz="UTC") - t
+def _age(t: pd.Timestamp, now: Any = None) -> str:
+    age = (pd.Timestamp.now(tz="UTC") if now is None else pd.Timestamp(now)) - t
     s = age.total_seconds()
     if s < 120:
         return "just now"
@@ -55,19 +55,35 @@ def _hours(h: float | None) -> str:
     return f"{int(h)} h {int(round((h % 1) * 60)):02d} min"
 
 
-def render_live(source: DataSource) -> tuple[Any, Any, Any, Any, Any]:
-    """(stamp, alarm, tiles, runtime cards, figure) for the live view; a plain function tests call."""
-    snap: LiveSnapshot = source.live()
+def _days(d: float | None) -> str:
+    return fmt(d, "days", 1) if d is None or d < 30 else "30+ days"
+
+
+def render_live(source: DataSource, *, now: Any = None) -> tuple[Any, Any, Any, Any, Any]:
+    """(stamp, alarm, tiles, runtime cards, figure) for the live view; a plain function tests call.
+
+    ``now`` (UTC, default the clock) decides whether the newest reading is live or
+    stale; stale data gets its own state: no "all clear", figures said to be as of
+    the newest reading.
+    """
+    snap: LiveSnapshot = source.live(now=now)
     tz = source.timezone()
     if snap.t is None:
         msg = notice(list(snap.notes) or ["No readings."], kind="warn")
         return "", msg, [], [], figures.message_figure("No readings stored yet.", title="Last hour")
-    local = snap.t.tz_convert(tz)
-    stamp = f"Newest reading {local:%Y-%m-%d %H:%M:%S} ({tz}), {_age(snap.t)}."
-    if snap.alarms:
-        alarm = notice(list(snap.alarms), kind="error")
+    when = labels.local_time(snap.t, tz, seconds=True)
+    if snap.stale:
+        stamp = html.Span([html.Strong("Not live. "), f"Newest reading {when}, {_age(snap.t, now)}: the figures "
+                           "below are the bank as it was then, not now. Start `drawdown collect` (or import a newer "
+                           "log) to see it now."], className="stale")
+        alarm = notice(["Old data: alarms are only checked on live readings."]
+                       + [f"At the newest reading: {a}" for a in snap.alarms], kind="warn")
     else:
-        alarm = html.Div("No alarm: voltage and draw are in their usual range.", className="all-clear")
+        stamp = f"Live: newest reading {when}, {_age(snap.t, now)}; refreshes every {REFRESH_MS // 1000} s."
+        if snap.alarms:
+            alarm = notice(list(snap.alarms), kind="error")
+        else:
+            alarm = html.Div("No alarm: voltage and draw are in their usual range.", className="all-clear")
     charging = snap.current_A is not None and snap.current_A > 0.05
     tiles = [
         card("Voltage", fmt(snap.voltage_V, "V", 2)),
@@ -80,20 +96,26 @@ def render_live(source: DataSource) -> tuple[Any, Any, Any, Any, Any]:
         tiles.append(card("Battery temperature", fmt(snap.temperature_C, "°C", 1)))
     # Runtimes count down to the reserve, the lowest planned state of charge (1 - max_dod).
     to_reserve = f", down to the {snap.reserve_pct:.0f} % reserve" if snap.reserve_pct is not None else ""
+    use = f"a typical day uses {fmt(snap.typical_day_Ah, 'Ah', 0)}" if snap.typical_day_Ah else None
+    charged = (f"and charges {fmt(snap.typical_day_charged_Ah, 'Ah', 0)}"
+               if snap.typical_day_charged_Ah is not None else None)
     runtime = [
         card("Runtime left at this draw", _hours(snap.runtime_at_draw_h),
              "charging: not running down" if snap.draw_A is not None and snap.draw_A >= -0.05
              else f"at {fmt(-snap.draw_A if snap.draw_A is not None else None, 'A', 1)} (5-minute mean)"
              + to_reserve),
-        card("Runtime left at a typical day", fmt(snap.runtime_typical_days, "days", 1),
-             f"typical day uses {fmt(snap.typical_day_Ah, 'Ah', 0)}" if snap.typical_day_Ah else None),
+        card("Days left with no charging", _days(snap.runtime_no_charging_days),
+             " ".join(x for x in (use, "and nothing charges" if use else None) if x) + to_reserve if use else None),
+        card("Days left with typical charging", _days(snap.runtime_typical_days),
+             (f"{use} {charged}; if the charging of the last fortnight continues" if use and charged else None)),
         card("Charge left above the reserve", fmt(snap.remaining_Ah, "Ah", 0),
              f"reserve: {snap.reserve_pct:.0f} % state of charge (max_dod in system.toml)"
              if snap.reserve_pct is not None else None),
     ]
     if snap.notes:
         runtime.append(html.Div(notice(list(snap.notes), kind="info"), className="card-wide"))
-    fig = figures.live_figure(snap.readings, low_voltage_V=snap.low_voltage_V, tz=tz)
+    fig = figures.live_figure(snap.readings, low_voltage_V=snap.low_voltage_V, tz=tz,
+                              title="The hour up to the newest reading" if snap.stale else None)
     return stamp, alarm, tiles, runtime, fig
 
 

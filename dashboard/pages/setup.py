@@ -12,7 +12,7 @@ from typing import Any
 import dash
 from dash import Input, Output, State, callback, dcc, html, no_update
 
-from dashboard import ids
+from dashboard import ids, labels
 from dashboard.data import MAX_UPLOAD_BYTES, DataSource, current, imports_table
 from dashboard.pages._parts import fmt, notice, page_head, table
 
@@ -81,16 +81,18 @@ def store_view(source: DataSource) -> Any:
     channels = source.channel_summary()
     if not channels:
         return html.P(f"The store at {source.store_path} holds no readings yet.")
-    rows = [{"channel": name, "rows": f"{c['rows']:,}", "first": c["first"][:19].replace("T", " "),
-             "last": c["last"][:19].replace("T", " ")} for name, c in channels.items()]
-    parts = [table(rows, [("channel", "Channel"), ("rows", "Readings"), ("first", "First (UTC)"),
-                          ("last", "Last (UTC)")], numeric=["rows"])]
+    tz = source.timezone()
+    rows = [{"channel": name, "rows": f"{c['rows']:,}", "first": labels.local_time(c["first"], tz),
+             "last": labels.local_time(c["last"], tz)} for name, c in channels.items()]
+    parts = [table(rows, [("channel", "Channel"), ("rows", "Readings"), ("first", "First"),
+                          ("last", "Last")], numeric=["rows"]),
+             html.P(f"Times are local ({tz}).", className="hint")]
     imp = imports_table(source.imports())
     if imp:
-        parts.append(table([{**r, "rows_stored": f"{r['rows_stored']:,}", "rows_rejected": f"{r['rows_rejected']:,}"}
-                            for r in imp],
+        parts.append(table([{**r, "rows_stored": f"{r['rows_stored']:,}", "rows_rejected": f"{r['rows_rejected']:,}",
+                             "imported_at": labels.local_time(r["imported_at"], tz)} for r in imp],
                            [("file", "File"), ("rows_stored", "Lines stored"), ("rows_rejected", "Lines rejected"),
-                            ("imported_at", "Imported (UTC)")], numeric=["rows_stored", "rows_rejected"]))
+                            ("imported_at", "Imported")], numeric=["rows_stored", "rows_rejected"]))
     return html.Div(parts)
 
 

@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 from dash import Input, Output, State, callback, html
 
-from dashboard import figures, ids
+from dashboard import figures, ids, labels
 from dashboard.data import DataSource, as_json, current
 from dashboard.pages._parts import card, fmt, graph, missing, page_head
 
@@ -27,7 +27,7 @@ def layout(**_kwargs: Any) -> html.Div:
         html.Div(id=ids.SOLAR_SUMMARY),
         graph(ids.SOLAR_DAILY_GRAPH),
         graph(ids.SOLAR_POWER_GRAPH),
-        html.H2("Diagnostics"),
+        html.H2("What the comparison rests on, and what to check"),
         html.Div(id=ids.SOLAR_DIAGNOSTICS),
     ])
 
@@ -39,29 +39,80 @@ def pick_range(source: DataSource, stored: dict | None) -> tuple[str, str] | Non
     return source.default_range()
 
 
-def _value_text(v: Any) -> str:
-    if isinstance(v, float):
-        return fmt(v, "", 2)
-    if isinstance(v, dict):
-        return "; ".join(f"{k.replace('_', ' ')} {_value_text(x)}" for k, x in v.items())
-    if isinstance(v, list):
-        return ", ".join(_value_text(x) for x in v)
-    return str(v)
+_SOURCE_WORDS = {"solar channel": "the solar controller's own output (a 'solar' channel in the log)",
+                 "battery channel": "the battery shunt's voltage",
+                 "battery channel (ambient proxy)": "the battery's temperature sensor, standing in for the air"}
 
 
-def _diagnostic_items(diag: dict[str, Any]) -> list[Any]:
-    """The solar analysis's diagnostics as a readable list: findings first, then the figures behind them."""
-    items: list[Any] = []
-    for key, value in diag.items():
-        label = key.replace("_", " ")
-        if isinstance(value, dict):
-            items.append(html.Li([html.Strong(label), html.Ul([html.Li(f"{k.replace('_', ' ')}: {_value_text(v)}")
-                                                               for k, v in value.items()])]))
-        elif isinstance(value, list) and all(isinstance(v, str) for v in value):
-            items.extend(html.Li(v) for v in value)
-        else:
-            items.append(html.Li([html.Strong(f"{label}: "), _value_text(value)]))
-    return items
+def _said(source: Any) -> str:
+    text = str(source or "not known")
+    return _SOURCE_WORDS.get(text, text)
+
+
+def diagnostic_sections(diag: dict[str, Any], tz: str) -> list[tuple[str, list[str]]]:
+    """The solar analysis's diagnostics as sentences for a person, in three parts.
+
+    (what was assumed, what was found, what to check on the roof): never an internal
+    key or a library's function name; the JSON keeps the machine form.
+    """
+    assumed: list[str] = []
+    found: list[str] = []
+    check: list[str] = []
+    for a in diag.get("arrays") or []:
+        tilt = a.get("tilt_deg") or 0
+        lie = "flat" if tilt < 1 else f"tilted {tilt:.0f}° facing {a.get('azimuth_deg', 180):.0f}° (180° = south)"
+        assumed.append(f"Array '{a.get('name') or 'roof'}': {a.get('peak_power_W', 0):.0f} W peak, {lie}, "
+                       f"{str(a.get('controller') or '').upper()} controller (from system.toml).")
+    assumed.append("Expected output: a clear sky over your position at each moment, on the array's tilt and "
+                   "direction, with the panels' heating in the sun and the controller's losses.")
+    assumed.append(f"Measured from {_said(diag.get('measured_from'))}; bank voltage from "
+                   f"{_said(diag.get('bank_voltage_from'))}; air temperature from "
+                   f"{labels.for_people(_said(diag.get('air_temperature_from')))}; compared in "
+                   f"{diag.get('interval_minutes', 10)}-minute steps.")
+    sat = diag.get("saturation") or {}
+    if sat:
+        assumed.append(f"Battery counted as full (array held back) at or above {fmt(sat.get('full_voltage_V'), 'V', 2)} "
+                       f"while charging, or at float {fmt(sat.get('float_voltage_V'), 'V', 2)}.")
+        n = int(sat.get("saturated_periods") or 0)
+        found.append(f"The battery was full, so the controller held the array back, for "
+                     f"{fmt(sat.get('saturated_hours'), 'h', 1)} in {labels.plural(n, 'period')}: those hours are "
+                     "left out of the performance ratio.")
+    cloud = diag.get("cloud_inclusive_ratio")
+    if cloud is not None:
+        found.append(f"Over all daylight, clouds included, the array gave {100 * cloud:.0f} % of the clear-sky "
+                     "expectation.")
+    best = diag.get("best_clear_hour")
+    if best:
+        found.append(f"Best clear hour ({labels.local_time(best.get('start'), tz)}): {fmt(best.get('measured_W'), 'W', 0)} "
+                     f"measured against {fmt(best.get('expected_W'), 'W', 0)} expected, with the sun at "
+                     f"{fmt(best.get('poa_Wm2'), 'W/m²', 0)} on the panels and the cells at "
+                     f"{fmt(best.get('cell_temperature_C'), '°C', 0)}; that is "
+                     f"{fmt(best.get('measured_at_1000Wm2_W'), 'W', 0)} at full sun (1000 W/m²) against a rating of "
+                     f"{fmt(best.get('rating_after_temperature_W'), 'W', 0)} at that cell temperature.")
+    elif diag.get("best_clear_hour_why"):
+        found.append(f"No best clear hour: {diag['best_clear_hour_why']}.")
+    ma = diag.get("morning_afternoon")
+    if ma:
+        found.append(f"Morning and afternoon against the clear-sky curve: {100 * (ma.get('morning_ratio') or 0):.0f} % and "
+                     f"{100 * (ma.get('afternoon_ratio') or 0):.0f} % ({labels.plural(int(ma.get('days') or 0), 'smooth day')}).")
+    lose = diag.get("pwm_would_lose_percent")
+    if lose is not None:
+        found.append(f"A PWM controller would have harvested about {lose:.0f} % less than your MPPT one here.")
+    add = diag.get("mppt_would_add")
+    if add:
+        found.append(f"An MPPT controller would have added about {fmt(add.get('Wh_per_day'), 'Wh', 0)} per day.")
+    check = [labels.for_people(f[0].upper() + f[1:]) + ("" if f.endswith(".") else ".")
+             for f in diag.get("findings") or []]
+    if not check:
+        check = ["Nothing stands out: keep the panels clean and unshaded, and the connections tight."]
+    return [("What was assumed", assumed), ("What was found", found), ("What to check on the roof", check)]
+
+
+def _diagnostics_view(diag: dict[str, Any], tz: str) -> Any:
+    parts: list[Any] = []
+    for title, lines in diagnostic_sections(diag, tz):
+        parts += [html.H3(title), html.Ul([html.Li(x) for x in lines], className="quality")]
+    return html.Div(parts)
 
 
 def render_solar(source: DataSource, stored: dict | None) -> tuple[Any, Any, Any, Any]:
@@ -103,7 +154,7 @@ def render_solar(source: DataSource, stored: dict | None) -> tuple[Any, Any, Any
     else:
         power = figures.message_figure("The solar analysis has no time series to draw.", title="Solar power")
     diag = js.get("diagnostics") or {}
-    diag_view = html.Ul(_diagnostic_items(diag), className="quality") if diag else html.P("No findings.")
+    diag_view = _diagnostics_view(diag, tz) if diag else html.P("No findings.")
     return summary, figures.solar_daily_figure(days), power, diag_view
 
 
