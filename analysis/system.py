@@ -115,7 +115,10 @@ class SystemError_(ValueError):
 
 
 class _Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    # strict: a bool or a string is not a number (``peak_power_W = true`` must not become
+    # 1.0, nor ``rated_capacity_Ah = "200"`` 200); an integer is still a valid float.
+    # allow_inf_nan=False: TOML can write nan and inf, neither is a battery or an array.
+    model_config = ConfigDict(extra="forbid", frozen=True, strict=True, allow_inf_nan=False)
 
 
 class Site(_Strict):
@@ -279,15 +282,81 @@ def _explain(exc: ValidationError, source: str, *,
                          "rename it")
             continue
         if err["type"] == "extra_forbidden":
-            lines.append(f"  {key}: unknown key (check its spelling; see DESIGN.md for the schema)")
+            lines.append(f"  {key}: unknown key (check its spelling; README 'Describe your system' lists the keys)")
             continue
         if err["type"] == "missing":
             lines.append(f"  {key}: required key is missing")
             continue
         given = err.get("input")
-        msg = err["msg"]
-        lines.append(f"  {key} = {given!r}: {msg}")
+        msg = _plain_message(err, given)
+        lines.append(f"  {key} = {_toml_value(given)}: {msg}")
     return "\n".join(lines)
+
+
+_TYPE_NAMES = {bool: "true/false", str: "text", int: "a whole number", float: "a number",
+               list: "a list", dict: "a table"}
+_EXPECTED = {"float_type": "a number", "int_type": "a whole number", "bool_type": "true or false",
+             "string_type": "text in quotes", "list_type": "a list", "model_type": "a table",
+             "dict_type": "a table"}
+
+
+def _toml_value(value: object) -> str:
+    """A value for messages: true/false and nan as TOML writes them, anything else as Python's repr."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, float) and value != value:
+        return "nan"
+    return repr(value)
+
+
+def _plain_message(err: dict, given: object) -> str:
+    """Pydantic's message, said in the terms of a TOML file."""
+    kind = err["type"]
+    if kind == "finite_number":
+        return "must be a finite number (nan and inf are not values)"
+    if kind in _EXPECTED:
+        got = _TYPE_NAMES.get(type(given), type(given).__name__)
+        msg = f"expected {_EXPECTED[kind]}, got {got}"
+        if kind in ("float_type", "int_type") and isinstance(given, str):
+            msg += f" (write it without quotes: {given.strip()})" if _is_number(given) else ""
+        return msg
+    return err["msg"]
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+def decode_system_bytes(raw: bytes, *, source: str = "system.toml") -> str:
+    """The text of a system.toml file's bytes: UTF-8 (TOML's encoding), or UTF-16 as some editors save.
+
+    A UTF-8 or UTF-16 byte-order mark is honoured; UTF-16 without one is recognised by its
+    NUL bytes in every other position.
+
+    Raises
+    ------
+    SystemError_
+        When the bytes are none of these (the message names the file and says what to do).
+    """
+    if raw.startswith(b"\xef\xbb\xbf"):
+        encoding = "utf-8-sig"
+    elif raw.startswith((b"\xff\xfe", b"\xfe\xff")):
+        encoding = "utf-16"
+    elif len(raw) >= 4 and raw[1::2].count(0) > 0.3 * len(raw[1::2]) and raw[0::2].count(0) == 0:
+        encoding = "utf-16-le"
+    elif len(raw) >= 4 and raw[0::2].count(0) > 0.3 * len(raw[0::2]) and raw[1::2].count(0) == 0:
+        encoding = "utf-16-be"
+    else:
+        encoding = "utf-8"
+    try:
+        return raw.decode(encoding)
+    except UnicodeDecodeError as exc:
+        raise SystemError_(f"{source}: not readable as text (byte {exc.start} is not valid {encoding}); "
+                           "save the file as UTF-8") from None
 
 
 def system_from_mapping(data: dict, *, source: str = "system.toml") -> System:
@@ -308,7 +377,7 @@ def system_from_mapping(data: dict, *, source: str = "system.toml") -> System:
 def parse_system(text: str, *, source: str = "system.toml") -> System:
     """Parse and validate TOML text; ``source`` names the file in messages."""
     try:
-        data = tomllib.loads(text)
+        data = tomllib.loads(text.removeprefix("\ufeff"))  # a BOM left by a Windows editor
     except tomllib.TOMLDecodeError as exc:
         raise SystemError_(f"{source}: not valid TOML: {exc}") from None
     return system_from_mapping(data, source=source)

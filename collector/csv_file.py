@@ -2,7 +2,8 @@
 
 What it copes with
 ------------------
-* delimiter ``,`` ``;`` tab or ``|``; decimal comma; UTF-8 (with or without BOM) or Latin-1;
+* delimiter ``,`` ``;`` tab or ``|``; decimal comma; UTF-8 (with or without BOM), Latin-1 or
+  UTF-16 (with or without BOM); line ends LF, CR LF or CR alone (an old spreadsheet's export);
 * a preamble before the header row, and the header repeated mid-file after a logger restart
   (a header line is neither a data line nor rejected);
 * time as ISO 8601 with an offset (read straight to UTC), local wall-clock time
@@ -26,7 +27,7 @@ characters are written as ``\\xNN``, a run of NUL bytes as ``<N NUL bytes>``, an
 than 2,000 characters is cut and says so).
 
 Reasons: ``wrong_field_count``, ``non_numeric``, ``bad_time``, ``time_without_offset``,
-``time_out_of_range`` (before 1990 or after tomorrow), ``ambiguous_local_time``,
+``time_out_of_range`` (before 1980 or after tomorrow, see ``TIME_MIN``), ``ambiguous_local_time``,
 ``nonexistent_local_time``, ``implausible_voltage`` / ``_current`` / ``_power`` /
 ``_temperature`` / ``_soc``, ``no_values``, ``binary_garbage``, ``duplicate``, ``duplicate_time``.
 
@@ -47,6 +48,8 @@ import hashlib
 import io
 import math
 import re
+import shutil
+import tempfile
 import time as _time
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
@@ -63,7 +66,7 @@ from collector.canonical import CHARGE_SOURCES, VALUE_COLUMNS, from_epoch_us
 from collector.columns import ColumnSpec, classify_column, normalise_channel
 from collector.store import Store
 
-__all__ = ["UnusableInput", "ImportResult", "Gap", "import_file", "detect_sign_inversion",
+__all__ = ["UnusableInput", "NothingStored", "ImportResult", "Gap", "import_file", "detect_sign_inversion",
            "sniff_format", "FileFormat", "BLOCK_BYTES"]
 
 BLOCK_BYTES = 16 << 20          # bytes per parsed block
@@ -96,11 +99,30 @@ _REASONS = ("", "bad_time", "time_without_offset", "ambiguous_local_time", "none
             "implausible_power", "implausible_temperature", "implausible_soc")
 _R = {name: np.uint8(code) for code, name in enumerate(_REASONS)}
 _RE_CONTROL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f]")
-_TIME_MIN_US = int(pd.Timestamp("1990-01-01", tz="UTC").value // 1000)
+#: The earliest time a log line may carry. Old archives are real (a 1980s logger's files
+#: copied forward), so the bound is not the age of today's monitors. It is 1980-01-01: the
+#: earliest date the FAT file system of an SD card or a DOS-era PC can even stamp, and later
+#: than 1970-01-01, the Unix epoch, which is what a logger whose clock was never set (or lost
+#: its backup cell) writes. Anything earlier is not a real reading time.
+TIME_MIN = pd.Timestamp("1980-01-01", tz="UTC")
+_TIME_MIN_US = int(TIME_MIN.value // 1000)
 
 
 class UnusableInput(ValueError):
     """The file cannot be imported at all (nothing is stored); the message names the file and why."""
+
+
+class NothingStored(UnusableInput):
+    """Every data line of the file was rejected: nothing is stored.
+
+    ``result`` is the file's summary (rejected lines by reason, the quarantine file that
+    holds them); the import is not recorded, so the same file can be imported again once
+    the cause (a wrong ``--tz``, a clock that was not set) is fixed.
+    """
+
+    def __init__(self, message: str, result: ImportResult):
+        super().__init__(message)
+        self.result = result
 
 
 @dataclass(frozen=True)
@@ -157,6 +179,8 @@ class ImportResult:
     columns: dict[str, str] = field(default_factory=dict)
     columns_ignored: list[str] = field(default_factory=list)
     delimiter: str | None = None
+    encoding: str | None = None     # as read: utf-8, utf-8-sig, latin-1, utf-16-le, utf-16-be
+    line_ends: str | None = None    # as read: lf, crlf or cr
     decimal: str | None = None
     sha256: str | None = None
     seconds: float | None = None
@@ -691,23 +715,28 @@ class _Parser:
                 ts = ts + " " + field_(fmt.time_fields[1])
             t_us = np.zeros(n, np.int64)
             has_off = ts.str.match(rf"^{_ISO}\s*{_OFFSET}$").fillna(False).to_numpy(bool)
+            # Only text of the expected shape reaches pandas: it reads "15-21:48" as a clock with
+            # a -21 h offset and then refuses the whole block ("mixed timezones"). Anything
+            # else is a malformed time, rejected as bad_time.
+            is_local = ts.str.match(rf"^{_ISO}$").fillna(False).to_numpy(bool)
             if fmt.time_kind == "iso_utc":
                 # a time without an offset in a file whose times carry one is not guessed
-                parsed = pd.to_datetime(ts.where(has_off), utc=True, format="ISO8601", errors="coerce")
-                time_reason[~has_off] = _R["time_without_offset"]
+                parsed = _to_datetime(ts.where(has_off), utc=True, format="ISO8601")
+                time_reason[~has_off] = _R["bad_time"]
+                time_reason[is_local] = _R["time_without_offset"]
                 bad = np.asarray(parsed.isna()) & has_off
                 time_reason[bad] = _R["bad_time"]
                 t_us = _dt_to_us(parsed)
             else:
                 if has_off.any():
-                    p_off = pd.to_datetime(ts.where(has_off), utc=True, format="ISO8601", errors="coerce")
+                    p_off = _to_datetime(ts.where(has_off), utc=True, format="ISO8601")
                     t_us[has_off] = _dt_to_us(p_off)[has_off]
                     time_reason[has_off & np.asarray(p_off.isna())] = _R["bad_time"]
                 naive = ~has_off
                 if fmt.time_kind == "iso_local":
-                    p = pd.to_datetime(ts.where(naive), format="ISO8601", errors="coerce")
+                    p = _to_datetime(ts.where(naive & is_local), format="ISO8601")
                 else:
-                    p = pd.to_datetime(ts.where(naive), format=fmt.time_format, errors="coerce")
+                    p = _to_datetime(ts.where(naive), format=fmt.time_format)
                 p_bad = np.asarray(p.isna()) & naive
                 time_reason[p_bad] = _R["bad_time"]
                 wall = _dt_to_us(p)
@@ -833,6 +862,36 @@ def _epoch_to_us(raw: np.ndarray, scale_s: float) -> tuple[np.ndarray, np.ndarra
     bad = ~np.isfinite(raw) | (np.abs(raw * scale_s) > 1e11)
     t = np.where(bad, 0.0, raw * (scale_s * 1e6))
     return np.round(t).astype(np.int64), bad
+
+
+def _to_datetime(text: pd.Series, **kw: Any) -> pd.Series:
+    """``pd.to_datetime(..., errors="coerce")`` that never raises: unparsable text becomes NaT.
+
+    pandas still raises on some inputs with ``errors="coerce"`` (a mix of offsets and no
+    offsets, a year it cannot hold); then each value is parsed on its own, so one odd line
+    is rejected as ``bad_time`` instead of failing the import.
+    """
+    try:
+        return pd.to_datetime(text, errors="coerce", **kw)
+    except (ValueError, OverflowError, TypeError):
+        pass
+
+    def one(x: Any) -> Any:
+        if not isinstance(x, str):
+            return pd.NaT
+        try:
+            v = pd.to_datetime(x, errors="coerce", **kw)
+        except (ValueError, OverflowError, TypeError):
+            return pd.NaT
+        if v is pd.NaT or v is None:
+            return pd.NaT
+        if not kw.get("utc") and v.tzinfo is not None:
+            return pd.NaT  # an offset where wall-clock time was expected: not guessed
+        return v
+
+    out = pd.to_datetime(pd.Series([one(x) for x in text], index=text.index, dtype=object),
+                         utc=bool(kw.get("utc")), errors="coerce")
+    return out
 
 
 def _dt_to_us(p: pd.DatetimeIndex | pd.Series) -> np.ndarray:
@@ -1071,6 +1130,9 @@ def import_file(path: Path, store: Store, *, tz: str | None = None, channel: str
     UnusableInput
         The file cannot be imported (binary, empty, no time or quantity column, no data lines);
         nothing is stored.
+    NothingStored
+        (an :class:`UnusableInput`) Every data line was rejected; its ``result`` counts them
+        by reason, and they are kept in the quarantine file.
     """
     t0 = _time.perf_counter()
     path = Path(path)
@@ -1094,6 +1156,111 @@ def import_file(path: Path, store: Store, *, tz: str | None = None, channel: str
                              "rows_stored": previous["rows_stored"], "rows_rejected": previous["rows_rejected"]})
     with open(path, "rb") as f:
         head = f.read(HEAD_BYTES)
+    encoding, line_ends = _text_shape(head)
+    if not (encoding.startswith("utf-16") or line_ends == "cr"):
+        return _import_text(path, path, store, head=head, size=size, sha=sha, t0=t0, tz=tz, channel=channel,
+                            column_map=column_map, invert=invert, nominal_voltage_V=nominal_voltage_V,
+                            progress=progress, block_bytes=block_bytes, encoding=None, line_ends=line_ends)
+    # UTF-16, or CR alone ending each line: convert to UTF-8 with LF into a scratch file (the
+    # rest of the importer reads bytes split at LF) and import that; line numbers are kept.
+    scratch = _scratch_dir(store)
+    try:
+        work = scratch / "converted.csv"
+        try:
+            _to_utf8_lf(path, work, encoding)
+        except OSError as exc:  # the scratch copy needs as much space as the file
+            raise UnusableInput(f"{path}: cannot make the converted copy it is read from "
+                                f"({exc.strerror or exc}); free some disk space beside the store") from None
+        with open(work, "rb") as f:
+            head = f.read(HEAD_BYTES)
+        return _import_text(path, work, store, head=head, size=work.stat().st_size, sha=sha, t0=t0, tz=tz,
+                            channel=channel, column_map=column_map, invert=invert,
+                            nominal_voltage_V=nominal_voltage_V, progress=progress, block_bytes=block_bytes,
+                            encoding=encoding if encoding != "bytes" else None, line_ends=line_ends)
+    finally:
+        shutil.rmtree(scratch, ignore_errors=True)
+
+
+def _scratch_dir(store: Store) -> Path:
+    """A private scratch folder beside the store (else in the system's temporary folder)."""
+    try:
+        return Path(tempfile.mkdtemp(prefix=".import-", dir=store.path.parent))
+    except OSError:
+        return Path(tempfile.mkdtemp(prefix="drawdown-import-"))
+
+
+def _text_shape(head: bytes) -> tuple[str, str]:
+    """(encoding family, line ends) of a file from its first bytes.
+
+    The encoding is ``utf-16-le`` / ``utf-16-be`` for UTF-16 text -- with a byte-order mark,
+    or without one when most bytes in every other position are NUL (ASCII text in UTF-16,
+    which a NUL-damaged UTF-8 log is not: its NULs come in runs, at both positions) -- and
+    ``bytes`` otherwise (UTF-8 or Latin-1, told apart later). Line ends are ``crlf``,
+    ``lf``, or ``cr`` when no LF appears at all.
+    """
+    encoding = "bytes"
+    if head.startswith(b"\xff\xfe"):
+        encoding = "utf-16-le"
+    elif head.startswith(b"\xfe\xff"):
+        encoding = "utf-16-be"
+    else:
+        probe = head[:8192]
+        even, odd = probe[0::2], probe[1::2]
+        if len(odd) >= 8:
+            z_even, z_odd = even.count(0) / len(even), odd.count(0) / len(odd)
+            if z_odd > 0.3 and z_even < 0.05:
+                encoding = "utf-16-le"
+            elif z_even > 0.3 and z_odd < 0.05:
+                encoding = "utf-16-be"
+    text = head
+    if encoding != "bytes":
+        body = head[2:] if head[:2] in (b"\xff\xfe", b"\xfe\xff") else head
+        text = body[: len(body) // 2 * 2].decode(encoding, errors="replace").encode("utf-8")
+    if b"\r\n" in text:
+        return encoding, "crlf"
+    if b"\n" not in text and b"\r" in text:
+        return encoding, "cr"
+    return encoding, "lf"
+
+
+def _to_utf8_lf(src: Path, dest: Path, encoding: str) -> None:
+    """Copy ``src`` to ``dest`` as UTF-8 (when it is UTF-16) with every line ended by LF alone.
+
+    CR LF, and a CR alone, become LF, so a file's n-th line stays its n-th line. Bytes
+    that are not valid UTF-16 become U+FFFD, and their lines are rejected as
+    ``binary_garbage`` like any other damaged line.
+    """
+    if encoding.startswith("utf-16"):
+        codec = "utf-16" if _has_bom(src) else encoding  # "utf-16" reads and drops the BOM
+        with open(src, encoding=codec, errors="replace", newline=None) as fin, \
+                open(dest, "w", encoding="utf-8", newline="\n") as fout:
+            while chunk := fin.read(4 << 20):
+                fout.write(chunk)
+        return
+    with open(src, "rb") as fin, open(dest, "wb") as fout:
+        held_cr = False  # a CR at the end of a chunk may be the first half of CR LF
+        while chunk := fin.read(8 << 20):
+            if held_cr:
+                chunk = b"\r" + chunk
+            held_cr = chunk.endswith(b"\r")
+            if held_cr:
+                chunk = chunk[:-1]
+            fout.write(chunk.replace(b"\r\n", b"\n").replace(b"\r", b"\n"))
+        if held_cr:
+            fout.write(b"\n")
+
+
+def _has_bom(path: Path) -> bool:
+    with open(path, "rb") as f:
+        return f.read(2) in (b"\xff\xfe", b"\xfe\xff")
+
+
+def _import_text(path: Path, src: Path, store: Store, *, head: bytes, size: int, sha: str, t0: float,
+                 tz: str | None, channel: str | None, column_map: dict[str, ColumnSpec] | None,
+                 invert: Iterable[str], nominal_voltage_V: float | None,
+                 progress: Callable[[int, int], None] | None, block_bytes: int,
+                 encoding: str | None, line_ends: str) -> ImportResult:
+    """The import proper of ``src`` (``path`` itself, or its UTF-8 / LF copy); ``path`` names it."""
     fmt = sniff_format(path, head, channel=channel or "battery", column_map=dict(column_map or {}))
     needs_tz = fmt.time_kind in ("iso_local", "strptime")
     tz_used = tz or "UTC"
@@ -1114,7 +1281,7 @@ def import_file(path: Path, store: Store, *, tz: str | None = None, channel: str
     header_lines = 1
     blank_lines = data_lines = 0
     first_line = fmt.header_line + 1
-    with open(path, "rb") as f:
+    with open(src, "rb") as f:
         for off, block in _iter_blocks(f, fmt.data_offset, block_bytes):
             b = parser.parse(block, first_line)
             first_line += _n_lines(block)
@@ -1183,6 +1350,10 @@ def import_file(path: Path, store: Store, *, tz: str | None = None, channel: str
     if not assert_counts:  # a bug, never bad input: say so loudly rather than mis-count
         raise RuntimeError(f"{path}: internal count mismatch: stored {rows_stored} + rejected "
                            f"{rows_rejected} != data lines {data_lines}")
+    if rows_stored == 0:
+        _refuse_all_rejected(path, src, store, sha=sha, data_lines=data_lines, by_reason=by_reason,
+                             rejects=rejects, fmt=fmt, encoding=encoding, line_ends=line_ends,
+                             header_lines=header_lines, blank_lines=blank_lines)
 
     # sign
     channels = sorted({ch for ch, _ in values})
@@ -1237,7 +1408,7 @@ def import_file(path: Path, store: Store, *, tz: str | None = None, channel: str
                                                      else f"{s.channel}.{s.quantity}")
                  for j, s in fmt.columns.items()},
         columns_ignored=list(fmt.ignored), delimiter=fmt.delimiter,
-        decimal=fmt.decimal, sha256=sha, seconds=None)
+        decimal=fmt.decimal, encoding=encoding or fmt.encoding, line_ends=line_ends, sha256=sha, seconds=None)
 
     with store.transaction():
         import_id = store.record_import(path=str(path), sha256=sha, rows_stored=rows_stored,
@@ -1252,11 +1423,50 @@ def import_file(path: Path, store: Store, *, tz: str | None = None, channel: str
             elif has.any():
                 store.append_arrays(ch, t[has], {q: c[has] for q, c in cols.items()}, import_id=import_id)
         if quarantine is not None:
-            _write_quarantine(Path(quarantine), path, rejects, fmt.encoding)
+            _write_quarantine(Path(quarantine), src, rejects, fmt.encoding)
         final = _replace(result, seconds=round(_time.perf_counter() - t0, 3))
         store.update_import(import_id, rows_stored=rows_stored, rows_rejected=rows_rejected,
                             summary=final.to_json())
     return final
+
+
+#: What to check when every line of a file was rejected for one of these reasons.
+_ALL_REJECTED_HINTS = {
+    "time_out_of_range": (f"times before {TIME_MIN:%Y-%m-%d} or after tomorrow: was the logger's clock set? "
+                          "(a clock that lost its setting often restarts at 1970 or 2000)"),
+    "time_without_offset": "the times carry no UTC offset while the file's first times did",
+    "bad_time": "the times are not in a form drawdown reads (ISO 8601, a local date-time or a Unix epoch)",
+    "nonexistent_local_time": "every time falls in a skipped daylight-saving hour: is --tz right?",
+    "ambiguous_local_time": "every time falls in a repeated daylight-saving hour: is --tz right?",
+    "wrong_field_count": "the lines do not have as many fields as the header",
+    "non_numeric": "the values are not numbers (a different decimal mark or delimiter?)",
+    "no_values": "the lines hold a time but no value",
+    "binary_garbage": "the lines hold binary bytes, not text",
+}
+
+
+def _refuse_all_rejected(path: Path, src: Path, store: Store, *, sha: str, data_lines: int,
+                         by_reason: dict[str, int], rejects: dict[str, list[np.ndarray]], fmt: FileFormat,
+                         encoding: str | None, line_ends: str, header_lines: int, blank_lines: int) -> None:
+    """Keep the rejected lines aside (quarantine) and raise :class:`NothingStored`."""
+    quarantine = store.quarantine_dir / f"{path.stem}-{sha[:8]}.csv"
+    try:
+        _write_quarantine(quarantine, src, rejects, fmt.encoding)
+        kept: str | None = str(quarantine)
+    except OSError:
+        kept = None
+    result = ImportResult(
+        path=str(path), rows_stored=0, rows_rejected=data_lines, rejected_by_reason=by_reason,
+        already_imported=False, channels=[], sign_inverted=[], sample_interval_s=None, gaps=[],
+        quarantine=kept, data_lines=data_lines, header_lines=header_lines, blank_lines=blank_lines,
+        preamble_lines=fmt.header_line - 1,
+        delimiter=fmt.delimiter, decimal=fmt.decimal, encoding=encoding or fmt.encoding, line_ends=line_ends,
+        sha256=sha)
+    counted = ", ".join(f"{n} {why}" for why, n in sorted(by_reason.items(), key=lambda kv: -kv[1]))
+    top = max(by_reason, key=lambda k: by_reason[k])
+    hint = _ALL_REJECTED_HINTS.get(top)
+    raise NothingStored(f"{path}: every one of its {data_lines} data lines was rejected ({counted}); nothing "
+                        "stored" + (f" - {hint}" if hint else ""), result)
 
 
 def _replace(r: ImportResult, **kw: Any) -> ImportResult:

@@ -24,7 +24,7 @@ from dash import Input, Output, dcc, html
 
 from dashboard import ids
 from dashboard.data import MAX_UPLOAD_BYTES, DataSource
-from dashboard.security import install_token_guard, is_loopback, new_token
+from dashboard.security import install_host_guard, install_token_guard, is_loopback, new_token
 
 HERE = Path(__file__).resolve().parent
 
@@ -80,7 +80,7 @@ def _reset_global_callbacks() -> None:
     _callback.GLOBAL_CALLBACK_MAP.clear()
 
 
-def create_app(ctx: Any, *, token: str | None = None) -> dash.Dash:
+def create_app(ctx: Any, *, token: str | None = None, host: str = "127.0.0.1") -> dash.Dash:
     """Build the dashboard for a store and system description.
 
     Parameters
@@ -91,6 +91,10 @@ def create_app(ctx: Any, *, token: str | None = None) -> dash.Dash:
     token
         When given, every request must carry it (``?token=`` once, then a
         cookie, or ``Authorization: Bearer``); see :mod:`dashboard.security`.
+    host
+        The address the server binds. On loopback, requests must name this computer in
+        ``Host`` (no DNS rebinding); everywhere, a state-changing request must come from
+        the dashboard's own page (``Origin``).
 
     Returns
     -------
@@ -113,6 +117,8 @@ def create_app(ctx: Any, *, token: str | None = None) -> dash.Dash:
     app.server.config["MAX_CONTENT_LENGTH"] = int(MAX_UPLOAD_BYTES * 4 / 3) + 1024 * 1024
     if token is not None:
         install_token_guard(app.server, token)
+    # Installed last so that it runs first: a foreign Host is refused before the token is asked for.
+    install_host_guard(app.server, bound_host=host, check_host=is_loopback(host) or token is None)
     app.layout = _shell
     app.callback(Output(ids.NAV, "children"), Input(ids.URL, "pathname"))(nav_links)
     return app
@@ -127,7 +133,8 @@ def resolve_token(host: str, token: str | None) -> str | None:
     return None
 
 
-def serve(ctx: Any, host: str = "127.0.0.1", port: int = 8050, token: str | None = None) -> int:
+def serve(ctx: Any, host: str = "127.0.0.1", port: int = 8050, token: str | None = None, *,
+          on_listening: Any = None) -> int:
     """Serve the dashboard until interrupted (used by ``drawdown serve`` and ``drawdown demo``).
 
     Parameters
@@ -139,6 +146,8 @@ def serve(ctx: Any, host: str = "127.0.0.1", port: int = 8050, token: str | None
         TCP port.
     token
         Access token; enforced whenever given.
+    on_listening
+        Called with the dashboard's address (token included) once the port is bound.
 
     Returns
     -------
@@ -152,9 +161,14 @@ def serve(ctx: Any, host: str = "127.0.0.1", port: int = 8050, token: str | None
     if token is not None and given is None:
         print(f"drawdown serve: bound to {host}, so every request needs this access token:\n  {token}",
               file=sys.stderr)
-    app = create_app(ctx, token=token)
+    app = create_app(ctx, token=token, host=host)
     try:
         server = make_server(host, port, app.server, threaded=True)
+    except SystemExit:  # werkzeug exits 1 itself when the port is taken
+        from dashboard.context import UsageError
+
+        raise UsageError(f"--port {port}: cannot listen on {host}:{port}, the port is in use by another "
+                         f"program (another drawdown serve?); stop it or choose another, e.g. --port {port + 1}") from None
     except OSError as exc:
         from dashboard.context import UsageError
 
@@ -163,6 +177,8 @@ def serve(ctx: Any, host: str = "127.0.0.1", port: int = 8050, token: str | None
     shown = f"[{host}]" if ":" in host else host
     url = f"http://{shown}:{server.server_port}/"
     print(f"drawdown dashboard: {url}{'?token=' + token if token else ''}  (Ctrl+C stops it)", file=sys.stderr)
+    if on_listening is not None:
+        on_listening(f"{url}{'?token=' + token if token else ''}")
     try:
         server.serve_forever()
     except KeyboardInterrupt:

@@ -90,11 +90,13 @@ def _parser() -> argparse.ArgumentParser:
                    help="serial line terminator (default: any of CR, LF, CR LF)")
     s.add_argument("--keep-full-days", type=float, default=None, metavar="N",
                    help="keep N days at full resolution; older live readings become 1-minute summaries")
+    s.add_argument("--json", action="store_true", help="print the collection summary as one JSON object")
 
     s = sub.add_parser("serve", help="the dashboard")
     s.add_argument("--host", default="127.0.0.1")
     s.add_argument("--port", type=int, default=8050)
     s.add_argument("--token", default=None, help="access token (required off loopback; generated if absent)")
+    s.add_argument("--json", action="store_true", help="print the address as one JSON object once listening")
 
     s = sub.add_parser("simulate", help="write a simulated log with its truth beside it")
     s.add_argument("--scenario", required=True, metavar="NAME")
@@ -103,13 +105,44 @@ def _parser() -> argparse.ArgumentParser:
     s.add_argument("--interval", type=float, default=None, metavar="S", help="sample interval [s]")
     s.add_argument("--single-shunt", action="store_true", help="log only the battery shunt")
     s.add_argument("--seed", type=int, default=None)
+    s.add_argument("--json", action="store_true")
+    p.set_defaults(subcommands=sub.choices)  # name -> subparser, for errors in the subcommand's own usage
     return p
+
+
+#: Commands that write the system description at --system when it is missing.
+_WRITES_SYSTEM = {"demo", "serve"}
+
+
+def _parse(parser: argparse.ArgumentParser, argv: list[str] | None) -> argparse.Namespace:
+    """Parse; an unknown option after the command is reported with that command's usage."""
+    args, extras = parser.parse_known_args(argv)
+    if extras:
+        sub = args.subcommands.get(args.command) if getattr(args, "command", None) else None
+        (sub or parser).error(f"unrecognized arguments: {' '.join(extras)}")
+    return args
+
+
+def _missing_system(args: argparse.Namespace, ctx: Context) -> str | None:
+    """The message for an explicitly named --system file that does not exist, else None."""
+    if not getattr(args, "system", None) or ctx.system_path.is_file():
+        return None
+    if ctx.system_path.is_dir():
+        return f"--system {ctx.system_path}: is a folder; give the system.toml file itself"
+    if args.command in _WRITES_SYSTEM:
+        return None  # demo writes it there; serve's System setup page can
+    return (f"--system {ctx.system_path}: no such file. Check the path, or leave --system out to use "
+            f"{ctx.store_path.parent / 'system.toml'} (beside the store)")
 
 
 def main(argv: list[str] | None = None) -> int:
     parser = _parser()
-    args = parser.parse_args(argv)
+    args = _parse(parser, argv)
     ctx = Context.from_args(args)
+    missing = _missing_system(args, ctx)
+    if missing:
+        print(f"drawdown {args.command}: {missing}", file=sys.stderr)
+        return 2
     try:
         module = importlib.import_module(f"dashboard.commands.{args.command}")
         return int(module.run(args, ctx) or 0)

@@ -11,7 +11,7 @@ from typing import Any
 
 from platformdirs import user_data_dir
 
-from analysis.system import System, SystemError_, parse_system
+from analysis.system import System, SystemError_, decode_system_bytes, parse_system
 
 
 class UsageError(Exception):
@@ -50,14 +50,18 @@ class Context:
     def load_system(self) -> System:
         """Read and validate system.toml; UsageError naming the file and key otherwise."""
         try:
-            text = self.system_path.read_text(encoding="utf-8")
+            raw = self.system_path.read_bytes()
         except FileNotFoundError:
             raise UsageError(
                 f"{self.system_path}: no system description. Write one (see README: 'Describe your system')"
                 " or pass --system PATH.") from None
-        except (OSError, UnicodeDecodeError) as exc:
-            raise UsageError(f"{self.system_path}: cannot read the system description ({exc})") from None
+        except IsADirectoryError:
+            raise UsageError(f"{self.system_path}: is a folder; --system names the system.toml file") from None
+        except OSError as exc:
+            raise UsageError(f"{self.system_path}: cannot read the system description "
+                             f"({exc.strerror or exc})") from None
         try:
+            text = decode_system_bytes(raw, source=str(self.system_path))
             return parse_system(text, source=str(self.system_path))
         except SystemError_ as exc:
             raise UsageError(str(exc)) from None

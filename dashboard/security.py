@@ -13,12 +13,21 @@ requests -- must carry it, in one of three ways:
 
 A request without a token is refused with 401, one with a wrong token with 403.
 Tokens are compared with :func:`secrets.compare_digest` (constant time).
+
+On loopback without a token, the address alone is no protection against DNS
+rebinding: a page on another site can make its own name resolve to 127.0.0.1
+and then talk to the dashboard as "its" server. So :func:`install_host_guard`
+admits only requests whose ``Host`` header names this computer (``localhost``,
+``*.localhost``, a 127.x.y.z or ``[::1]`` address) or the address the server
+was told to bind (``--host``), and refuses every state-changing request
+(anything but GET, HEAD, OPTIONS) whose ``Origin`` is not the dashboard's own.
 """
 
 from __future__ import annotations
 
 import ipaddress
 import secrets
+from urllib.parse import urlsplit
 
 import flask
 
@@ -36,6 +45,98 @@ def is_loopback(host: str) -> bool:
         return ipaddress.ip_address(host.strip("[]")).is_loopback
     except ValueError:
         return False  # a host name other than localhost may resolve anywhere
+
+
+#: Addresses that mean "every interface": they are never a Host a browser sends.
+_WILDCARDS = {"", "0.0.0.0", "::", "[::]"}
+#: Methods that only read; every other method may change state and must come from our own page.
+SAFE_METHODS = frozenset({"GET", "HEAD", "OPTIONS"})
+
+
+def _host_name(host_header: str) -> str:
+    """The name in a ``Host`` header, without its port, brackets or trailing dot, lower case."""
+    h = host_header.strip().lower()
+    if h.startswith("["):  # [::1]:8050
+        return h[1:h.find("]")] if "]" in h else h
+    if h.count(":") == 1:
+        h = h.split(":", 1)[0]
+    return h.rstrip(".")
+
+
+def is_local_name(name: str) -> bool:
+    """True for a name that always means this computer: localhost, *.localhost, a loopback address.
+
+    ``*.localhost`` is reserved for loopback (RFC 6761) and browsers resolve it there
+    themselves, so no outside DNS answer can point it elsewhere.
+    """
+    n = _host_name(name)
+    return n == "localhost" or n.endswith(".localhost") or is_loopback(n)
+
+
+def allowed_host(host_header: str, bound_host: str) -> bool:
+    """True when a request's ``Host`` header names this computer or the configured ``--host``."""
+    name = _host_name(host_header)
+    if not name:
+        return False
+    if is_local_name(name):
+        return True
+    bound = _host_name(bound_host) if bound_host.strip().lower() not in _WILDCARDS else ""
+    return bool(bound) and name == bound
+
+
+def _origin_netloc(origin: str) -> str | None:
+    parts = urlsplit(origin)
+    if parts.scheme not in ("http", "https") or not parts.hostname:
+        return None
+    host = parts.hostname if ":" not in parts.hostname else f"[{parts.hostname}]"
+    default = 443 if parts.scheme == "https" else 80
+    port = parts.port or default
+    return f"{host}:{port}"
+
+
+def same_origin(origin: str, host_header: str, *, scheme: str = "http") -> bool:
+    """True when ``Origin`` names the same host and port as the request's ``Host`` header."""
+    if not origin or origin.strip().lower() == "null":
+        return False
+    mine = _origin_netloc(f"{scheme}://{host_header.strip()}")
+    theirs = _origin_netloc(origin.strip())
+    return mine is not None and theirs is not None and mine.lower() == theirs.lower()
+
+
+def install_host_guard(server: flask.Flask, *, bound_host: str, check_host: bool = True) -> None:
+    """Refuse requests for another site's name, and state changes from another site's page.
+
+    Parameters
+    ----------
+    server
+        The Flask server under the Dash app (``app.server``).
+    bound_host
+        The address the server binds (``--host``); a request may name it in ``Host``.
+    check_host
+        Check the ``Host`` header (on loopback without a token: the DNS-rebinding case).
+        Off loopback the token does that job, and the machine may be reached by any of its
+        names, so only ``Origin`` is checked there.
+    """
+
+    def _guard() -> flask.Response | None:
+        req = flask.request
+        host = req.headers.get("Host", "")
+        if check_host and not allowed_host(host, bound_host):
+            shown = host[:100].encode("ascii", "replace").decode()
+            return flask.Response(
+                f"403 Forbidden: this dashboard answers only to this computer's own address, not to "
+                f"Host {shown!r}. Open http://127.0.0.1:<port>/ (or start it with --host NAME).\n",
+                status=403, mimetype="text/plain")
+        if req.method not in SAFE_METHODS:
+            origin = req.headers.get("Origin")
+            cross = req.headers.get("Sec-Fetch-Site", "").lower() == "cross-site"
+            if cross or (origin is not None and not same_origin(origin, host, scheme=req.scheme)):
+                return flask.Response("403 Forbidden: a change sent from another site's page is refused; "
+                                      "use the dashboard's own page.\n", status=403, mimetype="text/plain")
+        return None
+
+    # First of all request hooks: before the token check and before Dash's own set-up.
+    server.before_request_funcs.setdefault(None, []).insert(0, _guard)
 
 
 def new_token() -> str:

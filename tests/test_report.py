@@ -121,6 +121,7 @@ def test_report_html_is_self_contained_and_offline(store_dir, capsys):
     with Store(store_dir / "r.sqlite") as st:
         st.append(_frame())
     page = store_dir / "out" / "report.html"
+    page.parent.mkdir()  # --html never creates folders (a typo in the path must not make a tree)
     assert main(["--store", str(store_dir / "r.sqlite"), "report", "--html", str(page)]) == 0
     text = page.read_text()
     assert "<script src=" not in text and 'src="http' not in text  # nothing fetched from a network

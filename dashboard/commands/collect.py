@@ -14,7 +14,7 @@ import sys
 import threading
 from typing import Any
 
-from dashboard.context import Context, UsageError
+from dashboard.context import Context, UsageError, print_json
 
 
 def build_source(args: Any, ctx: Context, clock: Any) -> Any:
@@ -102,6 +102,13 @@ def run(args: Any, ctx: Context) -> int:
             signal.signal(s, h)
         store.close()
     st = result.stats
+    if getattr(args, "json", False):
+        print_json({"source": source.name, "address": what, "store": str(store.path),
+                    "rows_written": st.rows_written, "rows_rejected": st.rows_rejected,
+                    "quarantine": str(writer.quarantine_path) if st.rows_rejected else None,
+                    "channels": sorted(st.channels), "seconds": round(result.seconds, 3), "gaps": st.gaps,
+                    "rows_dropped": st.rows_dropped, "clock_jumps": st.clock_jumps})
+        return 0
     rejected = f"{st.rows_rejected} lines rejected"
     if st.rows_rejected:
         rejected += f" (see {writer.quarantine_path})"

@@ -14,7 +14,7 @@ from typing import Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from collector.columns import ColumnSpec, normalise_channel, parse_map_option
-from collector.csv_file import ImportResult, UnusableInput, import_file
+from collector.csv_file import ImportResult, NothingStored, UnusableInput, import_file
 from dashboard.context import Context, UsageError, print_json, warn
 
 PROGRESS_MIN_BYTES = 16 << 20
@@ -83,6 +83,9 @@ def _human(r: ImportResult) -> str:
     if r.out_of_order_rows:
         lines.append(f"  {r.out_of_order_rows} rows were out of time order (sorted)")
     lines.append(f"  channels: {', '.join(r.channels) or '(none)'}")
+    if (r.encoding or "").startswith("utf-16") or r.line_ends == "cr":
+        lines.append(f"  read as {(r.encoding or 'text').upper().replace('-LE', ' LE').replace('-BE', ' BE')}"
+                     + (", lines ended by CR alone" if r.line_ends == "cr" else ""))
     lines.append("  columns: " + ", ".join(f"{k} -> {v}" for k, v in r.columns.items()))
     if r.columns_ignored:
         lines.append("  ignored: " + ", ".join(r.columns_ignored))
@@ -147,9 +150,17 @@ def run(args: Any, ctx: Context) -> int:
             except UnusableInput as exc:
                 bar.close()
                 unusable += 1
-                results.append(_unusable_entry(str(path), str(exc)))
+                if isinstance(exc, NothingStored):  # every line rejected: say why, line by line aside
+                    results.append({**exc.result.to_json(), "usable": False, "error": str(exc)})
+                else:
+                    results.append(_unusable_entry(str(path), str(exc)))
                 if not args.json:
                     print(f"{path}\n  UNUSABLE, nothing stored: {exc}")
+                    if isinstance(exc, NothingStored):
+                        for why, n in exc.result.rejected_by_reason.items():
+                            print(f"    {why:<24} {n}")
+                        if exc.result.quarantine:
+                            print(f"  rejected lines with line number and reason: {exc.result.quarantine}")
                 else:
                     warn(f"drawdown import: {exc}")
                 continue

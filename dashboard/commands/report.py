@@ -8,12 +8,14 @@ writes a self-contained, offline HTML report (plotly.js inline).
 from __future__ import annotations
 
 import datetime as dt
+import os
 from pathlib import Path
 from typing import Any
 
 import pandas as pd
 
 from dashboard.context import Context, UsageError, print_json, warn
+from dashboard.labels import local_time
 
 
 def _local_bound(text: str | None, tz: str, *, end: bool, option: str) -> pd.Timestamp | None:
@@ -28,9 +30,62 @@ def _local_bound(text: str | None, tz: str, *, end: bool, option: str) -> pd.Tim
     return pd.Timestamp(day).tz_localize(tz, nonexistent="shift_forward", ambiguous=True).tz_convert("UTC")
 
 
+def html_target(text: str) -> Path:
+    """The ``--html`` file, checked before any analysis runs; UsageError when it cannot be written.
+
+    A folder, a missing parent folder (never created behind the user's back: a typo in the
+    path would silently make a tree) and a place this user cannot write are refused.
+    """
+    path = Path(text)
+    if path.is_dir() or text.endswith(("/", os.sep)):
+        raise UsageError(f"--html {text}: is a folder; give a file name, e.g. --html {path / 'report.html'}")
+    parent = path.parent if str(path.parent) else Path(".")
+    if not parent.exists():
+        raise UsageError(f"--html {text}: the folder {parent} does not exist; create it first or choose "
+                         "another place")
+    if not parent.is_dir():
+        raise UsageError(f"--html {text}: {parent} is not a folder")
+    if not os.access(parent, os.W_OK | os.X_OK) or (path.exists() and not os.access(path, os.W_OK)):
+        raise UsageError(f"--html {text}: this user may not write there; choose another place")
+    return path
+
+
+def _write_html_report(report: Any, path: Path, system: Any, sizing: Any = None) -> Path:
+    from dashboard.html_report import write_html
+
+    try:
+        return write_html(report, path, system=system, solar=report.solar_analysis, sizing=sizing)
+    except OSError as exc:  # e.g. /proc, a read-only or full disk: the place, not our code
+        raise UsageError(f"--html {path}: cannot write the report there ({exc.strerror or exc})") from None
+
+
+def _html_sizing(readings: Any, system: Any) -> Any:
+    """The sizing the HTML report opens with: ``drawdown size``'s answer at its default targets, or None."""
+    from analysis.answers import size_answer
+    from analysis.sizing import SizingInputError
+
+    try:
+        return size_answer(readings, system, autonomy_days=3.0, percentile=90.0)
+    except SizingInputError as exc:
+        warn(f"drawdown report: the HTML report has no sizing section ({exc})")
+        return None
+
+
+def _no_readings_message(store_path: Path, span: Any, tz: str, args: Any) -> str:
+    """Why a report has nothing to show: an empty store, or dates outside what it holds (said in local dates)."""
+    if span is None:
+        return f"{store_path}: no readings stored; import a log first ('drawdown import FILE')"
+    first, last = (t.tz_convert(tz).date().isoformat() for t in span)
+    picked = " ".join(x for x in (f"--from {args.date_from}" if getattr(args, "date_from", None) else "",
+                                  f"--to {args.date_to}" if getattr(args, "date_to", None) else "") if x)
+    return (f"{store_path}: no readings in the selected dates ({picked}); the store holds readings from {first} "
+            f"to {last} ({tz}): pick dates inside that span")
+
+
 def run(args: Any, ctx: Context) -> int:
     from analysis.report import build_report
 
+    html_path = html_target(args.html) if args.html else None
     system = ctx.load_system()
     tz = system.site.timezone
     start = _local_bound(getattr(args, "date_from", None), tz, end=False, option="--from")
@@ -43,20 +98,16 @@ def run(args: Any, ctx: Context) -> int:
     try:
         readings = store.read(start, end)
         rows_rejected = sum(int(i["rows_rejected"]) for i in store.imports())
+        span = store.time_span()
     finally:
         store.close()
     if readings.empty:
-        where = "" if start is None and end is None else " in the selected dates"
-        raise UsageError(f"{ctx.store_path}: no readings stored{where}; import a log first ('drawdown import FILE')")
-    try:
-        report = build_report(readings, system, rows_rejected=rows_rejected)
-    except ValueError as exc:
-        raise UsageError(str(exc)) from None
+        raise UsageError(_no_readings_message(ctx.store_path, span, tz, args))
+    # Input was validated above; a ValueError from the analysis now is a bug (exit 1), not bad input.
+    report = build_report(readings, system, rows_rejected=rows_rejected)
     obj = report.to_json()
-    if args.html:
-        from dashboard.html_report import write_html
-
-        path = write_html(report, Path(args.html), system=system, solar=report.solar_analysis)
+    if html_path is not None:
+        path = _write_html_report(report, html_path, system, sizing=_html_sizing(readings, system))
         warn(f"wrote {path}")
     if args.json:
         print_json(obj)
@@ -76,11 +127,13 @@ def _pct(share: float | None) -> str:
 def describe(j: dict) -> list[str]:
     """The human summary of a report object (plain text, one line per day)."""
     p, dq, b, rt = j["period"], j["data_quality"], j["battery"], j.get("runtime", {})
-    out = [f"period: {p['start']} to {p['end']} ({p['days']} local days, {p.get('timezone', '')})",
+    tz = p.get("timezone") or "UTC"
+    out = [f"period: {local_time(p['start'], tz)} to {local_time(p['end'], tz)} ({p['days']} local days, {tz})",
            (f"data quality: {dq['rows_stored']} rows stored, {dq['rows_rejected']} rejected, "
             f"{len(dq['gaps'])} gap(s); {dq.get('complete_days', 0)} complete day(s); mode: {dq.get('mode', '')}")]
     for g in dq["gaps"][:10]:
-        out.append(f"  gap on {g.get('channel', '?')}: {g['start']} to {g['end']} ({g['seconds']:.0f} s) - energy unknown")
+        out.append(f"  gap on {g.get('channel', '?')}: {local_time(g['start'], tz)} to {local_time(g['end'], tz)} "
+                   f"({g['seconds']:.0f} s) - energy unknown")
     if len(dq["gaps"]) > 10:
         out.append(f"  ... and {len(dq['gaps']) - 10} more gaps")
     for note in dq.get("notes", []):

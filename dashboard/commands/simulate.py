@@ -1,4 +1,4 @@
-"""``drawdown simulate --scenario NAME --days N --out FILE [--interval S] [--single-shunt] [--seed N]``
+"""``drawdown simulate --scenario NAME --days N --out FILE [--interval S] [--single-shunt] [--seed N] [--json]``
 
 Write a simulated log of a bundled scenario (an invented system of our own), its
 truth beside it (``<FILE without .csv>.truth.json``) and the scenario's
@@ -13,7 +13,7 @@ import time
 from pathlib import Path
 from typing import Any
 
-from dashboard.context import Context, UsageError
+from dashboard.context import Context, UsageError, print_json
 
 
 def _write_system(folder: Path, text: str) -> tuple[Path, bool]:
@@ -54,6 +54,14 @@ def run(args: Any, ctx: Context) -> int:
               f"(the scenario's own is collector/scenarios/{scenario.name}.toml)", file=sys.stderr)
     interval = args.interval or scenario.params.scenario.interval_s
     rows = int(round((sim.day_start_s[-1]) / interval))
+    if getattr(args, "json", False):
+        print_json({"out": str(out), "truth": str(truth_path), "system": str(system_path),
+                    "system_written": written, "scenario": scenario.name, "days": sim.days,
+                    "start": sim.truth["start"], "interval_s": interval, "rows": rows, "seed": sim.seed,
+                    "single_shunt": bool(args.single_shunt), "seconds": round(seconds, 3),
+                    "true_usable_Ah": sim.truth["battery"]["usable_Ah"],
+                    "rated_Ah": sim.truth["battery"]["rated_Ah"], "solar_derate": sim.truth["solar"]["derate"]})
+        return 0
     print(f"{out}: scenario {scenario.name}, {sim.days} days from {sim.truth['start']}, "
           f"every {interval:g} s ({rows} rows{', battery shunt only' if args.single_shunt else ''}), "
           f"seed {sim.seed}, {seconds:.1f} s")

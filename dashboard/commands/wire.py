@@ -17,6 +17,12 @@ import math
 
 from dashboard.context import UsageError, print_json
 
+#: The bank voltages this sizes [V]: 6 V (two-cell lead-acid, golf-cart banks) up to 60 V, the
+#: top of a 48 V bank while charging and the limit of extra-low-voltage DC work (the same
+#: range as ``nominal_voltage_V`` in system.toml).
+BANK_VOLTAGE_MIN_V = 6.0
+BANK_VOLTAGE_MAX_V = 60.0
+
 
 def _check(option: str, value: float, *, low: float = 0.0, high: float = math.inf, strict: bool = True) -> None:
     bad = not math.isfinite(value) or (value <= low if strict else value < low) or value > high
@@ -32,7 +38,10 @@ def run(args, ctx) -> int:
 
     _check("--current", args.current, high=5000)
     _check("--length", args.length, high=1000)
-    _check("--voltage", args.voltage, high=1000)
+    if not (math.isfinite(args.voltage) and BANK_VOLTAGE_MIN_V <= args.voltage <= BANK_VOLTAGE_MAX_V):
+        raise UsageError(f"--voltage {args.voltage:g}: expected the bank's nominal DC voltage, "
+                         f"{BANK_VOLTAGE_MIN_V:g} to {BANK_VOLTAGE_MAX_V:g} V (12, 24 or 48 V systems; "
+                         "mains AC wiring is outside what this sizes)")
     _check("--max-drop", args.max_drop, high=49)
     _check("--ambient", args.ambient, low=-40, high=150, strict=False)
     if args.bundled < 1:
