@@ -46,6 +46,7 @@ from analysis.readings import (
     per_day_mean,
     split_channels,
 )
+from analysis.instrument import daily_half_width_Ah, offset_bound_A
 from analysis.single_shunt import SOURCES, LoadModel, single_shunt_ledger
 from analysis.system import System
 
@@ -239,8 +240,34 @@ def compute_ledger(channels: dict[str, Channel], system: System, *, soc: SocResu
     if mode == "multi-channel":
         extras["attribution_confidence"][:] = 1.0  # measured on their own shunts
         extras["observed_load_share"][:] = 1.0
+    if mode in ("multi-channel", "load channel only"):
+        _instrument_range(bat if mode == "multi-channel" else load, sources, load, system, bounds, gmask,
+                          cols, extras, notes)
     days = pd.DataFrame({"date": dates, "complete": complete, **cols, **extras})
     return LedgerResult(days, mode, tuple(gaps_all), solar_series, model, soc, tuple(notes), bounds)
+
+
+def _instrument_range(ref: Channel, sources: dict[str, Channel], load: Channel | None, system: System,
+                      bounds: np.ndarray, gmask: dict[str, np.ndarray], cols: dict[str, np.ndarray],
+                      extras: dict[str, np.ndarray], notes: list[str]) -> None:
+    """The 95 % range of each day's consumed Ah that the shunts' own errors leave.
+
+    Every load is measured, so nothing is inferred; what is left is the battery (or
+    load) shunt's zero offset, unseen because that shunt never idles, over every hour
+    of the day, and each channel's gain error (see :mod:`analysis.instrument`).
+    """
+    hours = _day_sum(ref.t_us, trapezoid_increments(ref.t_us, np.ones(len(ref)), gaps=gmask[ref.name]), bounds)
+    offsets = [idle_offset_A(fill0(ch.current_A), system) for ch in sources.values()]
+    off95 = offset_bound_A(offsets)
+    flows = [cols["consumed_Ah"], *(cols[f"charged_Ah_{s}"] for s in sources)]
+    both = ref is not load and load is not None
+    half = daily_half_width_Ah(hours, flows, off95, measured_twice=both)
+    extras["consumed_Ah_pi95_lo"] = np.maximum(cols["consumed_Ah"] - half, 0.0)
+    extras["consumed_Ah_pi95_hi"] = cols["consumed_Ah"] + half
+    which = "load" if ref is load else "battery"
+    notes.append(f"the {which} shunt's zero offset cannot be seen in a log (it never idles): up to "
+                 f"{1000 * off95:.0f} mA, {24 * off95:.1f} Ah a day, is inside each day's consumed range; "
+                 f"zeroing the monitor with every load and charger off removes it")
 
 
 def _overlap_s(gap: Gap, bounds: np.ndarray) -> np.ndarray:

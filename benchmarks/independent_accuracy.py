@@ -70,6 +70,7 @@ class Score:
     soc_max_err: float | None = None
     undeclared_Ah: float = 0.0
     solar_err: list[float] = field(default_factory=list)
+    rows: list[dict] = field(default_factory=list)   # one per scored day, for --dump
 
 
 def analyse(csv: Path, system_text: str, tmp: Path) -> dict:
@@ -99,10 +100,15 @@ def score(case: str, seed: int, layout: str, report: dict, truth: dict) -> Score
         err = d["consumed_Ah"] / td["consumed_Ah"] - 1.0
         sc.consumed_err.append(err)
         pi = d.get("consumed_Ah_pi95")
-        if layout == "single":
-            sc.covered.append(bool(pi and pi[0] <= td["consumed_Ah"] <= pi[1]))
-            sc.half_width.append(0.5 * (pi[1] - pi[0]) / td["consumed_Ah"] if pi else 0.0)
-            sc.hidden_h.append(float(d.get("hidden_load_h") or 0.0))
+        sc.covered.append(bool(pi and pi[0] <= td["consumed_Ah"] <= pi[1]))
+        sc.half_width.append(0.5 * (pi[1] - pi[0]) / td["consumed_Ah"] if pi else 0.0)
+        sc.hidden_h.append(float(d.get("hidden_load_h") or 0.0))
+        sc.rows.append({"case": case, "seed": seed, "layout": layout, "date": td["date"],
+                        "true_Ah": td["consumed_Ah"], "est_Ah": d["consumed_Ah"],
+                        "lo_Ah": pi[0] if pi else None, "hi_Ah": pi[1] if pi else None,
+                        "hidden_h": d.get("hidden_load_h"), "observed_share": d.get("observed_load_share"),
+                        "true_solar_Ah": td["charged_Ah"].get("solar", 0.0),
+                        "est_solar_Ah": d["charged_Ah"]["solar"]})
         t_sol = td["charged_Ah"].get("solar", 0.0)
         sc.solar_err.append((d["charged_Ah"]["solar"] - t_sol) / max(t_sol, 5.0))
         for src in ("solar", "alternator", "shore"):
@@ -156,6 +162,10 @@ def summarise(scores: list[Score]) -> list[str]:
         e = np.abs(np.concatenate([s.consumed_err for s in multi if s.consumed_err] or [np.zeros(0)]))
         lines.append(f"multi-channel consumed within +-2 %: {(e <= MULTI_TOL).sum()}/{len(e)} days, "
                      f"worst {100 * e.max() if len(e) else 0:.1f} %")
+        cov = np.concatenate([s.covered for s in multi if s.covered] or [np.zeros(0, bool)])
+        hw = np.concatenate([s.half_width for s in multi if s.half_width] or [np.zeros(0)])
+        lines.append(f"multi-channel 95 % instrument range holds the truth: {cov.sum()}/{len(cov)} days, "
+                     f"median half-width {100 * np.median(hw) if len(hw) else 0:.1f} %")
     if single:
         e = np.concatenate([s.consumed_err for s in single if s.consumed_err] or [np.zeros(0)])
         cov = np.concatenate([s.covered for s in single if s.covered] or [np.zeros(0, bool)])
@@ -199,12 +209,14 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--seeds", nargs="*", type=int, default=None, help="seeds (overrides --half)")
     ap.add_argument("--days", type=int, default=None, help="days per log (default: each case's own)")
     ap.add_argument("-q", "--quiet", action="store_true", help="only the summary")
+    ap.add_argument("--dump", type=Path, default=None, help="write one CSV row per scored day here")
+    ap.add_argument("--no-pybamm", action="store_true", help="leave out the (slow) PyBaMM cases")
     args = ap.parse_args(argv)
     from independent import family
 
     seeds = args.seeds or {"tune": list(family.SEEDS_TUNE), "report": list(family.SEEDS_REPORT),
                            "all": list(family.SEEDS_TUNE) + list(family.SEEDS_REPORT)}[args.half]
-    names = args.cases or list(family.CASES)
+    names = args.cases or [n for n in family.CASES if not (args.no_pybamm and n.startswith("pybamm"))]
     t0 = time.perf_counter()
     scores: list[Score] = []
     with tempfile.TemporaryDirectory() as tmp:
@@ -216,6 +228,9 @@ def main(argv: list[str] | None = None) -> int:
                     print(f"  {name} seed {seed}: FAILED {type(exc).__name__}: {exc}", flush=True)
     print(f"\n{len(scores)} logs ({', '.join(names)}; seeds {seeds}) in {time.perf_counter() - t0:.0f} s")
     print("\n".join(summarise(scores)))
+    if args.dump:
+        pd.DataFrame([r for s in scores for r in s.rows]).to_csv(args.dump, index=False)
+        print(f"per-day rows: {args.dump}")
     return 0
 
 

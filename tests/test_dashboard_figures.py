@@ -289,8 +289,10 @@ def test_unusual_draw_raises_the_alarm_line(copy_ctx):
 def test_live_callback_renders_tiles_and_a_figure(app_ctx):
     from dashboard.pages import live
 
-    stamp, alarm, tiles, runtime, fig = live.refresh(0)
-    assert stamp.startswith("Newest reading")
+    live.refresh(0)  # the callback itself runs (the demo's newest reading is old: the "not live" state)
+    now = app_ctx.source.time_span()[1] + pd.Timedelta(minutes=1)
+    stamp, alarm, tiles, runtime, fig = live.render_live(app_ctx.source, now=now)
+    assert stamp.startswith("Live: newest reading")
     assert len(tiles) >= 4
     assert fig.layout.height == 440
     text = str(runtime)
@@ -502,8 +504,11 @@ def test_day_adapters_carry_a_single_shunts_95_percent_range_and_nothing_otherwi
     assert pd.isna(_report_days({"days": [day]}).loc[0, "consumed_Ah_lo"])
 
 
-def test_trip_table_has_no_range_column_for_a_log_with_a_shunt_per_source(app_ctx):
+def test_trip_table_for_a_log_with_a_shunt_per_source_has_the_instrument_range_and_no_unseen_hours(app_ctx):
+    # Every load measured: nothing was inferred, so no "load not seen" column; the range left
+    # is the battery shunt's unseen zero offset and the gains (analysis/instrument.py).
     from dashboard.pages import trip
 
     _s, _f, tab, _q, _st = trip.render_trip(app_ctx.source, *app_ctx.source.full_range())
-    assert "95 % range" not in str(tab)
+    assert "95 % range" in str(tab)
+    assert "Load not seen" not in str(tab)

@@ -17,7 +17,7 @@ import pandas as pd
 from dash import Input, Output, callback, dcc, html, no_update
 
 from analysis.report import HIDDEN_NOTE_H, hidden_load_note
-from dashboard import figures, ids
+from dashboard import figures, ids, labels
 from dashboard.data import DataSource, current
 from dashboard.pages._parts import card, fmt, graph, missing, page_head, table
 
@@ -90,8 +90,9 @@ def render_trip(source: DataSource, start_date: str | None, end_date: str | None
             for r in df.itertuples()]  # a loop over days
     columns = list(_DAY_COLUMNS)
     notes: list[Any] = []
-    if df["consumed_Ah_lo"].notna().any():  # one shunt: the load under charging is estimated
+    if df["consumed_Ah_lo"].notna().any():  # every log has a range: the shunts' own errors at least
         columns.insert(2, ("range", "Used, 95 % range [Ah]"))
+    if (df["hidden_load_h"].fillna(0.0) > 0).any():  # one shunt: the load under charging is estimated
         columns.insert(3, ("unseen", "Load not seen [h]"))
         unseen = df[df["hidden_load_h"] > HIDDEN_NOTE_H]
         if len(unseen):
@@ -109,15 +110,14 @@ def _summary_card(label: str, value: str, note: str | None = None) -> html.Div:
     return card(label, value, note)
 
 
-def _gap_items(gaps: list[dict]) -> list[Any]:
+def _gap_items(gaps: list[dict], tz: str = "UTC") -> list[Any]:
     if not gaps:
         return [html.Li("No gaps in the log.")]
     total_h = sum(float(g.get("seconds") or 0) for g in gaps) / 3600
-    items: list[Any] = [html.Li(f"{len(gaps)} gap(s) in the log, {total_h:.1f} h in all: nothing is "
+    items: list[Any] = [html.Li(f"{labels.plural(len(gaps), 'gap')} in the log, {total_h:.1f} h in all: nothing is "
                                 "integrated across a gap, so those days are marked partial.")]
     longest = sorted(gaps, key=lambda g: -float(g.get("seconds") or 0))[:5]
-    items.extend(html.Li(f"gap from {str(g.get('start'))[:16].replace('T', ' ')} to "
-                         f"{str(g.get('end'))[:16].replace('T', ' ')} UTC "
+    items.extend(html.Li(f"gap from {labels.local_time(g.get('start'), tz)} to {labels.local_time(g.get('end'), tz)} "
                          f"({float(g.get('seconds') or 0) / 3600:.1f} h)", className="sub") for g in longest)
     return items
 
@@ -130,18 +130,18 @@ def _quality(source: DataSource, start_date: str, end_date: str) -> html.Div:
         dq = rep.value.get("data_quality", {})
         items.append(html.Li(f"{dq.get('rows_stored', 0):,} readings stored, "
                              f"{dq.get('rows_rejected', 0):,} rejected lines quarantined at import."))
-        items.extend(_gap_items(dq.get("gaps") or []))
+        items.extend(_gap_items(dq.get("gaps") or [], source.timezone()))
         for key, value in dq.items():
             if key.endswith("_why") or key in ("notes", "warnings"):
                 for line in value if isinstance(value, list) else [value]:
-                    items.append(html.Li(str(line)))
+                    items.append(html.Li(labels.for_people(line)))
     else:
         led = source.ledger(start_date, end_date)
         if led.ok:
             gaps = [{"start": getattr(g, "start", None), "end": getattr(g, "end", None),
                      "seconds": getattr(g, "seconds", None) or getattr(g, "duration_s", None)}
                     for g in getattr(led.value, "gaps", ())]
-            items.extend(_gap_items(gaps))
+            items.extend(_gap_items(gaps, source.timezone()))
             mode = getattr(led.value, "mode", None)
             if mode:
                 items.append(html.Li(f"Ledger built from {mode} readings."))
@@ -151,8 +151,8 @@ def _quality(source: DataSource, start_date: str, end_date: str) -> html.Div:
     imports = source.imports()
     if imports:
         rejected = sum(int(i.get("rows_rejected") or 0) for i in imports)
-        items.append(html.Li(f"{len(imports)} file(s) imported, {rejected:,} rejected line(s) in all; "
-                             "see System setup for the list."))
+        items.append(html.Li(f"{labels.plural(len(imports), 'file')} imported, "
+                             f"{labels.plural(rejected, 'rejected line')} in all; see System setup for the list."))
     return html.Ul(items, className="quality")
 
 
