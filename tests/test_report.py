@@ -232,9 +232,10 @@ def test_no_cold_caution_for_a_warm_lithium_bank():
     assert build_report(frame, system).to_json()["cautions"] == []
 
 
-def test_report_text_shows_the_95_percent_range_of_use_only_for_a_single_shunt():
+def test_report_text_shows_the_95_percent_range_of_use_and_says_what_it_rests_on():
     # The plain-text summary (dashboard.commands.report.describe) names the range the
-    # report JSON carries as consumed_Ah_pi95; a multi-channel log has none.
+    # report JSON carries as consumed_Ah_pi95: on one shunt the hidden load, with a shunt
+    # per source only the instruments' own errors (no "unseen" columns then).
     from dashboard.commands.report import describe
 
     day = {"date": "2026-09-21", "complete": True, "consumed_Ah": 48.2, "consumed_Wh": 644.0,
@@ -246,8 +247,14 @@ def test_report_text_shows_the_95_percent_range_of_use_only_for_a_single_shunt()
                      "peukert_k": 1.03, "peukert_k_source": "s", "internal_resistance_ohm": None,
                      "internal_resistance_ohm_why": "w"},
          "days": [dict(day, consumed_Ah_pi95=[43.2, 53.9])]}
+    j["data_quality"]["mode"] = "single-shunt"
     text = "\n".join(describe(j))
     assert "95 % range" in text and "43-54" in text
+    assert "one shunt" in text and "unseen h" in text
+    j["data_quality"]["mode"] = "multi-channel"
+    text = "\n".join(describe(j))
+    assert "95 % range" in text and "zero offset and gain" in text
+    assert "one shunt" not in text and "unseen h" not in text
     j["days"] = [day]
     assert "95 % range" not in "\n".join(describe(j))
 

@@ -124,6 +124,11 @@ def _pct(share: float | None) -> str:
     return "-" if share is None else f"{100 * share:.0f}"
 
 
+#: What the single-shunt 95 % range held on the report half of the independent test logs
+#: (benchmarks/independent_accuracy.py --half report; docs/validation.md).
+SINGLE_RANGE_HELD = "93 %"
+
+
 def describe(j: dict) -> list[str]:
     """The human summary of a report object (plain text, one line per day)."""
     p, dq, b, rt = j["period"], j["data_quality"], j["battery"], j.get("runtime", {})
@@ -140,10 +145,11 @@ def describe(j: dict) -> list[str]:
         out.append(f"  note: {note}")
     out.append("")
     ranged = any(d.get("consumed_Ah_pi95") for d in j["days"])
+    inferred = dq.get("mode") == "single-shunt"  # the load was estimated where a source charged
     head = (f"{'date':<10} {'full':>4} {'used Ah':>8} " + (f"{'95 % range':>11} " if ranged else "")
             + f"{'used Wh':>8} {'solar Ah':>8} {'alt Ah':>7} "
             f"{'shore Ah':>8} {'other Ah':>8} {'SoC min %':>9} {'SoC end %':>9}"
-            + (f" {'unseen h':>8} {'seen %':>6}" if ranged else ""))
+            + (f" {'unseen h':>8} {'seen %':>6}" if inferred else ""))
     out += [head, "-" * len(head)]
     for d in j["days"]:
         c = d["charged_Ah"]
@@ -155,11 +161,14 @@ def describe(j: dict) -> list[str]:
                    f"{_f(d['consumed_Wh'], '.0f'):>8} {_f(c['solar']):>8} {_f(c['alternator']):>7} "
                    f"{_f(c['shore']):>8} {_f(c['other']):>8} {_f(d['soc_min_pct']):>9} {_f(d['soc_end_pct']):>9}"
                    + (f" {_f(d.get('hidden_load_h'), '.1f'):>8} {_pct(d.get('observed_load_share')):>6}"
-                      if ranged else ""))
-    if ranged:
+                      if inferred else ""))
+    if ranged and not inferred:
+        out.append("(every load measured: the 95 % range is what the shunts' own zero offset and gain leave; "
+                   "see the note on the zero offset above)")
+    if inferred:
         out.append("(one shunt: the load is hidden while a source charges and is estimated; the 95 % range is "
-                   "where the day's use should lie, though on test logs made by other means it held only 86 % of "
-                   "days; unseen h = hours whose load was estimated, seen % = share of the day's use measured "
+                   f"where the day's use should lie - on test logs made by other means it held {SINGLE_RANGE_HELD} "
+                   "of days; unseen h = hours whose load was estimated, seen % = share of the day's use measured "
                    "directly)")
         unseen = [d for d in j["days"] if d.get("hidden_load_note")]
         if unseen:
