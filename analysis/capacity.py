@@ -84,6 +84,8 @@ class CapacityEstimate:
     state_of_health_pct: float | None
     pairs: tuple[AnchorPair, ...] = ()
     method: str = "Plett 2011 WLS (y = Q x) with effective variance"
+    #: When ``usable_Ah`` is None for want of precision: the 95 % range the data allow [Ah].
+    range_Ah: tuple[float, float] | None = None
 
 
 @dataclass(frozen=True)
@@ -299,7 +301,8 @@ def estimate_capacity(pairs: list[AnchorPair], system: System, *,
         return CapacityEstimate(None, None, f"the known-SoC anchors cannot pin the capacity: the data allow "
                                 f"{max(ci[0], 0):.0f}-{ci[1]:.0f} Ah (the rested voltages lie where the "
                                 f"chemistry's voltage curve differs between makers; a discharge into the steep "
-                                f"last 10 % or a longer log would pin it)", None, tuple(pairs))
+                                f"last 10 % or a longer log would pin it)", None, tuple(pairs),
+                                range_Ah=(max(ci[0], 0.0), ci[1]))
     return CapacityEstimate(q, ci, None, 100.0 * q / rated, tuple(pairs))
 
 

@@ -40,6 +40,7 @@ from analysis.charging import ChargingAnalysis, analyse_charging
 from analysis.ledger import SOURCES, LedgerResult, compute_ledger
 from analysis.readings import US_PER_S, split_channels
 from analysis.runtime import RuntimeEstimate, runtime_left
+from analysis.soc_band import capacity_range_Ah, soc_band_pct
 from analysis.solar import SolarAnalysis, analyse_solar
 from analysis.json_values import rounded
 from analysis.system import System
@@ -367,8 +368,19 @@ def _assemble(channels, system: System, rows_rejected: int, soc: SocResult | Non
     extras: dict[str, Any] = {"runtime": rt.to_json()}
     if soc is not None:
         idx = _downsample(soc.t_us, soc.soc)
+        c_rng = capacity_range_Ah(b.rated_capacity_Ah, cap.ci95_Ah, cap.range_Ah)
+        band_lo, band_hi = soc_band_pct(soc.t_us, soc.soc, soc.capacity_Ah, c_rng,
+                                        [(a.index, a.soc_pct, a.sigma) for a in soc.anchors], at=idx)
         extras["soc_series"] = {"t": [_iso_us(t) for t in soc.t_us[idx]],
-                                "soc_pct": [round(float(v), 2) for v in soc.soc[idx]]}
+                                "soc_pct": [round(float(v), 2) for v in soc.soc[idx]],
+                                "soc_pct_lo": [round(float(v), 2) for v in band_lo],
+                                "soc_pct_hi": [round(float(v), 2) for v in band_hi],
+                                "band_capacity_Ah": [_r(c_rng[0], 1), _r(c_rng[1], 1)],
+                                "band_why": ("95 % band: the capacity the count is divided by ("
+                                             + (f"measured, {c_rng[0]:.0f}-{c_rng[1]:.0f} Ah" if cap.ci95_Ah else
+                                                f"not pinned by the log: {c_rng[0]:.0f}-{c_rng[1]:.0f} Ah")
+                                             + "), each reset's own uncertainty and the shunt's zero offset "
+                                             "since then (docs/validation.md)")}
         extras["resyncs"] = [a.time.isoformat() for a in soc.anchors if a.kind == "full"]
         extras["ocv_anchors"] = [{"t": a.time.isoformat(), "soc_pct": round(a.soc_pct, 1), "kind": a.kind}
                                  for a in soc.capacity_anchors if a.kind != "full"]

@@ -71,6 +71,8 @@ class Score:
     undeclared_Ah: float = 0.0
     solar_err: list[float] = field(default_factory=list)
     rows: list[dict] = field(default_factory=list)   # one per scored day, for --dump
+    soc_in_band: float | None = None                  # share of truth points inside the 95 % band
+    soc_band_half: float | None = None                # median half-width of the band [points]
 
 
 def analyse(csv: Path, system_text: str, tmp: Path) -> dict:
@@ -128,7 +130,13 @@ def score(case: str, seed: int, layout: str, report: dict, truth: dict) -> Score
         inside = (t_true >= t_ours[0]) & (t_true <= t_ours[-1])
         if inside.any():
             est = np.interp(t_true[inside], t_ours, np.asarray(series["soc_pct"], float))
-            sc.soc_max_err = float(np.max(np.abs(est - np.asarray(truth["soc"]["soc_pct"], float)[inside])))
+            true_soc = np.asarray(truth["soc"]["soc_pct"], float)[inside]
+            sc.soc_max_err = float(np.max(np.abs(est - true_soc)))
+            if series.get("soc_pct_lo") is not None:
+                lo = np.interp(t_true[inside], t_ours, np.asarray(series["soc_pct_lo"], float))
+                hi = np.interp(t_true[inside], t_ours, np.asarray(series["soc_pct_hi"], float))
+                sc.soc_in_band = float(np.mean((true_soc >= lo - 0.5) & (true_soc <= hi + 0.5)))
+                sc.soc_band_half = float(np.median(hi - lo) / 2)
     return sc
 
 
@@ -198,6 +206,12 @@ def summarise(scores: list[Score]) -> list[str]:
     if soc:
         lines.append(f"SoC series within {SOC_TOL_PTS:.0f} points of the truth at all times: "
                      f"{sum(x <= SOC_TOL_PTS for x in soc)}/{len(soc)} logs (worst {max(soc):.1f} points)")
+    band = [s for s in scores if s.soc_in_band is not None]
+    if band:
+        share = np.array([s.soc_in_band for s in band])
+        lines.append(f"SoC 95 % band holds the truth: {100 * share.mean():.0f} % of points over {len(band)} logs "
+                     f"(>= 95 % of points on {(share >= 0.95).sum()} logs; worst log {100 * share.min():.0f} %), "
+                     f"median half-width {np.median([s.soc_band_half for s in band]):.1f} points")
     lines.append(f"Ah booked to undeclared sources: {sum(s.undeclared_Ah for s in scores):.1f}")
     return lines
 

@@ -373,6 +373,15 @@ def _report_days(report: Any) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=_DAY_COLUMNS)
 
 
+def soc_band_of(report: Any) -> pd.DataFrame | None:
+    """The report's 95 % SoC band (``lo``/``hi`` [%] by UTC time), or None."""
+    s = (report.extras.get("soc_series") if hasattr(report, "extras") else None) or {}
+    if not s.get("soc_pct_lo"):
+        return None
+    return pd.DataFrame({"lo": s["soc_pct_lo"], "hi": s["soc_pct_hi"]},
+                        index=pd.to_datetime(s["t"], utc=True), dtype="float64")
+
+
 def _soc_of(report: Report) -> tuple[pd.Series | None, list[pd.Timestamp]]:
     """The report's SoC series [%] and its full-charge resync times."""
     resync = list(report.extras.get("resyncs") or [])
@@ -716,6 +725,11 @@ class DataSource:
         if led.ok and getattr(led.value, "soc", None) is not None:
             return Section(_soc_of(led.value))
         return Section(why=led.why or rep.why or "No state-of-charge estimate (no battery channel).")
+
+    def soc_band(self, start_date: str | None = None, end_date: str | None = None) -> pd.DataFrame | None:
+        """The 95 % band of the SoC estimate over the range, or None."""
+        rep = self.report(start_date, end_date)
+        return soc_band_of(rep.value) if rep.ok else None
 
     def health(self, start_date: str, end_date: str) -> Section[Health]:
         """Capacity, internal resistance and Peukert pieces of the report (see :class:`Health`)."""

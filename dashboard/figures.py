@@ -252,7 +252,8 @@ def ledger_figure(days: pd.DataFrame) -> go.Figure:
 
 
 def soc_figure(soc: pd.Series | None, *, resync_times: Sequence[Any] = (), tz: str = "UTC",
-               device_soc: pd.Series | None = None, n_out: int = SCREEN_POINTS) -> go.Figure:
+               device_soc: pd.Series | None = None, n_out: int = SCREEN_POINTS,
+               band: pd.DataFrame | None = None) -> go.Figure:
     """State of charge over time with the detected full charges marked (SoC set to 100 % there).
 
     Parameters
@@ -263,6 +264,8 @@ def soc_figure(soc: pd.Series | None, *, resync_times: Sequence[Any] = (), tz: s
         Times at which the estimate was reset to 100 % (full charge detected).
     device_soc
         The monitor's own figure [%], drawn thin for comparison when given.
+    band
+        ``lo``/``hi`` columns [%] indexed by UTC time: the estimate's 95 % band, shaded.
     """
     if (soc is None or soc.empty) and (device_soc is None or device_soc.empty):
         return message_figure("No state-of-charge estimate for this range.", title="State of charge")
@@ -271,6 +274,12 @@ def soc_figure(soc: pd.Series | None, *, resync_times: Sequence[Any] = (), tz: s
         fig.add_trace(_line(pd.DatetimeIndex(device_soc.index).tz_convert(tz).tz_localize(None),
                             device_soc.to_numpy(), name="monitor's own figure", colour=PALETTE["expected"],
                             width=1.0, n_out=n_out))
+    if band is not None and not band.empty:
+        bx = pd.DatetimeIndex(band.index).tz_convert(tz).tz_localize(None)
+        fig.add_trace(go.Scatter(x=bx, y=band["hi"].to_numpy(), mode="lines", line={"width": 0},
+                                 hoverinfo="skip", showlegend=False, name="95 % band (upper)"))
+        fig.add_trace(go.Scatter(x=bx, y=band["lo"].to_numpy(), mode="lines", line={"width": 0}, fill="tonexty",
+                                 fillcolor="rgba(90, 110, 140, 0.18)", name="95 % band"))
     if soc is not None and not soc.empty:
         fig.add_trace(_line(pd.DatetimeIndex(soc.index).tz_convert(tz).tz_localize(None), soc.to_numpy(),
                             name="estimated", colour=PALETTE["soc"], n_out=n_out))

@@ -31,7 +31,7 @@ from plotly.offline import get_plotlyjs
 
 from analysis.system import System
 from dashboard import figures, labels
-from dashboard.data import _health_of, _report_days, _soc_of, _to_json
+from dashboard.data import _health_of, _report_days, _soc_of, _to_json, soc_band_of
 
 #: The dashboard footer's caution (dashboard/app.py ``_shell``), repeated word for word at the foot of the report.
 SAFETY_CAUTION = ("Figures come from your own logs; advice on cables, fuses and chargers must be checked against "
@@ -119,7 +119,8 @@ def report_figures(report: Any, *, system: System | None = None, solar: Any = No
     j = _to_json(report)
     tz = system.site.timezone if system is not None else "UTC"
     soc, resync = _soc_series(report, j)
-    trip = [figures.soc_figure(soc, resync_times=resync, tz=tz), figures.ledger_figure(_report_days(report))]
+    trip = [figures.soc_figure(soc, resync_times=resync, tz=tz, band=soc_band_of(report)),
+            figures.ledger_figure(_report_days(report))]
 
     b = j.get("battery") or {}
     health: list[go.Figure] = []

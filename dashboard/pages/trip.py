@@ -178,12 +178,15 @@ def render_soc(source: DataSource, start_date: str | None, end_date: str | None,
     if not soc.ok:
         return figures.message_figure(f"State of charge: {soc.why}", title="State of charge")
     series, resync = soc.value
+    band = source.soc_band(start_date, end_date)
     tz = source.timezone()
     window = figures.relayout_x_range(relayout, tz=tz)
     if isinstance(window, tuple):
         series = series[(series.index >= window[0]) & (series.index < window[1])]
         resync = [t for t in resync if window[0] <= t < window[1]]
-    fig = figures.soc_figure(series, resync_times=resync, tz=tz)
+        if band is not None:
+            band = band[(band.index >= window[0]) & (band.index < window[1])]
+    fig = figures.soc_figure(series, resync_times=resync, tz=tz, band=band)
     if isinstance(window, tuple):
         fig.update_xaxes(range=[window[0].tz_convert(tz).tz_localize(None), window[1].tz_convert(tz).tz_localize(None)])
     return fig
