@@ -158,6 +158,7 @@ def run_case(name: str, seed: int, days: int | None, tmp: Path, verbose: bool) -
             cap = "null" if s.cap_err is None else f"{100 * s.cap_err:+.1f} %{'' if s.cap_in_ci else ' (CI misses)'}"
             print(f"  {name:18s} seed {seed} {layout:6s} consumed % [{errs}]  capacity {cap}  "
                   f"SoC max err {s.soc_max_err if s.soc_max_err is None else round(s.soc_max_err, 1)}  "
+                  f"in band {'-' if s.soc_in_band is None else f'{100 * s.soc_in_band:.0f} %'}  "
                   f"undeclared {s.undeclared_Ah:.1f} Ah", flush=True)
     return out
 
