@@ -477,8 +477,12 @@ def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: n
     days_seen_at = (cell_h >= 0.5).sum(axis=0)
     unseen_hour = fall_use & finite & (days_seen_at[hr_int] < MIN_SEEN_DAYS)
     held_fill = (fall_use & finite & hidden_load) | unseen_hour
-    held_excess = np.bincount(d_bin, weights=np.where(held_fill, np.clip(load_a - np.maximum(base_level, load_obs),
-                                                                         0.0, None) * hrs, 0.0),
+    # A held hour's load is at least the always-on draw; an hour of the day never seen on any
+    # day is known only to be at least what the bank gave up then (daytime loads may be lighter
+    # than the nights' always-on draw: a heater fan that runs only at night). Tried on the tune
+    # half: 95.3 -> 97.2 % coverage, low-side median half-width 35 -> 40 %.
+    floor_A = np.where(unseen_hour, load_obs, np.maximum(base_level, load_obs))
+    held_excess = np.bincount(d_bin, weights=np.where(held_fill, np.clip(load_a - floor_A, 0.0, None) * hrs, 0.0),
                               minlength=n_days)[:n_days]
     fb_lo = np.minimum(fb_lo, fall_ah - held_excess)
     # With nothing to learn from, the range is as wide above the typical guess as below it

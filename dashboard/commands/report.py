@@ -15,7 +15,7 @@ from typing import Any
 import pandas as pd
 
 from dashboard.context import Context, UsageError, print_json, warn
-from dashboard.labels import local_time
+from dashboard.labels import chemistry, for_people, local_time, plural
 
 
 def _local_bound(text: str | None, tz: str, *, end: bool, option: str) -> pd.Timestamp | None:
@@ -126,7 +126,7 @@ def _pct(share: float | None) -> str:
 
 #: What the single-shunt 95 % range held on the report half of the independent test logs
 #: (benchmarks/independent_accuracy.py --half report; docs/validation.md).
-SINGLE_RANGE_HELD = "93 %"
+SINGLE_RANGE_HELD = "96 %"
 
 
 def describe(j: dict) -> list[str]:
@@ -134,15 +134,16 @@ def describe(j: dict) -> list[str]:
     p, dq, b, rt = j["period"], j["data_quality"], j["battery"], j.get("runtime", {})
     tz = p.get("timezone") or "UTC"
     out = [f"period: {local_time(p['start'], tz)} to {local_time(p['end'], tz)} ({p['days']} local days, {tz})",
-           (f"data quality: {dq['rows_stored']} rows stored, {dq['rows_rejected']} rejected, "
-            f"{len(dq['gaps'])} gap(s); {dq.get('complete_days', 0)} complete day(s); mode: {dq.get('mode', '')}")]
+           (f"data quality: {dq['rows_stored']:,} rows stored, {dq['rows_rejected']:,} rejected, "
+            f"{plural(len(dq['gaps']), 'gap')}; {plural(int(dq.get('complete_days', 0)), 'complete day')}; "
+            f"mode: {dq.get('mode', '')}")]
     for g in dq["gaps"][:10]:
         out.append(f"  gap on {g.get('channel', '?')}: {local_time(g['start'], tz)} to {local_time(g['end'], tz)} "
                    f"({g['seconds']:.0f} s) - energy unknown")
     if len(dq["gaps"]) > 10:
         out.append(f"  ... and {len(dq['gaps']) - 10} more gaps")
     for note in dq.get("notes", []):
-        out.append(f"  note: {note}")
+        out.append(f"  note: {for_people(note)}")
     out.append("")
     ranged = any(d.get("consumed_Ah_pi95") for d in j["days"])
     inferred = dq.get("mode") == "single-shunt"  # the load was estimated where a source charged
@@ -172,24 +173,24 @@ def describe(j: dict) -> list[str]:
                    "directly)")
         unseen = [d for d in j["days"] if d.get("hidden_load_note")]
         if unseen:
-            out.append(f"On {len(unseen)} day(s) the load was not seen for more than an hour: "
+            out.append(f"On {plural(len(unseen), 'day')} the load was not seen for more than an hour: "
                        f"{unseen[0]['hidden_load_note'].split(': ', 1)[-1]}.")
     out.append("")
-    out.append(f"battery ({b.get('chemistry', '')}): rated {_f(b['rated_Ah'], '.0f')} Ah")
+    out.append(f"battery ({chemistry(b.get('chemistry'))}): rated {_f(b['rated_Ah'], '.0f')} Ah")
     if b["usable_Ah"] is not None:
         lo, hi = b["usable_Ah_ci95"] or (None, None)
         out.append(f"  usable capacity {_f(b['usable_Ah'])} Ah (95 % interval {_f(lo)}-{_f(hi)} Ah), "
                    f"state of health {_f(b['state_of_health_pct'], '.0f')} %")
     else:
-        out.append(f"  usable capacity: unknown - {b.get('usable_Ah_why')}")
+        out.append(f"  usable capacity: unknown - {for_people(b.get('usable_Ah_why'))}")
     out.append(f"  Peukert exponent {_f(b['peukert_k'], '.3f')} ({b.get('peukert_k_source')})"
-               + (f" - {b['peukert_k_why']}" if b.get("peukert_k_why") else ""))
+               + (f" - {for_people(b['peukert_k_why'])}" if b.get("peukert_k_why") else ""))
     if b["internal_resistance_ohm"] is not None:
         trend = b.get("internal_resistance_trend_ohm_per_30d")
-        out.append(f"  internal resistance {1000 * b['internal_resistance_ohm']:.1f} mOhm"
-                   + (f", trend {1000 * trend:+.2f} mOhm per 30 days" if trend is not None else ""))
+        out.append(f"  internal resistance {1000 * b['internal_resistance_ohm']:.1f} mΩ"
+                   + (f", trend {1000 * trend:+.2f} mΩ per 30 days" if trend is not None else ""))
     else:
-        out.append(f"  internal resistance: unknown - {b.get('internal_resistance_ohm_why')}")
+        out.append(f"  internal resistance: unknown - {for_people(b.get('internal_resistance_ohm_why'))}")
     dis = j.get("device_soc_disagreement_days") or []
     if dis:
         out.append("  the monitor's own SoC disagrees by > 5 % on: " + ", ".join(d["date"] for d in dis))
@@ -218,7 +219,7 @@ def describe(j: dict) -> list[str]:
     if findings:
         out.append("")
         out.append("charging:")
-        out.extend(f"  {f}" for f in findings)
+        out.extend(f"  {for_people(f)}" for f in findings)
     for caution in j.get("cautions") or []:
-        out.append(f"CAUTION: {caution}")
+        out.append(f"CAUTION: {for_people(caution)}")
     return out
