@@ -17,7 +17,7 @@ INTERRUPT_LFP = ("A lithium (LiFePO4) bank can deliver several kA into a short c
                  "fuse or class T fuse), not an automotive blade or plain ANL-type fuse.")
 INTERRUPT_LEAD = ("A lead-acid bank can deliver thousands of amps into a short circuit: choose a main "
                   "fuse whose interrupt rating exceeds it.")
-LFP_COLD = ("Lithium (LiFePO4) must not be charged below 0 degC (common practice; lithium plating): "
+LFP_COLD = ("Lithium (LiFePO4) must not be charged below 0 °C (common practice; lithium plating): "
             "use a BMS with low-temperature charge cut-off, or heat the bank.")
 STARTER = ("Protect the starter battery: trigger the DC-DC charger on ignition, D+ or an engine-running "
            "signal (smart alternators can sit at 12.2-12.8 V), keep a low-voltage cut-off on the starter "
@@ -50,7 +50,7 @@ def build_cautions(*, chemistry: str, min_temperature_C: float | None = None,
     out = [GENERAL, FUSE_AT_SOURCE, INTERRUPT_LFP if chemistry == "lifepo4" else INTERRUPT_LEAD]
     if chemistry == "lifepo4":
         if min_temperature_C is not None and min_temperature_C < 0:
-            out.append(f"The logs went down to {min_temperature_C:.1f} degC. " + LFP_COLD)
+            out.append(f"The logs went down to {min_temperature_C:.1f} °C. " + LFP_COLD)
         else:
             out.append(LFP_COLD)
     if has_dc_dc:

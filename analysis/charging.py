@@ -328,7 +328,8 @@ def analyse_charging(readings: pd.DataFrame, system: System) -> ChargingAnalysis
         if derated.any():
             findings.append(
                 f"{source} current sagged mid-session in {int(derated.sum())} of {int((~is_float).sum())} "
-                f"charging session(s) while the bank was not full: temperature derating of the charger"
+                f"charging session{'' if int((~is_float).sum()) == 1 else 's'} while the bank was not full: "
+                f"temperature derating of the charger"
                 + (", or a smart alternator lowering its voltage" if source == "alternator" else ""))
         if source == "alternator" and cycles >= 2:
             findings.append(
@@ -374,8 +375,8 @@ def analyse_charging(readings: pd.DataFrame, system: System) -> ChargingAnalysis
         cold = {"minutes": _r(minutes, 0), "min_temperature_C": _r(float(np.nanmin(temp_C[freezing])), 1)
                 if freezing.any() else None}
         if freezing.any():
-            findings.append(f"the LiFePO4 bank was charged for {minutes:.0f} min below 0 degC "
-                            f"(lowest {np.nanmin(temp_C[freezing]):.1f} degC): lithium must not be charged "
+            findings.append(f"the LiFePO4 bank was charged for {minutes:.0f} min below 0 °C "
+                            f"(lowest {np.nanmin(temp_C[freezing]):.1f} °C): lithium must not be charged "
                             f"below freezing; check the BMS low-temperature cut-off or fit a heater")
     sessions = pd.concat(session_frames, ignore_index=True) if session_frames else empty_sessions
     return ChargingAnalysis(sources=sources, sessions=sessions, series=series, findings=findings,

@@ -343,7 +343,7 @@ def _assemble(channels, system: System, rows_rejected: int, soc: SocResult | Non
                                             for r in ir.per_day.itertuples(index=False)] if len(ir.per_day) else []}
     battery["charge_efficiency"] = _r(b.effective_charge_efficiency, 3)
     if eta is not None and eta.cycles and eta.eta is not None:
-        battery["charge_efficiency_source"] = (f"measured over {eta.cycles} full-to-full cycle(s), weighed "
+        battery["charge_efficiency_source"] = (f"measured over {eta.cycles} full-to-full cycle{'' if eta.cycles == 1 else 's'}, weighed "
                                                "against the chemistry default")
         battery["charge_efficiency_sigma"] = _r(eta.sigma, 3)
     elif b.charge_efficiency is not None and (eta is None or not eta.cycles):

@@ -841,8 +841,8 @@ def recommend(system: System, days: pd.DataFrame | None, *, autonomy_days: float
         "autonomy_days": target, "percentile": percentile, "design_Wh_per_day": design_Wh,
         "design_Ah_per_day": design_Ah, "design_source": design.source,
         "max_dod": dod, "design_temperature_C": design_T, "temperature_factor": k_t,
-        "temperature_factor_source": ("IEC 60896-11 lambda 0.006/degC (from memory)" if chem != "lifepo4"
-                                      else "LiFePO4: 1 above 0 degC (FIELDREF §2)"),
+        "temperature_factor_source": ("IEC 60896-11 lambda 0.006/°C (from memory)" if chem != "lifepo4"
+                                      else "LiFePO4: 1 above 0 °C (common practice)"),
         "charge_efficiency": eta, "performance_ratio": pr, "performance_ratio_source": pr_source,
         "design_month": design_month, "run_lengths_one_way_m": lengths, "conductor_temperature_C":
         conductor_temperature_C, "insulation_rating_C": insulation_C, "bundled_conductors": 1,

@@ -477,7 +477,7 @@ def analyse_solar(readings: pd.DataFrame, system: System, *,
         counts = {k: int(sum(1 for s in sky if s == k)) for k in ("partly cloudy", "overcast")}
         n_sat = int(np.sum((coverage >= MIN_COVERAGE) & (unsat_share < MIN_UNSATURATED_SHARE)))
         pr, spread, derate_dc = None, None, None
-        pr_why = (f"no clear day with enough unsaturated, logged daylight among {ndays} day(s) "
+        pr_why = (f"no clear day with enough unsaturated, logged daylight among {ndays} day{'' if ndays == 1 else 's'} "
                   f"({counts['partly cloudy']} partly cloudy, {counts['overcast']} overcast, "
                   f"{n_sat} mostly saturated)")
     else:
@@ -569,7 +569,7 @@ def _diagnostics(series: pd.DataFrame, system: System, *, h: float, source: str 
         "measured_from": source,
         "bank_voltage_from": voltage_source,
         "air_temperature_from": temp_source if temp_source != "none"
-        else f"not logged: {DEFAULT_TEMP_AIR_C} degC assumed",
+        else f"not logged: {DEFAULT_TEMP_AIR_C} °C assumed",
         "interval_minutes": BIN_MINUTES,
         "model": {"clear_sky": "pvlib Ineichen-Perez, Linke turbidity climatology",
                   "transposition": "pvlib get_total_irradiance, isotropic",

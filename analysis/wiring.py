@@ -518,16 +518,16 @@ def size_run(current_A: float, length_m: float, voltage_V: float, *, name: str =
         "bundled_conductors": bundled,
         "engine_space": engine_space,
         "smallest_conductor": "18 AWG (multiconductor sheath)" if sheathed else
-                              "16 AWG / 1.5 mm2 (installed separately; 33 CFR 183.425(e))",
+                              "16 AWG / 1.5 mm² (installed separately; 33 CFR 183.425(e))",
         "copper": "tinned" if tinned else "plain",
         "derate_factors": factors,
         "derate_total": round(derate, 4),
-        "ampacity_table": "33 CFR 183.425 Table 5 (30 degC ambient; engine space 50 degC); "
+        "ampacity_table": "33 CFR 183.425 Table 5 (30 °C ambient; engine space 50 °C); "
                           "metric sizes take the rating of the largest AWG not larger than them",
-        "resistance_metric": ("IEC 60228 class 5 maximum at 20 degC, corrected with IEC 60028 alpha 0.00393/K"
+        "resistance_metric": ("IEC 60228 class 5 maximum at 20 °C, corrected with IEC 60028 alpha 0.00393/K"
                               if resistance_basis == "iec60228" else
-                              "IEC 60028 resistivity 1/58 ohm mm2/m at 20 degC on the nominal area"),
-        "resistance_awg": "ASTM B258 area with IEC 60028 resistivity 1/58 ohm mm2/m at 20 degC",
+                              "IEC 60028 resistivity 1/58 Ω mm²/m at 20 °C on the nominal area"),
+        "resistance_awg": "ASTM B258 area with IEC 60028 resistivity 1/58 Ω mm²/m at 20 °C",
         "fuse_rule": "1.25 x continuous current <= fuse <= derated cable ampacity "
                      "(NEC 210.20(A)/215.3, NEC 240.4; from memory); standard ratings NEC 240.6(A)",
         "protect_current_A": protect,
@@ -544,9 +544,9 @@ def size_run(current_A: float, length_m: float, voltage_V: float, *, name: str =
         why = (f"125 % of {protect:.1f} A exceeds the largest standard fuse here (800 A): "
                "split the load over parallel runs, each with its own fuse")
     elif metric is None or awg is None:
-        missing = " and ".join(s for s, c in (("metric (up to 120 mm2)", metric), ("AWG (up to 4/0)", awg))
+        missing = " and ".join(s for s, c in (("metric (up to 120 mm²)", metric), ("AWG (up to 4/0)", awg))
                                if c is None)
-        why = (f"no standard {missing} conductor meets a {limit:g} % drop (needs >= {need_area:.1f} mm2) "
+        why = (f"no standard {missing} conductor meets a {limit:g} % drop (needs >= {need_area:.1f} mm²) "
                f"and a {fuse:g} A fuse within its ampacity: use parallel conductors, a shorter run "
                "or a higher system voltage")
     primary = metric

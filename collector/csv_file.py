@@ -19,6 +19,10 @@ and ``rows_stored + rows_rejected == data_lines``. A data line is any line after
 header row that is not blank and not a repeat of the header. A duplicate line (same time as an
 earlier line: ``duplicate`` when its values are also equal, ``duplicate_time`` when they differ;
 the first one is kept) is counted as *rejected* and quarantined like every other rejected line.
+A stored line whose readings the store already holds (same channel, time and values: the same
+data imported before from another file) is not written again; ``rows_already_held`` counts such
+lines and ``rows_added`` the rest of ``rows_stored``. A reading at a held time with another value
+is written (the newest write wins when the store is read).
 Blank lines and the preamble before the header are reported (``blank_lines``,
 ``preamble_lines``) but are not data lines. Every rejected line is written, with its line
 number and reason, to ``store.quarantine_dir / '<file-stem>-<sha8>.csv'`` (columns
@@ -109,7 +113,15 @@ _TIME_MIN_US = int(TIME_MIN.value // 1000)
 
 
 class UnusableInput(ValueError):
-    """The file cannot be imported at all (nothing is stored); the message names the file and why."""
+    """The file cannot be imported at all (nothing is stored); the message names the file and why.
+
+    ``page_message`` is the same refusal for the dashboard's upload, which has no command-line
+    options: it never advises a flag (``--map``, ``--tz``) that the page does not have.
+    """
+
+    def __init__(self, message: str, *, page_message: str | None = None):
+        super().__init__(message)
+        self.page_message = page_message or message
 
 
 class NothingStored(UnusableInput):
@@ -120,8 +132,8 @@ class NothingStored(UnusableInput):
     the cause (a wrong ``--tz``, a clock that was not set) is fixed.
     """
 
-    def __init__(self, message: str, result: ImportResult):
-        super().__init__(message)
+    def __init__(self, message: str, result: ImportResult, *, page_message: str | None = None):
+        super().__init__(message, page_message=page_message)
         self.result = result
 
 
@@ -185,6 +197,11 @@ class ImportResult:
     sha256: str | None = None
     seconds: float | None = None
     previous_import: dict[str, Any] | None = None  # for already_imported: when, and what it stored
+    #: Of ``rows_stored``: lines whose readings (channel, time and values) the store already held,
+    #: from an earlier import of another file with the same readings; not written again.
+    rows_already_held: int = 0
+    #: Of ``rows_stored``: lines written now (``rows_stored - rows_already_held``).
+    rows_added: int = 0
 
     def to_json(self) -> dict[str, Any]:
         out = {k: getattr(self, k) for k in self.__dataclass_fields__}
@@ -345,9 +362,9 @@ def sniff_format(path: Path, head: bytes, *, channel: str, column_map: dict[str,
             if f and len(f) == mode and sum(not _looks_numeric(x) for x in f) == len(f):
                 if any(spec_of(x) is not None for x in f):
                     names = ", ".join(repr(x) for x in f)
-                    raise UnusableInput(
-                        f"{path}: no time column among the header fields ({names}); name it 'time' or "
-                        "'timestamp', or pass --map COLUMN=time (or epoch_s / epoch_ms)")
+                    what = f"{path}: no time column among the header fields ({names}); name it 'time' or 'timestamp'"
+                    raise UnusableInput(f"{what}, or pass --map COLUMN=time (or epoch_s / epoch_ms)",
+                                        page_message=f"{what} in the file's header line and upload it again")
         raise UnusableInput(
             f"{path}: no header row naming the columns in the first {len(lines)} lines (expected e.g. "
             "'time,voltage_V,current_A'); add a header line or export the log with column names")
@@ -384,10 +401,10 @@ def sniff_format(path: Path, head: bytes, *, channel: str, column_map: dict[str,
         taken.add(key)
         cols[j] = spec
     if not taken:
-        raise UnusableInput(
-            f"{path}: no voltage, current, power, temperature or state-of-charge column among "
-            f"{', '.join(repr(h) for h in header)}; name them e.g. 'voltage_V', 'current_A', or pass "
-            "--map COLUMN=current_A")
+        what = (f"{path}: no voltage, current, power, temperature or state-of-charge column among "
+                f"{', '.join(repr(h) for h in header)}; name them e.g. 'voltage_V', 'current_A'")
+        raise UnusableInput(f"{what}, or pass --map COLUMN=current_A",
+                            page_message=f"{what} in the file's header line and upload it again")
 
     # choose the time field(s): a single full timestamp, else a date column plus a clock column
     kind = None
@@ -859,8 +876,9 @@ def _strict_strptime(text: pa.ChunkedArray, fmt: str) -> pa.ChunkedArray | None:
 
 def _epoch_to_us(raw: np.ndarray, scale_s: float) -> tuple[np.ndarray, np.ndarray]:
     raw = np.asarray(raw, dtype=np.float64)
-    bad = ~np.isfinite(raw) | (np.abs(raw * scale_s) > 1e11)
-    t = np.where(bad, 0.0, raw * (scale_s * 1e6))
+    with np.errstate(over="ignore", invalid="ignore"):  # a huge number is a bad time, not a warning
+        bad = ~np.isfinite(raw) | (np.abs(raw * scale_s) > 1e11)
+        t = np.where(bad, 0.0, raw * (scale_s * 1e6))
     return np.round(t).astype(np.int64), bad
 
 
@@ -1152,6 +1170,7 @@ def import_file(path: Path, store: Store, *, tz: str | None = None, channel: str
             sample_interval_s=s.get("sample_interval_s"), gaps=[], quarantine=s.get("quarantine"),
             data_lines=int(s.get("data_lines", 0)), time_span=s.get("time_span"), sha256=sha,
             timezone_used=s.get("timezone_used"), seconds=_time.perf_counter() - t0,
+            rows_already_held=int(previous["rows_stored"]), rows_added=0,
             previous_import={"path": previous["path"], "imported_at": previous["imported_at"],
                              "rows_stored": previous["rows_stored"], "rows_rejected": previous["rows_rejected"]})
     with open(path, "rb") as f:
@@ -1380,6 +1399,22 @@ def _import_text(path: Path, src: Path, store: Store, *, head: bytes, size: int,
     for ch in unknown_forced:
         evidence[ch] = f"--invert {ch}: no such channel in this file (channels: {', '.join(channels)})"
 
+    # readings the store already holds (the same data imported before from another file, e.g. a
+    # copy that differs only in line ends): kept out of the write, counted
+    write_mask: dict[str, np.ndarray] = {}
+    held_line = np.ones(len(t), bool)
+    any_value = np.zeros(len(t), bool)
+    for ch in channels:
+        cols = {q: values[(ch, q)] for q in VALUE_COLUMNS if (ch, q) in values}
+        has = np.zeros(len(t), bool)
+        for c in cols.values():
+            has |= ~np.isnan(c)
+        held = _already_held(store, ch, t, cols, has)
+        write_mask[ch] = has & ~held
+        held_line &= held | ~has
+        any_value |= has
+    rows_already_held = int(np.count_nonzero(held_line & any_value))
+
     # intervals and gaps
     interval = gaps_total = None
     gaps: list[Gap] = []
@@ -1408,20 +1443,19 @@ def _import_text(path: Path, src: Path, store: Store, *, head: bytes, size: int,
                                                      else f"{s.channel}.{s.quantity}")
                  for j, s in fmt.columns.items()},
         columns_ignored=list(fmt.ignored), delimiter=fmt.delimiter,
-        decimal=fmt.decimal, encoding=encoding or fmt.encoding, line_ends=line_ends, sha256=sha, seconds=None)
+        decimal=fmt.decimal, encoding=encoding or fmt.encoding, line_ends=line_ends, sha256=sha, seconds=None,
+        rows_already_held=rows_already_held, rows_added=rows_stored - rows_already_held)
 
     with store.transaction():
         import_id = store.record_import(path=str(path), sha256=sha, rows_stored=rows_stored,
                                         rows_rejected=rows_rejected, summary={})
         for ch in channels:
             cols = {q: values[(ch, q)] for q in VALUE_COLUMNS if (ch, q) in values}
-            has = np.zeros(len(t), bool)
-            for c in cols.values():
-                has |= ~np.isnan(c)
-            if has.all():
+            new = write_mask[ch]
+            if new.all():
                 store.append_arrays(ch, t, cols, import_id=import_id)
-            elif has.any():
-                store.append_arrays(ch, t[has], {q: c[has] for q, c in cols.items()}, import_id=import_id)
+            elif new.any():
+                store.append_arrays(ch, t[new], {q: c[new] for q, c in cols.items()}, import_id=import_id)
         if quarantine is not None:
             _write_quarantine(Path(quarantine), src, rejects, fmt.encoding)
         final = _replace(result, seconds=round(_time.perf_counter() - t0, 3))
@@ -1430,14 +1464,32 @@ def _import_text(path: Path, src: Path, store: Store, *, head: bytes, size: int,
     return final
 
 
+def _already_held(store: Store, channel: str, t: np.ndarray, cols: dict[str, np.ndarray],
+                  has: np.ndarray) -> np.ndarray:
+    """Per row of ``t`` (sorted): True when the store already holds this channel's reading at that
+    time with every value the row has (a value the store lacks, or holds differently, is new)."""
+    out = np.zeros(len(t), bool)
+    if not has.any():
+        return out
+    held_t, held_v = store.held(channel, int(t[0]), int(t[-1]))
+    if held_t.size == 0:
+        return out
+    pos = np.minimum(np.searchsorted(held_t, t), held_t.size - 1)
+    out = (held_t[pos] == t) & has
+    for q, c in cols.items():
+        h = held_v[VALUE_COLUMNS.index(q)][pos]
+        out &= np.isnan(c) | (h == c)
+    return out
+
+
 #: What to check when every line of a file was rejected for one of these reasons.
 _ALL_REJECTED_HINTS = {
     "time_out_of_range": (f"times before {TIME_MIN:%Y-%m-%d} or after tomorrow: was the logger's clock set? "
                           "(a clock that lost its setting often restarts at 1970 or 2000)"),
     "time_without_offset": "the times carry no UTC offset while the file's first times did",
     "bad_time": "the times are not in a form drawdown reads (ISO 8601, a local date-time or a Unix epoch)",
-    "nonexistent_local_time": "every time falls in a skipped daylight-saving hour: is --tz right?",
-    "ambiguous_local_time": "every time falls in a repeated daylight-saving hour: is --tz right?",
+    "nonexistent_local_time": "every time falls in a skipped daylight-saving hour: is the timezone right?",
+    "ambiguous_local_time": "every time falls in a repeated daylight-saving hour: is the timezone right?",
     "wrong_field_count": "the lines do not have as many fields as the header",
     "non_numeric": "the values are not numbers (a different decimal mark or delimiter?)",
     "no_values": "the lines hold a time but no value",
@@ -1465,8 +1517,12 @@ def _refuse_all_rejected(path: Path, src: Path, store: Store, *, sha: str, data_
     counted = ", ".join(f"{n} {why}" for why, n in sorted(by_reason.items(), key=lambda kv: -kv[1]))
     top = max(by_reason, key=lambda k: by_reason[k])
     hint = _ALL_REJECTED_HINTS.get(top)
-    raise NothingStored(f"{path}: every one of its {data_lines} data lines was rejected ({counted}); nothing "
-                        "stored" + (f" - {hint}" if hint else ""), result)
+    what = f"{path}: every one of its {data_lines} data lines was rejected ({counted}); nothing stored"
+    zone = top in ("nonexistent_local_time", "ambiguous_local_time", "time_without_offset")
+    raise NothingStored(what + (f" - {hint}" if hint else "")
+                        + (" (--tz ZONE, or the site timezone in system.toml)" if zone else ""), result,
+                        page_message=what + (f" - {hint}" if hint else "")
+                        + (" (the site timezone on this page's system description)" if zone else ""))
 
 
 def _replace(r: ImportResult, **kw: Any) -> ImportResult:

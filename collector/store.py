@@ -22,7 +22,10 @@ overlapping logs) is returned once, the newest write winning.
 from __future__ import annotations
 
 import contextlib
+import errno
 import json
+import os
+import shutil
 import sqlite3
 import time
 from collections.abc import Iterable, Iterator
@@ -104,6 +107,50 @@ class StoreError(RuntimeError):
     """The store file cannot be opened or used; the message names the file."""
 
 
+def _is_full(exc: BaseException) -> bool:
+    code = getattr(exc, "sqlite_errorcode", None)
+    return code == getattr(sqlite3, "SQLITE_FULL", 13) or "disk is full" in str(exc).lower() or \
+        getattr(exc, "errno", None) == errno.ENOSPC
+
+
+def _is_read_only(exc: BaseException) -> bool:
+    code = getattr(exc, "sqlite_errorcode", None)
+    base = code & 0xFF if isinstance(code, int) else None
+    text = str(exc).lower()
+    return base == getattr(sqlite3, "SQLITE_READONLY", 8) or "readonly" in text or "read-only" in text or \
+        getattr(exc, "errno", None) in (errno.EROFS, errno.EACCES, errno.EPERM)
+
+
+def describe_store_error(path: Path, exc: BaseException, *, doing: str = "open the store") -> str:
+    """A plain-words message for a store that cannot be used: read-only, disk full, or not a store."""
+    # SQLite often says only "unable to open database file" (it cannot make its -wal/-shm files):
+    # look at the file system to say why.
+    folder = path.parent if str(path.parent) else Path(".")
+    try:
+        full = shutil.disk_usage(folder if folder.exists() else Path(".")).free < (1 << 20)
+    except OSError:
+        full = False
+    cannot_write = (path.exists() and not os.access(path, os.W_OK)) or \
+        (folder.exists() and not os.access(folder, os.W_OK))
+    if _is_full(exc) or (full and not _is_read_only(exc)):
+        return (f"{path}: cannot {doing}: the disk is full ({exc}). Free some space on "
+                f"{path.parent} (or move the store with --store) and try again; nothing was changed.")
+    if _is_read_only(exc) or cannot_write:
+        return (f"{path}: cannot {doing}: the store is read-only here (a read-only file system, or "
+                f"another user's file) ({exc}). Reading commands such as 'drawdown status' still work; "
+                f"to change it, copy the store somewhere writable and use --store.")
+    text = str(exc).lower()
+    if "not a database" in text or "malformed" in text:
+        return f"{path}: cannot {doing} ({exc}): it is not a drawdown store, or it is damaged"
+    return f"{path}: cannot {doing} ({exc}); is it a drawdown store?"
+
+
+def _ro_uri(path: Path, *, immutable: bool = False) -> str:
+    from urllib.parse import quote
+
+    return f"file:{quote(str(path.resolve()))}?{'immutable=1' if immutable else 'mode=ro'}"
+
+
 def _ts_us(value: Any) -> int | None:
     if value is None:
         return None
@@ -124,10 +171,21 @@ class Store:
         SQLite ``synchronous`` pragma. ``"NORMAL"`` (default) is safe against
         a crashed process in WAL mode; ``"FULL"`` also makes every commit
         durable across a power cut (the live collector uses it).
+    read_only
+        Open an existing store for reading only (``mode=ro``): nothing is created or written, so
+        it works on a read-only file system or another user's file. Where SQLite cannot even
+        make its shared-memory file beside the store (a read-only folder) the file is opened
+        ``immutable``, which is right because then nobody can be writing it either.
     """
 
-    def __init__(self, path: str | Path, *, synchronous: str = "NORMAL", timeout_s: float = 30.0):
+    def __init__(self, path: str | Path, *, synchronous: str = "NORMAL", timeout_s: float = 30.0,
+                 read_only: bool = False):
         self.path = Path(path)
+        self.read_only = read_only
+        self._depth = 0
+        if read_only:
+            self._db = self._open_read_only(timeout_s)
+            return
         try:
             self.path.parent.mkdir(parents=True, exist_ok=True)
             self._db = sqlite3.connect(self.path, timeout=timeout_s, isolation_level=None,
@@ -140,9 +198,31 @@ class Store:
             # connection (a reader) while an import holds a transaction would wait and fail.
             if self._db.execute("SELECT 1 FROM meta WHERE key = 'schema_version'").fetchone() is None:
                 self._db.execute("INSERT OR IGNORE INTO meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),))
-        except sqlite3.DatabaseError as exc:
-            raise StoreError(f"{self.path}: cannot open the store ({exc}); is it a drawdown store?") from exc
-        self._depth = 0
+        except (sqlite3.DatabaseError, OSError) as exc:
+            raise StoreError(describe_store_error(self.path, exc)) from exc
+
+    def _open_read_only(self, timeout_s: float) -> sqlite3.Connection:
+        if not self.path.is_file():
+            raise StoreError(f"{self.path}: no store there (nothing imported yet?)")
+        last: BaseException | None = None
+        for immutable in (False, True):
+            try:
+                db = sqlite3.connect(_ro_uri(self.path, immutable=immutable), uri=True, timeout=timeout_s,
+                                     isolation_level=None, check_same_thread=False)
+                db.execute(f"PRAGMA busy_timeout={int(timeout_s * 1000)}")
+                tables = {r[0] for r in db.execute("SELECT name FROM sqlite_master WHERE type='table'")}
+            except sqlite3.DatabaseError as exc:
+                last = exc
+                text = str(exc).lower()
+                if "not a database" in text or "malformed" in text:
+                    break
+                continue
+            if not {"chunks", "imports"} <= tables:
+                db.close()
+                raise StoreError(f"{self.path}: it is an SQLite file but not a drawdown store "
+                                 f"(no readings tables)")
+            return db
+        raise StoreError(describe_store_error(self.path, last or OSError("cannot open"))) from last
 
     # -- lifecycle ---------------------------------------------------------
     def close(self) -> None:
@@ -298,6 +378,18 @@ class Store:
         out.insert(0, "channel", pd.Categorical.from_codes(codes, categories=names))
         out.insert(0, "t", _utc_array(t_out))
         return out
+
+    def held(self, channel: str, t_min_us: int, t_max_us: int) -> tuple[np.ndarray, list[np.ndarray]]:
+        """One channel's readings held with ``t_min_us <= t <= t_max_us``: sorted distinct times
+        (int64 microseconds) and the value arrays (float32, ``VALUE_COLUMNS`` order, NaN where
+        missing), the newest write winning where chunks overlap."""
+        rows = self._db.execute(
+            "SELECT n, t_first_us, t_last_us, t, voltage_V, current_A, temperature_C, soc_pct FROM chunks"
+            " WHERE channel = ? AND t_last_us >= ? AND t_first_us <= ? ORDER BY t_first_us, id",
+            (channel, int(t_min_us), int(t_max_us))).fetchall()
+        if not rows:
+            return np.empty(0, np.int64), [np.empty(0, np.float32) for _ in VALUE_COLUMNS]
+        return _merge_overlapping(rows, int(t_min_us), int(t_max_us) + 1)
 
     def channel_summary(self) -> dict[str, dict[str, Any]]:
         """Per channel: rows (distinct readings), first and last time (ISO 8601 UTC)."""

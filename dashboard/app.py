@@ -23,8 +23,9 @@ import dash
 from dash import Input, Output, dcc, html
 
 from dashboard import ids
-from dashboard.data import MAX_UPLOAD_BYTES, DataSource
-from dashboard.security import install_host_guard, install_token_guard, is_loopback, new_token
+from dashboard.data import DataSource
+from dashboard.security import (install_body_limit, install_host_guard, install_security_headers,
+                                install_token_guard, is_loopback, new_token, quiet_request_handler)
 
 HERE = Path(__file__).resolve().parent
 
@@ -113,15 +114,27 @@ def create_app(ctx: Any, *, token: str | None = None, host: str = "127.0.0.1") -
         meta_tags=[{"name": "viewport", "content": "width=device-width, initial-scale=1"}],
     )
     app.server.config["DRAWDOWN_SOURCE"] = DataSource.from_context(ctx)
-    # Uploads travel base64-encoded inside a callback request (4/3 of the file) plus JSON framing.
-    app.server.config["MAX_CONTENT_LENGTH"] = int(MAX_UPLOAD_BYTES * 4 / 3) + 1024 * 1024
+    # Uploads travel base64-encoded inside a callback request; one too big for the limit is
+    # refused on the System setup page in its own words, not with a bare 413 page.
+    install_body_limit(app.server, callback_too_large=_upload_too_large_answer)
     if token is not None:
         install_token_guard(app.server, token)
     # Installed last so that it runs first: a foreign Host is refused before the token is asked for.
     install_host_guard(app.server, bound_host=host, check_host=is_loopback(host) or token is None)
+    install_security_headers(app.server, script_hashes=app.csp_hashes, token_required=token is not None)
     app.layout = _shell
     app.callback(Output(ids.NAV, "children"), Input(ids.URL, "pathname"))(nav_links)
     return app
+
+
+def _upload_too_large_answer(message: str) -> str:
+    """A Dash callback answer that shows an upload's refusal in the System setup page's result box."""
+    from dash._utils import to_json
+
+    from dashboard.pages._parts import notice
+
+    box = notice(["Import failed. Nothing was stored.", message], kind="error")
+    return to_json({"multi": True, "response": {ids.SETUP_UPLOAD_RESULT: {"children": box}}})
 
 
 def resolve_token(host: str, token: str | None) -> str | None:
@@ -163,7 +176,7 @@ def serve(ctx: Any, host: str = "127.0.0.1", port: int = 8050, token: str | None
               file=sys.stderr)
     app = create_app(ctx, token=token, host=host)
     try:
-        server = make_server(host, port, app.server, threaded=True)
+        server = make_server(host, port, app.server, threaded=True, request_handler=quiet_request_handler())
     except SystemExit:  # werkzeug exits 1 itself when the port is taken
         from dashboard.context import UsageError
 

@@ -49,14 +49,15 @@ from analysis.report import Report, build_report
 from analysis.runtime import runtime_left
 from analysis.solar import analyse_solar
 from analysis.system import System, SystemError_, parse_system
-from dashboard import figures
+from dashboard import figures, labels
 
 log = logging.getLogger(__name__)
 
 T = TypeVar("T")
 
-#: Largest log file accepted by upload [bytes] (50 MB).
-MAX_UPLOAD_BYTES = 50 * 1024 * 1024
+#: Largest log file accepted by upload [bytes]: 50 MB (50,000,000 bytes), one figure said one way
+#: everywhere (see dashboard.security).
+from dashboard.security import MAX_UPLOAD_BYTES, scrub_paths, upload_refusal  # noqa: E402
 #: Ranges longer than this are read from the store in pieces for the screen (bounded memory).
 _PIECE = pd.Timedelta(days=7)
 #: Most readings one analysis run may load [rows]: ~4 months of 1 Hz logging on three channels,
@@ -608,14 +609,15 @@ class DataSource:
         except SystemError_ as exc:
             return None, str(exc)
         b = system.battery
-        return system, (f"{source}: valid. Battery {b.rated_capacity_Ah:g} Ah {b.chemistry} at "
-                        f"{b.nominal_voltage_V:g} V; {len(system.solar)} solar array(s), "
-                        f"{len(system.charger)} charger(s), {len(system.load)} planned load(s).\n"
+        return system, (f"{source}: valid. Battery {b.rated_capacity_Ah:g} Ah {labels.chemistry(b.chemistry)} at "
+                        f"{b.nominal_voltage_V:g} V; {labels.plural(len(system.solar), 'solar array')}, "
+                        f"{labels.plural(len(system.charger), 'charger')}, "
+                        f"{labels.plural(len(system.load), 'planned load')}.\n"
                         + full_charge_summary(system))
 
     def save_system_text(self, text: str) -> tuple[bool, str]:
         """Write ``system.toml`` only when the text is valid; (saved, message)."""
-        system, message = self.validate_system_text(text, source=str(self.system_path))
+        system, message = self.validate_system_text(text, source=self.system_path.name)  # no server path on a page
         if system is None:
             return False, message + "\nNothing was written."
         with self._write_lock:
@@ -624,7 +626,7 @@ class DataSource:
             tmp.write_text(text, encoding="utf-8")
             os.replace(tmp, self.system_path)  # atomic: a crash never leaves half a file
         clear_caches()
-        return True, message + f"\nSaved to {self.system_path}."
+        return True, message + f"\nSaved to {self.system_path.name}."
 
     # -- date ranges ---------------------------------------------------------------
     def default_range(self, days: int = 14) -> tuple[str, str] | None:
@@ -924,8 +926,7 @@ class DataSource:
         except (ValueError, binascii.Error):
             return {"ok": False, "error": f"{filename}: the upload arrived damaged (not base64 data). Try again."}
         if len(raw) > MAX_UPLOAD_BYTES:
-            return {"ok": False, "error": f"{filename}: {len(raw) / 1e6:.1f} MB is over the "
-                                          f"{MAX_UPLOAD_BYTES / 1e6:.0f} MB upload limit; use `drawdown import`."}
+            return {"ok": False, "error": upload_refusal(filename, len(raw))}
         suffix = "".join(Path(filename).suffixes[-2:])
         suffix = suffix if re.fullmatch(r"(\.[A-Za-z0-9]{1,8}){1,2}", suffix or "") else ".log"
         stem = re.sub(r"[^A-Za-z0-9._-]+", "_", Path(filename).stem)[:60] or "upload"
@@ -938,7 +939,11 @@ class DataSource:
                     result = _call_importer(import_file, path, store, self.system_timezone_or_none(),
                                             sys_s.value.battery.nominal_voltage_V if sys_s.ok else None)
             except Exception as exc:  # noqa: BLE001 - any importer error is the file's message
-                return {"ok": False, "error": f"{filename}: {exc}"}
+                # A page never shows a server path: the scratch copy is the file's own name.
+                said = getattr(exc, "page_message", str(exc))  # the page has no command-line flags
+                shown = scrub_paths(said, {str(path): filename, tmp: "(upload)",
+                                           str(self.store_path.parent): "(store folder)"})
+                return {"ok": False, "error": shown if shown.startswith(filename) else f"{filename}: {shown}"}
         clear_caches()
         summary = _to_json(result)
         return {"ok": True, "summary": summary}

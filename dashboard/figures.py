@@ -121,17 +121,30 @@ def downsample(t: Any, y: Any, n_out: int = SCREEN_POINTS, *, gap_factor: float 
 
 # -- common look ------------------------------------------------------------------
 
+#: A chart subtitle longer than this is broken into lines: plotly does not wrap, and on a 390 px phone
+#: a longer line runs off the chart's right edge.
+SUBTITLE_CHARS = 62
+
+
+def _wrap(text: str, width: int = SUBTITLE_CHARS) -> str:
+    """A subtitle broken at spaces into lines of at most ``width`` characters (plotly's '<br>')."""
+    import textwrap
+
+    return "<br>".join(textwrap.wrap(str(text), width)) if len(str(text)) > width else str(text)
+
+
 def _base_layout(fig: go.Figure, *, title: str | None = None, height: int = 340,
                  legend_below: bool = True, subtitle: str | None = None) -> go.Figure:
     head: dict[str, Any] | None = None
     if title:
         head = {"text": title, "x": 0.0, "xanchor": "left", "font": {"size": 15}}
         if subtitle:
-            head["subtitle"] = {"text": subtitle, "font": {"size": 11, "color": PALETTE["muted"]}}
+            head["subtitle"] = {"text": _wrap(subtitle), "font": {"size": 11, "color": PALETTE["muted"]}}
     fig.update_layout(
         title=head,
         height=height,
-        margin={"l": 52, "r": 12, "t": (80 if subtitle else 44) if title else 16, "b": 64 if legend_below else 36},
+        margin={"l": 52, "r": 12, "t": (80 + 14 * _wrap(subtitle).count("<br>") if subtitle else 44) if title else 16,
+                "b": 64 if legend_below else 36},
         paper_bgcolor=PALETTE["paper"],
         plot_bgcolor=PALETTE["paper"],
         font={"family": "system-ui, -apple-system, 'Segoe UI', Roboto, sans-serif", "size": 12,
@@ -465,7 +478,7 @@ def peukert_figure(current_A: Sequence[float] | None, hours: Sequence[float] | N
     fig.update_layout(hovermode="closest")
     fitted = current_A is not None and len(current_A) > 0
     fig = _base_layout(fig, title="Peukert fit", subtitle=None if fitted else (
-        "no fit: the exponent is a default, no two discharges at different rates qualified"))
+        "no fit: a default exponent; no two discharges at different rates"))
     # This plot has an x-axis title: move the legend clear of it.
     fig.update_layout(legend_y=-0.24, margin_b=84)
     return fig

@@ -55,7 +55,17 @@ _CSS = (
     "padding-top:28px}"
     # The chart toolbar sits in the strip above the chart, never over its title.
     ".fig .modebar-container{top:-24px!important}"
-    ".wide{overflow-x:auto}"
+    # A wide table scrolls inside its box: the first column stays pinned, a shadow on the right edge and
+    # (on a phone) a line above it say there is more to the right.
+    f".wide{{overflow-x:auto;background:linear-gradient(to left,{_P['paper']} 40%,rgba(255,253,249,0)) "
+    "100% 0/3em 100% no-repeat local,radial-gradient(farthest-side at 100% 50%,rgba(60,50,30,.28),"
+    "rgba(60,50,30,0)) 100% 0/1em 100% no-repeat scroll}"
+    ".wide table{background:none}"
+    f".wide td:first-child,.wide th:first-child{{position:sticky;left:0;background:{_P['paper']};"
+    "white-space:nowrap}.wide th:first-child{background:#ece8df}"
+    ".wide .runs td:first-child{white-space:normal;min-width:7em}"
+    ".scroll-hint{display:none;font-size:0.85em;color:" + _P["muted"] + ";margin:0.2em 0}"
+    "@media (max-width:700px){.scroll-hint{display:block}}"
     f"table{{border-collapse:collapse;font-size:0.88em;background:{_P['paper']}}}"
     "td,th{border:1px solid #e0dbd0;padding:3px 8px;text-align:right}th{background:#ece8df}"
     "td:first-child,th:first-child{text-align:left}"
@@ -163,13 +173,20 @@ def _fig_html(fig: go.Figure) -> str:
 
 # -- text parts --------------------------------------------------------------------------------
 
+#: Shown above a wide table on a phone (CSS), where its right-hand columns are off screen.
+_SCROLL_HINT = "<p class='scroll-hint'>Swipe the table sideways for more columns &rarr;</p>"
+
+
 def _f(x: Any, nd: int = 1) -> str:
     return "-" if x is None else f"{x:.{nd}f}"
 
 
 def _table(j: dict) -> str:
     ranged = any(d.get("consumed_Ah_pi95") for d in j["days"])
-    extra_head = "<th>used, 95 % range [Ah]</th><th>load not seen [h]</th>" if ranged else ""
+    # As on the command line: 'load not seen' only when one shunt hides the load while a source charges.
+    inferred = j.get("data_quality", {}).get("mode") == "single-shunt"
+    extra_head = (("<th>used, 95 % range [Ah]</th>" if ranged else "")
+                  + ("<th>load not seen [h]</th>" if ranged and inferred else ""))
     head = ("<tr><th>date</th><th>whole day</th><th>used [Ah]</th>" + extra_head + "<th>used [Wh]</th>"
             "<th>solar [Ah]</th><th>alternator [Ah]</th><th>shore [Ah]</th><th>other [Ah]</th>"
             "<th>lowest SoC [%]</th><th>SoC at midnight [%]</th></tr>")
@@ -180,7 +197,7 @@ def _table(j: dict) -> str:
         if ranged:
             lo_hi = d.get("consumed_Ah_pi95")
             extra = (f"<td>{f'{lo_hi[0]:.0f}-{lo_hi[1]:.0f}' if lo_hi else '-'}</td>"
-                     f"<td>{_f(d.get('hidden_load_h'))}</td>")
+                     + (f"<td>{_f(d.get('hidden_load_h'))}</td>" if inferred else ""))
         rows.append(f"<tr><td>{html.escape(str(d['date']))}</td><td>{'yes' if d['complete'] else 'partial'}</td>"
                     f"<td>{_f(d['consumed_Ah'])}</td>{extra}<td>{_f(d['consumed_Wh'], 0)}</td>"
                     f"<td>{_f(c['solar'])}</td><td>{_f(c['alternator'])}</td><td>{_f(c['shore'])}</td>"
@@ -192,29 +209,31 @@ def _table(j: dict) -> str:
         note = (f"<p class='note'>On {len(unseen)} of {len(j['days'])} days the load was not seen for more than "
                 f"an hour: {html.escape(worst['hidden_load_note'].split(': ', 1)[-1])}.</p>")
     # The wrapper scrolls a wide table sideways on a phone instead of widening the whole page.
-    return f"{note}<div class='wide'><table>{head}{''.join(rows)}</table></div>"
+    return f"{note}{_SCROLL_HINT}<div class='wide'><table>{head}{''.join(rows)}</table></div>"
 
 
-def _quality(j: dict) -> str:
+def _quality(j: dict, tz: str = "UTC") -> str:
     dq = j["data_quality"]
     e = html.escape
-    items = [(f"{int(dq['rows_stored'])} rows stored, {int(dq['rows_rejected'])} rejected at import, "
-              f"{len(dq['gaps'])} gap(s); {int(dq.get('complete_days', 0))} whole day(s).")]
+    items = [(f"{int(dq['rows_stored']):,} rows stored, {int(dq['rows_rejected']):,} rejected at import, "
+              f"{labels.plural(len(dq['gaps']), 'gap')}; "
+              f"{labels.plural(int(dq.get('complete_days', 0)), 'whole day')}.")]
     if dq["gaps"]:
         total_h = sum(float(g.get("seconds") or 0) for g in dq["gaps"]) / 3600
-        items.append(f"{len(dq['gaps'])} gap(s) in the log, {total_h:.1f} h in all: nothing is integrated "
-                     "across a gap, so those days are marked partial.")
+        items.append(f"{labels.plural(len(dq['gaps']), 'gap')} in the log, {total_h:.1f} h in all: nothing is "
+                     "integrated across a gap, so those days are marked partial.")
         longest = sorted(dq["gaps"], key=lambda g: -float(g.get("seconds") or 0))[:20]
-        items += [f"gap on {e(str(g.get('channel', '?')))} from {e(str(g['start']))} to {e(str(g['end']))} "
-                  f"({float(g['seconds']):.0f} s): energy unknown" for g in longest]
-    items += [e(str(n)) for n in dq.get("notes", [])]
+        items += [f"gap on {e(str(g.get('channel', '?')))} from {e(labels.local_time(g['start'], tz))} to "
+                  f"{e(labels.local_time(g['end'], tz))} ({float(g['seconds']):.0f} s): energy unknown"
+                  for g in longest]
+    items += [e(labels.for_people(n)) for n in dq.get("notes", [])]
     return "<ul>" + "".join(f"<li>{i}</li>" for i in items) + "</ul>"
 
 
 def _period_text(period: dict, tz: str) -> str:
     """'Period 2026-04-06 00:00 to 2026-04-19 23:59 (Europe/Oslo), 14 local days; ...' in local time."""
     try:
-        a, b = (pd.Timestamp(period[k]).tz_convert(tz).strftime("%Y-%m-%d %H:%M") for k in ("start", "end"))
+        a, b = (labels.local_time(pd.Timestamp(period[k]), tz) for k in ("start", "end"))
     except (KeyError, TypeError, ValueError):
         a, b, tz = str(period.get("start")), str(period.get("end")), "UTC"
     return (f"Period {a} to {b} ({tz}), {int(period.get('days') or 0)} local days; "
@@ -274,7 +293,7 @@ def _sizing_part(sizing: dict) -> str:
                    f"not bundled; one-way run lengths {labels.run_lengths(a['run_lengths_one_way_m'])}; "
                    f"{a['simulation']}.")
     return ("<ul>" + "".join(f"<li>{e(labels.for_people(i))}</li>" for i in items) + "</ul>"
-            + f"<div class='wide'><table class='runs'><tr>{head}</tr>{body}</table></div>"
+            + f"{_SCROLL_HINT}<div class='wide'><table class='runs'><tr>{head}</tr>{body}</table></div>"
             + f"<p>{e(assumptions)}</p><ul class='cautions'>"
             + "".join(f"<li>{e(labels.for_people(c))}</li>" for c in sizing.get("cautions") or []) + "</ul>")
 
@@ -331,7 +350,7 @@ def render_html(report: Any, *, system: System | None = None, solar: Any = None,
         + "<h2>Battery health</h2>" + "".join(_fig_html(f) for f in figs["health"])
         + "<h2>Solar</h2>" + solar_part
         + "<h2>Daily ledger</h2>" + _table(j)
-        + "<h2>Data quality</h2>" + _quality(j)
+        + "<h2>Data quality</h2>" + _quality(j, tz)
         + f"<h2>Summary</h2><pre>{e(chr(10).join(describe(j)))}</pre>"
         f"<footer><p>{e(SAFETY_CAUTION)}</p><p>Made by drawdown from logged readings. Values that cannot be "
         "estimated are shown as '-' with the reason.</p></footer>"

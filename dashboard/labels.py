@@ -22,7 +22,8 @@ _UNITS = [(re.compile(r"(\d)\s*degC\b"), "\\1 °C"), (re.compile(r"\bdegC\b"), "
           (re.compile(r"(\d)\s*mm2\b"), "\\1 mm²"), (re.compile(r"\bmm2\b"), "mm²"),
           (re.compile(r"\bWm2\b"), "W/m²"), (re.compile(r"\bkWh/m2\b"), "kWh/m²"),
           (re.compile(r"\bmOhm\b"), "mΩ"), (re.compile(r"\blifepo4\b"), "LiFePO4"),
-          (re.compile(r"(\d) (\w+)\(s\)"), "\\1 \\2s"), (re.compile(r"\b1 (\w+)s\b(?!\()"), "1 \\1"),
+          # 'N thing(s)': singular for exactly 1 (not 0.1 or 21), plural otherwise; other words are left alone.
+          (re.compile(r"(?<![\d.,])1 (\w+)\(s\)"), "1 \\1"), (re.compile(r"(\d) (\w+)\(s\)"), "\\1 \\2s"),
           (re.compile(r"\b(\w+)\(s\)"), "\\1s")]
 
 

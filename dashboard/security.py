@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import ipaddress
 import secrets
+from typing import Any
 from urllib.parse import urlsplit
 
 import flask
@@ -193,3 +194,153 @@ def install_token_guard(server: flask.Flask, token: str) -> None:
     # Registered first so that it runs before Dash's own first-request set-up.
     server.before_request_funcs.setdefault(None, []).insert(0, _guard)
     server.after_request(_remember)
+
+
+# -- response headers -------------------------------------------------------------------------
+
+#: Where the dashboard's pages may load things from: only the dashboard itself (``serve_locally``:
+#: no CDN). Dash renders with React and Plotly: scripts come from the server's own component
+#: suites plus the one inline start-up script, admitted by its hash (see ``Dash.csp_hashes``);
+#: Plotly and React set inline ``style`` attributes, so styles need 'unsafe-inline'; Plotly draws
+#: images and fonts from ``data:``/``blob:`` URLs. No page may be framed by another site's page.
+CSP_BASE = {
+    "default-src": ["'self'"],
+    "script-src": ["'self'"],
+    "style-src": ["'self'", "'unsafe-inline'"],
+    "img-src": ["'self'", "data:", "blob:"],
+    "font-src": ["'self'", "data:"],
+    "connect-src": ["'self'"],
+    "worker-src": ["'self'", "blob:"],
+    "object-src": ["'none'"],
+    "base-uri": ["'self'"],
+    "form-action": ["'self'"],
+    "frame-ancestors": ["'none'"],
+}
+
+
+def content_security_policy(script_hashes: list[str] | tuple[str, ...] = ()) -> str:
+    """The Content-Security-Policy header value, the inline scripts' hashes admitted."""
+    parts = []
+    for directive, sources in CSP_BASE.items():
+        if directive == "script-src":
+            sources = [*sources, *script_hashes]
+        parts.append(f"{directive} {' '.join(sources)}")
+    return "; ".join(parts)
+
+
+#: Paths of static files (fingerprinted by Dash); they carry no data and may be cached.
+_STATIC_PREFIXES = ("/_dash-component-suites/", "/assets/", "/_favicon.ico")
+
+
+def install_security_headers(server: flask.Flask, *, script_hashes: Any = (),
+                             token_required: bool = False) -> None:
+    """Send the security headers on every response.
+
+    ``script_hashes`` is a list of CSP source hashes of the inline scripts, or a callable giving
+    it (Dash adds inline scripts -- the pages' clientside callbacks -- only when it sets itself
+    up on the first request, so ``app.csp_hashes`` is asked on each response).
+
+    * ``Content-Security-Policy`` (:func:`content_security_policy`), ``frame-ancestors 'none'``
+      and ``X-Frame-Options: DENY`` (older browsers): no other site may frame the dashboard;
+    * ``X-Content-Type-Options: nosniff``: a file is only ever what its type says;
+    * ``Referrer-Policy: no-referrer``: an address with ``?token=`` is never passed on;
+    * ``Cache-Control: no-store`` on every response that bears the token or the data behind it
+      when a token is required (all but the static script and style files, and those too when
+      their address carries ``?token=``), and on every response that sets the token cookie.
+    """
+    fixed = None if callable(script_hashes) else content_security_policy(script_hashes)
+
+    def _headers(response: flask.Response) -> flask.Response:
+        h = response.headers
+        h["Content-Security-Policy"] = fixed or content_security_policy(script_hashes())
+        h["X-Content-Type-Options"] = "nosniff"
+        h["Referrer-Policy"] = "no-referrer"
+        h["X-Frame-Options"] = "DENY"
+        req = flask.request
+        bears_token = QUERY in req.args or any(c.startswith(f"{COOKIE}=") for c in h.getlist("Set-Cookie"))
+        static = req.path.startswith(_STATIC_PREFIXES)
+        if bears_token or (token_required and not static):
+            h["Cache-Control"] = "no-store"
+            h.pop("Expires", None)
+            h.pop("ETag", None)
+            h.pop("Last-Modified", None)
+        return response
+
+    server.after_request(_headers)
+
+
+def quiet_request_handler() -> type:
+    """A werkzeug request handler that sends no ``Server`` header (no name or version banner)."""
+    from werkzeug.serving import WSGIRequestHandler
+
+    class QuietRequestHandler(WSGIRequestHandler):
+        def send_header(self, keyword: str, value: str) -> None:
+            if keyword.lower() == "server":
+                return
+            super().send_header(keyword, value)
+
+    return QuietRequestHandler
+
+
+# -- upload size -------------------------------------------------------------------------------
+
+#: Largest log file the System setup page accepts [bytes]: 50 MB, i.e. 50,000,000 bytes (decimal
+#: megabytes, as the README, the page and every refusal say it).
+MAX_UPLOAD_BYTES = 50_000_000
+#: The limit as every text says it.
+UPLOAD_LIMIT_TEXT = f"{MAX_UPLOAD_BYTES / 1e6:g} MB"
+#: A callback request carries the upload base64-encoded (4/3 of the file) plus JSON framing.
+MAX_CALLBACK_BODY = MAX_UPLOAD_BYTES * 4 // 3 + (1 << 20)
+#: Most bytes of an over-long body read (and dropped) so that the browser receives the refusal
+#: rather than a reset connection; beyond this the connection is simply closed.
+_DRAIN_MAX = 4 * MAX_CALLBACK_BODY
+
+
+def upload_refusal(name: str, size_bytes: float, *, approximate: bool = False) -> str:
+    """The one sentence that refuses an upload over the limit."""
+    size = f"{'about ' if approximate else ''}{size_bytes / 1e6:.1f} MB"
+    return (f"{name} is {size}, over the {UPLOAD_LIMIT_TEXT} upload limit; nothing was stored. "
+            "Import a bigger log with `drawdown import` on the computer that runs the dashboard.")
+
+
+def install_body_limit(server: flask.Flask, *, callback_too_large: Any = None) -> None:
+    """Refuse a request body over :data:`MAX_CALLBACK_BODY` in the dashboard's own words.
+
+    ``callback_too_large(message)`` returns the JSON body of a Dash callback answer that shows
+    ``message`` on the page (the upload's result box); without it, or for any other address,
+    the refusal is a short plain-text 413.
+    """
+    from werkzeug.exceptions import RequestEntityTooLarge
+
+    server.config["MAX_CONTENT_LENGTH"] = MAX_CALLBACK_BODY
+
+    def _too_large(_exc: Exception) -> flask.Response:
+        req = flask.request
+        length = req.content_length or 0
+        stream = req.environ.get("wsgi.input")
+        if stream is not None and 0 < length <= _DRAIN_MAX:
+            left = length
+            while left > 0:
+                got = stream.read(min(left, 1 << 20))
+                if not got:
+                    break
+                left -= len(got)
+        approx_file = max(length - 2048, 0) * 3 / 4  # base64 payload back to file bytes
+        message = upload_refusal("The file", approx_file, approximate=True)
+        if callback_too_large is not None and req.path.endswith("/_dash-update-component"):
+            return flask.Response(callback_too_large(message), status=200, mimetype="application/json")
+        return flask.Response(f"413 {message}\n", status=413, mimetype="text/plain")
+
+    server.register_error_handler(RequestEntityTooLarge, _too_large)
+
+
+# -- paths never shown on a page ---------------------------------------------------------------
+
+def scrub_paths(text: str, paths: dict[str, str]) -> str:
+    """``text`` with each server path in ``paths`` replaced by what the page may show instead.
+
+    Longer paths are replaced first, so a file inside a replaced folder goes as a whole.
+    """
+    for p in sorted((p for p in paths if p), key=len, reverse=True):
+        text = text.replace(p, paths[p])
+    return text

@@ -116,7 +116,7 @@ def test_lithium_charging_below_freezing_is_flagged():
     df = frame_from(pad(np.full(30, 20.0)), temp_C=-4.0)
     result = analyse_charging(df, make_system())
     assert result.cold_charging["minutes"] >= 29
-    assert any("below 0 degC" in f for f in result.findings)
+    assert any("below 0 °C" in f for f in result.findings)
 
 
 def test_missing_channel_is_reported_not_guessed():

@@ -168,7 +168,7 @@ def test_a_gap_in_the_log_is_listed_under_data_quality(readings_and_system):
     gaps = report.to_json()["data_quality"]["gaps"]
     assert gaps
     quality = render_html(report, system=system).split("<h2>Data quality</h2>", 1)[1].split("<h2>", 1)[0]
-    assert f"{len(gaps)} gap(s) in the log" in quality
+    assert f"{len(gaps)} gap{'' if len(gaps) == 1 else 's'} in the log" in quality and "(s)" not in quality
     assert "energy unknown" in quality and "marked partial" in quality
 
 

@@ -215,7 +215,7 @@ def test_lithium_charged_below_freezing_is_a_report_caution():
     frame = pd.DataFrame({"t": t, "channel": "battery", "voltage_V": 13.3, "current_A": charging,
                           "temperature_C": -5.0, "soc_pct": np.nan})
     j = build_report(frame, system).to_json()
-    assert any("below 0 degC" in c for c in j["cautions"])
+    assert any("below 0 °C" in c for c in j["cautions"])
     assert j["charging"]["cold_charging"]["min_temperature_C"] == pytest.approx(-5.0)
 
 

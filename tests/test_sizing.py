@@ -280,7 +280,7 @@ def test_simulated_autonomy_of_the_pick_is_reproduced_by_the_bootstrap_directly(
 
 def test_lithium_below_zero_is_flagged_with_the_logged_temperature():
     r = sz.recommend(make_system(), make_days(60, min_temp=-6.5), n_sequences=100)
-    assert any("-6.5 degC" in c and "0 degC" in c for c in r.cautions)
+    assert any("-6.5 °C" in c and "0 °C" in c for c in r.cautions)
 
 
 def test_every_recommendation_carries_assumptions_and_the_installer_caution():

@@ -86,7 +86,7 @@ def test_wire_human_output_has_units_assumptions_and_caution(capsys):
     rc = main(["wire", "--current", "30", "--length", "3", "--voltage", "24"])
     out = capsys.readouterr().out
     assert rc == 0
-    assert "mm2" in out and "AWG" in out and " A" in out and " V" in out
+    assert "mm²" in out and "mm2" not in out and "AWG" in out and " A" in out and " V" in out
     assert "Assumptions:" in out
     assert "qualified installer" in out
     assert "ABYC E-11" in out

@@ -16,6 +16,7 @@ import json
 import sys
 from typing import Any
 
+from dashboard import labels
 from dashboard.context import Context, UsageError
 
 
@@ -79,10 +80,14 @@ def _summary_from_report(report: Any) -> list[str]:
                 src[k] = src.get(k, 0.0) + (v or 0.0)
         if src:
             lines.append("  charge by source: " + ", ".join(f"{k} {v:.0f} Ah" for k, v in src.items() if v))
-    lines.append(f"  battery: usable {_fmt(bat.get('usable_Ah'), '.0f', ' Ah')} of "
-                 f"{_fmt(bat.get('rated_Ah'), 'g', ' Ah')} rated, state of health "
-                 f"{_fmt(bat.get('state_of_health_pct'), '.0f', ' %')}"
-                 + (f" ({bat['usable_Ah_why']})" if bat.get("usable_Ah") is None and bat.get("usable_Ah_why") else ""))
+    if bat.get("usable_Ah") is None:  # say 'unknown' and why, never 'n/a'
+        lines.append(f"  battery: {_fmt(bat.get('rated_Ah'), 'g', ' Ah')} rated; usable capacity and state of "
+                     "health unknown" + (f": {labels.for_people(bat['usable_Ah_why'])}" if bat.get("usable_Ah_why")
+                                         else ""))
+    else:
+        lines.append(f"  battery: usable {_fmt(bat.get('usable_Ah'), '.0f', ' Ah')} of "
+                     f"{_fmt(bat.get('rated_Ah'), 'g', ' Ah')} rated, state of health "
+                     f"{_fmt(bat.get('state_of_health_pct'), '.0f', ' %')}")
     lines.append(f"  solar performance ratio {_fmt(sol.get('performance_ratio'), '.2f')}")
     return lines
 
@@ -132,7 +137,9 @@ def run(args: Any, ctx: Context) -> int:
             print(f"import: {getattr(result, 'rows_stored', '?')} rows stored, "
                   f"{getattr(result, 'rows_rejected', '?')} rejected", file=sys.stderr)
 
-    print(f"drawdown demo: {scenario.name}, {sim.truth['start']} .. {sim.truth['end']}")
+    tz = system.site.timezone  # a person reads local time with its zone
+    print(f"drawdown demo: {scenario.name}, {labels.local_time(sim.truth['start'], tz)} .. "
+          f"{labels.local_time(sim.truth['end'], tz)}")
     build_report = _optional("analysis.report", "build_report")
     lines: list[str] | None = None
     if build_report is not None and imported:

@@ -7,6 +7,8 @@ stored; the other files are still imported and say so).
 
 from __future__ import annotations
 
+import errno
+import sqlite3
 import sys
 import time
 from pathlib import Path
@@ -15,7 +17,9 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from collector.columns import ColumnSpec, normalise_channel, parse_map_option
 from collector.csv_file import ImportResult, NothingStored, UnusableInput, import_file
+from collector.store import _is_full, _is_read_only, describe_store_error
 from dashboard.context import Context, UsageError, print_json, warn
+from dashboard.labels import local_time, plural
 
 PROGRESS_MIN_BYTES = 16 << 20
 
@@ -64,24 +68,31 @@ def _column_map(options: list[str]) -> dict[str, ColumnSpec]:
 def _unusable_entry(path: str, message: str) -> dict[str, Any]:
     return {"path": path, "usable": False, "error": message, "rows_stored": 0, "rows_rejected": 0,
             "rejected_by_reason": {}, "already_imported": False, "channels": [], "sign_inverted": [],
-            "sample_interval_s": None, "gaps": [], "quarantine": None}
+            "sample_interval_s": None, "gaps": [], "quarantine": None, "rows_already_held": 0, "rows_added": 0}
 
 
-def _human(r: ImportResult) -> str:
+def _human(r: ImportResult, tz: str | None = None) -> str:
+    """The summary a person reads: times in the site's zone (``tz``, else UTC) with the zone named."""
+    shown_tz = tz or "UTC"
     lines = [f"{r.path}"]
     if r.already_imported:
         lines.append("  already imported (same content, sha256 match): nothing added")
         return "\n".join(lines)
     lines.append(f"  data lines {r.data_lines}: stored {r.rows_stored}, rejected {r.rows_rejected}"
                  + (f" (of which duplicates {r.duplicates})" if r.duplicates else ""))
+    if r.rows_already_held:
+        lines.append(f"  {r.rows_already_held} of the stored lines were already held (the same channel, time "
+                     f"and values, from an earlier import): not written again; {r.rows_added} added"
+                     + (" - nothing new" if r.rows_added == 0 else ""))
     for why, n in r.rejected_by_reason.items():
         lines.append(f"    {why:<24} {n}")
-    extras = [f"{n} {what}" for n, what in ((r.header_lines, "header lines"), (r.blank_lines, "blank lines"),
-                                            (r.preamble_lines, "preamble lines")) if n]
+    extras = [plural(n, what) for n, what in ((r.header_lines, "header line"), (r.blank_lines, "blank line"),
+                                              (r.preamble_lines, "preamble line")) if n]
     if extras:
         lines.append("  not data: " + ", ".join(extras))
     if r.out_of_order_rows:
-        lines.append(f"  {r.out_of_order_rows} rows were out of time order (sorted)")
+        lines.append(f"  {plural(r.out_of_order_rows, 'row')} {'was' if r.out_of_order_rows == 1 else 'were'} "
+                     "out of time order (sorted)")
     lines.append(f"  channels: {', '.join(r.channels) or '(none)'}")
     if (r.encoding or "").startswith("utf-16") or r.line_ends == "cr":
         lines.append(f"  read as {(r.encoding or 'text').upper().replace('-LE', ' LE').replace('-BE', ' BE')}"
@@ -90,13 +101,17 @@ def _human(r: ImportResult) -> str:
     if r.columns_ignored:
         lines.append("  ignored: " + ", ".join(r.columns_ignored))
     if r.time_span:
-        lines.append(f"  time span: {r.time_span['start']} .. {r.time_span['end']} (times read as {r.timezone_used})")
+        read_as = ("each time carried its UTC offset" if str(r.timezone_used).startswith("UTC (")
+                   else f"times in the file read as {r.timezone_used}")
+        lines.append(f"  time span: {local_time(r.time_span['start'], shown_tz, seconds=True)} .. "
+                     f"{local_time(r.time_span['end'], shown_tz, seconds=True)} ({shown_tz}; {read_as})")
     if r.sample_interval_s is not None:
         lines.append(f"  sample interval: {r.sample_interval_s:g} s (median)")
     if r.gaps_total:
         lines.append(f"  gaps longer than 5 sample intervals: {r.gaps_total}")
         for g in r.gaps[:5]:
-            lines.append(f"    {g.start} .. {g.end} ({g.seconds:g} s)")
+            lines.append(f"    {local_time(g.start, shown_tz, seconds=True)} .. "
+                         f"{local_time(g.end, shown_tz, seconds=True)} ({g.seconds:g} s)")
         if r.gaps_total > 5:
             lines.append(f"    ... and {r.gaps_total - 5} more (see --json)")
     for ch, why in r.sign_evidence.items():
@@ -147,6 +162,18 @@ def run(args: Any, ctx: Context) -> int:
             try:
                 r = import_file(path, store, tz=tz, channel=channel, column_map=column_map, invert=invert,
                                 nominal_voltage_V=nominal, progress=bar)
+            except sqlite3.OperationalError as exc:
+                bar.close()
+                if not (_is_full(exc) or _is_read_only(exc)):
+                    raise
+                # Not the file's fault and not a bug: say so in plain words (nothing of it was stored).
+                raise UsageError(describe_store_error(store.path, exc, doing=f"store {path}")) from None
+            except OSError as exc:
+                bar.close()
+                beside_store = str(exc.filename or "").startswith(str(store.path.parent.resolve()))
+                if exc.errno == errno.ENOSPC or beside_store:  # the quarantine or scratch copy
+                    raise UsageError(describe_store_error(store.path, exc, doing=f"store {path}")) from None
+                raise UsageError(f"{path}: cannot read the file ({exc.strerror or exc})") from None
             except UnusableInput as exc:
                 bar.close()
                 unusable += 1
@@ -174,7 +201,7 @@ def run(args: Any, ctx: Context) -> int:
                 if not r.already_imported:
                     warn(f"drawdown import: {path}: --invert {ch}: no such channel in this file")
             if not args.json:
-                print(_human(r))
+                print(_human(r, tz))
     finally:
         store.close()
     if args.json:
@@ -182,5 +209,5 @@ def run(args: Any, ctx: Context) -> int:
     elif unusable:
         ok = len(results) - unusable
         print(f"{unusable} of {len(results)} files unusable (nothing stored from them); "
-              f"{ok} usable file(s) imported.")
+              f"{plural(ok, 'usable file')} imported.")
     return 2 if unusable else 0

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import math
 
+from dashboard import labels
 from dashboard.context import UsageError, print_json
 
 #: The bank voltages this sizes [V]: 6 V (two-cell lead-acid, golf-cart banks) up to 60 V, the
@@ -93,4 +94,4 @@ def describe(r) -> list[str]:
         lines.append(f"  Note: {n}")
     for c in r.cautions:
         lines.append(f"  Caution: {c}")
-    return lines
+    return [labels.for_people(line) for line in lines]  # mm², °C as the trade writes them

@@ -1,6 +1,6 @@
 """System setup: view and edit system.toml (validated before it is written), import a log by upload.
 
-Uploads are size-limited (``dashboard.data.MAX_UPLOAD_BYTES``), written to a
+Uploads are size-limited (``dashboard.security.MAX_UPLOAD_BYTES``), written to a
 private temporary file, parsed as data by the same importer as
 ``drawdown import`` and deleted; nothing uploaded is ever executed.
 """
@@ -13,7 +13,8 @@ import dash
 from dash import Input, Output, State, callback, dcc, html, no_update
 
 from dashboard import ids, labels
-from dashboard.data import MAX_UPLOAD_BYTES, DataSource, current, imports_table
+from dashboard.data import DataSource, current, imports_table
+from dashboard.security import UPLOAD_LIMIT_TEXT
 from dashboard.pages._parts import fmt, notice, page_head, table
 
 dash.register_page(__name__, path="/setup", name="System setup", title="drawdown - system setup", order=5)
@@ -54,7 +55,7 @@ def layout(**_kwargs: Any) -> html.Div:
     return html.Div([
         page_head("System setup", "Describe the bank, the array and the chargers; bring in a log."),
         html.H2("System description"),
-        html.P(f"File: {source.system_path}" + ("" if text is not None else " (not written yet: an example "
+        html.P(f"File: {source.system_path.name}" + ("" if text is not None else " (not written yet: an example "
                                                 "is shown; edit it and save)"), className="hint"),
         html.P("Check shows the full-charge settings and the reserve in use, with the chemistry's defaults "
                "for any you leave out.", className="hint"),
@@ -65,11 +66,13 @@ def layout(**_kwargs: Any) -> html.Div:
                  className="buttons"),
         html.Div(id=ids.SETUP_MESSAGES, **{"aria-live": "polite"}),
         html.H2("Import a log"),
-        dcc.Upload(id=ids.SETUP_UPLOAD, max_size=MAX_UPLOAD_BYTES, multiple=False, className="upload",
+        # No max_size here: the browser would drop a bigger file without a word. The server
+        # refuses it and this page says why (dashboard.security.install_body_limit).
+        dcc.Upload(id=ids.SETUP_UPLOAD, multiple=False, className="upload",
                    children=html.Div(["Drop a log file here or ", html.Span("choose one", className="link"),
                                       html.Br(),
                                       html.Small(f"CSV or text export of your monitor, up to "
-                                                 f"{MAX_UPLOAD_BYTES // (1024 * 1024)} MB")])),
+                                                 f"{UPLOAD_LIMIT_TEXT}")])),
         dcc.Loading(html.Div(id=ids.SETUP_UPLOAD_RESULT, **{"aria-live": "polite"}), type="dot"),
         html.H2("What the store holds"),
         html.Div(id=ids.SETUP_STORE_TABLE, children=store_view(source)),
@@ -80,7 +83,7 @@ def store_view(source: DataSource) -> Any:
     """Per channel: readings, first and last; then the imported files."""
     channels = source.channel_summary()
     if not channels:
-        return html.P(f"The store at {source.store_path} holds no readings yet.")
+        return html.P(f"The store ({source.store_path.name}) holds no readings yet.")
     tz = source.timezone()
     rows = [{"channel": name, "rows": f"{c['rows']:,}", "first": labels.local_time(c["first"], tz),
              "last": labels.local_time(c["last"], tz)} for name, c in channels.items()]
@@ -105,7 +108,7 @@ def render_system_action(source: DataSource, action: str | None, text: str | Non
     if action == "save":
         saved, message = source.save_system_text(text)
         return notice(message.splitlines(), kind="info" if saved else "error")
-    system, message = source.validate_system_text(text, source=str(source.system_path))
+    system, message = source.validate_system_text(text, source=source.system_path.name)
     return notice(message.splitlines(), kind="info" if system is not None else "error")
 
 
@@ -146,11 +149,12 @@ def render_upload(source: DataSource, contents: str | None, filename: str | None
             lines.append(f"One reading every {fmt(f['sample_interval_s'], 's', 0)}.")
         gaps = f.get("gaps") or []
         if gaps:
-            lines.append(f"{f.get('gaps_total', len(gaps))} gap(s) in the log.")
+            lines.append(f"{labels.plural(int(f.get('gaps_total', len(gaps))), 'gap')} in the log.")
         if f.get("timezone_assumed"):
             lines.append(f"Times without an offset were read as {f.get('timezone_used') or 'UTC'}.")
         if f.get("quarantine"):
-            lines.append(f"Rejected lines kept in {f['quarantine']}.")
+            lines.append("The rejected lines are kept, with line number and reason, in the store's "
+                         "quarantine folder.")
         parts.append(notice(lines, kind="info"))
     return html.Div(parts), store_view(source)
 
