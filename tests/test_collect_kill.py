@@ -16,14 +16,18 @@ between the first and the last reading stored in that run is there.
 
 from __future__ import annotations
 
+import json
+import os
 import random
 import signal
+import subprocess
+import sys
 import time
 
 import numpy as np
 import pytest
 
-from conftest_collector import Pty, Sender, integrity_ok, start_collector, wait_for
+from conftest_collector import ROOT, Pty, Sender, integrity_ok, start_collector, wait_for
 from collector.store import Store
 
 KILLS = 20
@@ -43,18 +47,90 @@ def _max_t(store_path) -> float:
 
 @pytest.mark.slow
 def test_sigkill_20_times_loses_at_most_1_s_each_and_the_store_stays_intact(tmp_path, record_property):
+    kill_mid_stream(tmp_path, record_property, kills=KILLS, seed=7, alive_s=(0.3, 1.0))
+
+
+@pytest.mark.slow
+def test_sigkill_50_times_mid_stream_loses_at_most_1_s_each_and_the_store_stays_intact(tmp_path, record_property):
+    # Each collector is forked from one process that has already imported it (as the command line
+    # would, without paying Python's start-up 50 times), so the test stays short; what runs and is
+    # killed is the same `drawdown collect` on the same pty and store.
+    with _Forker() as forker:
+        kill_mid_stream(tmp_path, record_property, kills=50, seed=50, alive_s=(0.2, 0.9), start=forker.start)
+
+
+_FORKER = r"""
+import importlib, json, os, sys
+import dashboard.cli as cli
+importlib.import_module("dashboard.commands.collect")
+import collector.collect, collector.serial_port, collector.store  # noqa: F401 - warm the imports
+print("ready", flush=True)
+for line in sys.stdin:
+    what, arg = json.loads(line)
+    if what == "start":
+        pid = os.fork()
+        if pid == 0:
+            os.dup2(os.open(os.devnull, os.O_RDWR), 0)
+            os.dup2(os.open(os.devnull, os.O_WRONLY), 1)
+            try:
+                code = cli.main(arg)
+            except SystemExit as exc:
+                code = exc.code
+            os._exit(code if isinstance(code, int) else 1)
+        print(pid, flush=True)
+    elif what == "wait":
+        print(os.waitpid(arg, 0)[1], flush=True)
+"""
+
+
+class _Forked:
+    """The part of :class:`subprocess.Popen` the kill loop uses, for a collector forked by :class:`_Forker`."""
+
+    def __init__(self, forker: _Forker, pid: int):
+        self.forker, self.pid = forker, pid
+
+    def send_signal(self, sig: int) -> None:
+        os.kill(self.pid, sig)
+
+    def wait(self, timeout: float | None = None) -> int:
+        return self.forker.ask("wait", self.pid)
+
+
+class _Forker:
+    def __enter__(self) -> _Forker:
+        self.proc = subprocess.Popen([sys.executable, "-c", _FORKER], cwd=ROOT, stdin=subprocess.PIPE,
+                                     stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True)
+        assert self.proc.stdout.readline().strip() == "ready"
+        return self
+
+    def ask(self, what: str, arg) -> int:
+        self.proc.stdin.write(json.dumps([what, arg]) + "\n")
+        self.proc.stdin.flush()
+        return int(self.proc.stdout.readline())
+
+    def start(self, store_path, *args: str) -> _Forked:
+        return _Forked(self, self.ask("start", ["--store", str(store_path), "collect", *args]))
+
+    def __exit__(self, *exc) -> None:
+        self.proc.stdin.close()
+        self.proc.wait(10)
+
+
+def kill_mid_stream(tmp_path, record_property, *, kills: int, seed: int, alive_s: tuple[float, float],
+                    start=start_collector) -> None:
+    """Start the collector on a pty, SIGKILL it ``kills`` times at random moments, check every run."""
     store_path = tmp_path / "s.sqlite"
     pty = Pty()
     sender = Sender(pty, "jsonl", rate_hz=100.0, with_time=True, garbage_every=40)
     sender.start()
-    rng = random.Random(7)
+    rng = random.Random(seed)
     runs: list[tuple[float, float]] = []  # (newest stored time before the run, kill time)
     try:
-        for _ in range(KILLS):
+        for _ in range(kills):
             before = _max_t(store_path)
-            proc = start_collector(store_path, "--serial", pty.path, "--format", "jsonl", "--baud", "115200")
+            proc = start(store_path, "--serial", pty.path, "--format", "jsonl", "--baud", "115200")
             assert wait_for(lambda: _max_t(store_path) > before, 20.0), "collector stored nothing"
-            time.sleep(rng.uniform(0.3, 1.0))  # kill at a random point of the commit cycle
+            time.sleep(rng.uniform(*alive_s))  # kill at a random point of the commit cycle
             t_kill = time.time()
             proc.send_signal(signal.SIGKILL)
             proc.wait(10)
@@ -83,6 +159,6 @@ def test_sigkill_20_times_loses_at_most_1_s_each_and_the_store_stays_intact(tmp_
         expected = sent_t[(sent_t >= first - 2e-6) & (sent_t <= last + 2e-6) & (sent[:, 1] == 1)]
         stored = np.round(in_run[(in_run >= first) & (in_run <= last)], 6)
         assert len(stored) == len(expected), "a hole inside a run's stored readings"
-    assert len(runs) == KILLS
+    assert len(runs) == kills
     record_property("worst_loss_s", round(max(losses), 3))
     record_property("median_loss_s", round(float(np.median(losses)), 3))
