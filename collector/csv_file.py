@@ -51,6 +51,7 @@ import csv
 import hashlib
 import io
 import math
+import os
 import re
 import shutil
 import tempfile
@@ -1200,12 +1201,66 @@ def import_file(path: Path, store: Store, *, tz: str | None = None, channel: str
         shutil.rmtree(scratch, ignore_errors=True)
 
 
+SCRATCH_PREFIX = ".import-"
+SCRATCH_OWNER = "owner.pid"
+
+
 def _scratch_dir(store: Store) -> Path:
-    """A private scratch folder beside the store (else in the system's temporary folder)."""
+    """A private scratch folder beside the store (else in the system's temporary folder).
+
+    The folder holds the importing process's id; folders left behind by an import that was
+    killed (its process gone) are removed first, so a crash leaves no lasting copy of a log.
+    """
+    for parent, prefix in ((store.path.parent, SCRATCH_PREFIX), (Path(tempfile.gettempdir()), "drawdown-import-")):
+        _sweep_orphan_scratch(parent, prefix)
     try:
-        return Path(tempfile.mkdtemp(prefix=".import-", dir=store.path.parent))
+        folder = Path(tempfile.mkdtemp(prefix=SCRATCH_PREFIX, dir=store.path.parent))
     except OSError:
-        return Path(tempfile.mkdtemp(prefix="drawdown-import-"))
+        folder = Path(tempfile.mkdtemp(prefix="drawdown-import-"))
+    try:
+        (folder / SCRATCH_OWNER).write_text(str(os.getpid()), encoding="ascii")
+    except OSError:
+        pass  # no room even for a pid: the folder is still removed when this import ends
+    return folder
+
+
+def _sweep_orphan_scratch(parent: Path, prefix: str) -> int:
+    """Remove scratch folders under ``parent`` whose importing process no longer runs; how many."""
+    removed = 0
+    try:
+        candidates = [p for p in parent.iterdir() if p.name.startswith(prefix) and p.is_dir()]
+    except OSError:
+        return 0
+    for folder in candidates:
+        try:
+            pid = int((folder / SCRATCH_OWNER).read_text(encoding="ascii").strip())
+        except (OSError, ValueError):
+            # No owner written (killed between the two steps, or a disk full): an hour old is orphaned.
+            try:
+                if _time.time() - folder.stat().st_mtime < 3600:
+                    continue
+            except OSError:
+                continue
+        else:
+            if _pid_alive(pid):
+                continue
+        shutil.rmtree(folder, ignore_errors=True)
+        removed += 1
+    return removed
+
+
+def _pid_alive(pid: int) -> bool:
+    if pid == os.getpid():
+        return True
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True  # another user's process: not ours to judge
+    except OSError:
+        return False
+    return True
 
 
 def _text_shape(head: bytes) -> tuple[str, str]:

@@ -34,6 +34,7 @@ def _parser() -> argparse.ArgumentParser:
     s.add_argument("--days", type=int, default=None, help="days to simulate (default: the scenario's)")
     s.add_argument("--host", default="127.0.0.1")
     s.add_argument("--port", type=int, default=8050)
+    s.add_argument("--json", action="store_true", help="print the summary as one JSON object")
 
     s = sub.add_parser("import", help="ingest log files; prints a data-quality summary")
     s.add_argument("files", nargs="+", metavar="FILE")

@@ -48,7 +48,7 @@ from analysis.readings import split_channels
 from analysis.report import Report, build_report
 from analysis.runtime import runtime_left
 from analysis.solar import analyse_solar
-from analysis.system import System, SystemError_, parse_system
+from analysis.system import System, SystemError_, decode_system_bytes, parse_system
 from dashboard import figures, labels
 
 log = logging.getLogger(__name__)
@@ -583,15 +583,23 @@ class DataSource:
 
     # -- system ----------------------------------------------------------------
     def system_text(self) -> str | None:
+        """The system description's text (UTF-8, or UTF-16 as some editors save it); None when unreadable."""
         try:
-            return self.system_path.read_text(encoding="utf-8")
-        except (FileNotFoundError, UnicodeDecodeError):
+            return decode_system_bytes(self.system_path.read_bytes(), source=self.system_path.name)
+        except (OSError, SystemError_):
             return None
 
     def system(self) -> Section[System]:
-        text = self.system_text()
-        if text is None:
-            return Section(why=f"No system description at {self.system_path}: write one on the System setup page.")
+        try:
+            text = decode_system_bytes(self.system_path.read_bytes(), source=self.system_path.name)
+        except FileNotFoundError:
+            return Section(why=f"No system description at {self.system_path.name}: write one on the System "
+                               "setup page.")
+        except OSError as exc:
+            return Section(why=f"The system description {self.system_path.name} cannot be read "
+                               f"({exc.strerror or exc}).")
+        except SystemError_ as exc:
+            return Section(why=str(exc))
         try:
             return Section(parse_system(text, source=str(self.system_path)))
         except SystemError_ as exc:

@@ -236,6 +236,21 @@ def test_simulate_json_prints_one_object_naming_the_files(tmp_path):
     assert j["rows"] == 1440 and j["scenario"] == "autumn-van"
 
 
+def test_demo_json_prints_one_object_with_the_report_keys(tmp_path):
+    store = tmp_path / "demo" / "readings.sqlite"
+    r = drawdown("--store", str(store), "demo", "--no-serve", "--days", "2", "--json", timeout=300)
+    assert r.returncode == 0, r.stderr
+    j = json.loads(r.stdout)  # stdout is the one object, nothing else
+    assert j["scenario"] == "autumn-van" and j["days"] == 2 and j["serving"] is False
+    assert j["import"]["rows_stored"] > 0 and Path(j["log"]).exists() and Path(j["truth"]).exists()
+    rep = drawdown("--store", str(store), "report", "--json", timeout=300)
+    assert rep.returncode == 0, rep.stderr
+    assert set(j["report"]) == set(json.loads(rep.stdout))  # the same keys as `report --json`
+    again = json.loads(drawdown("--store", str(store), "demo", "--no-serve", "--days", "2", "--json",
+                                timeout=300).stdout)
+    assert again["import"]["already_imported"] is True
+
+
 def test_serve_json_prints_the_address_once_listening(tmp_path):
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))
@@ -309,6 +324,49 @@ def test_a_utf16_log_imports_through_the_command(tmp_path):
     r = drawdown("--store", str(tmp_path / "s.sqlite"), "import", str(log))
     assert r.returncode == 0, r.stderr
     assert "stored 30, rejected 0" in r.stdout and "UTF-16" in r.stdout
+
+
+def test_a_killed_conversion_leaves_no_lasting_scratch_copy(tmp_path):
+    """A UTF-16 import killed mid-way leaves its converted copy; the next import removes it."""
+    import signal
+
+    big = tmp_path / "big-utf16.csv"
+    big.write_bytes(("\r\n".join(_log_lines(200_000)) + "\r\n").encode("utf-16"))
+    store = tmp_path / "s.sqlite"
+    proc = subprocess.Popen([sys.executable, "-m", "dashboard.cli", "--store", str(store), "import", str(big)],
+                            cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    try:
+        for _ in range(600):  # the scratch folder lives from the conversion to the end of the import
+            if list(tmp_path.glob(".import-*/owner.pid")) or proc.poll() is not None:
+                break
+            time.sleep(0.05)
+        assert proc.poll() is None, "the import ended before it could be killed; make the log bigger"
+        proc.send_signal(signal.SIGKILL)
+    finally:
+        proc.wait(30)
+    left = list(tmp_path.glob(".import-*"))
+    assert len(left) == 1  # what a kill leaves behind ...
+    live = tmp_path / ".import-still-running"
+    live.mkdir()
+    (live / "owner.pid").write_text(str(os.getpid()))  # ... and a folder whose import still runs
+    small = tmp_path / "small-utf16.csv"
+    small.write_bytes(("\r\n".join(_log_lines(30, start="2024-07-01")) + "\r\n").encode("utf-16"))
+    r = drawdown("--store", str(store), "import", str(small))
+    assert r.returncode == 0, r.stderr
+    assert not left[0].exists()  # the orphan is gone
+    assert live.exists()  # a running import's copy is left alone
+
+
+def test_the_dashboard_reads_a_utf16_system_toml(tmp_path):
+    from dashboard.data import DataSource
+
+    sysp = tmp_path / "system.toml"
+    sysp.write_bytes(SYSTEM.encode("utf-16"))
+    section = DataSource(tmp_path / "s.sqlite", sysp).system()
+    assert section.why is None and section.value.battery.rated_capacity_Ah == 200
+    assert DataSource(tmp_path / "s.sqlite", sysp).system_text().lstrip("\ufeff").startswith("\n[site]")
+    missing = DataSource(tmp_path / "s.sqlite", tmp_path / "none.toml").system()
+    assert missing.value is None and "none.toml" in missing.why and str(tmp_path) not in missing.why
 
 
 # -- 9. system.toml: strict numbers, finite numbers, UTF-16 files -------------------------------

@@ -1,9 +1,11 @@
-"""``drawdown demo [--no-serve] [--scenario NAME] [--days N] [--host H] [--port P]``
+"""``drawdown demo [--no-serve] [--scenario NAME] [--days N] [--host H] [--port P] [--json]``
 
 Simulate a bundled scenario (default: ``autumn-van``) into a ``demo`` folder
 beside the store, write its system description beside the store if there is
 none, import the log, print a summary, and serve the dashboard unless
-``--no-serve``.
+``--no-serve``. With ``--json`` the summary is one JSON object on stdout: the scenario, the
+files written, the import's counts, and the report (the same keys as ``report --json``) or,
+when the analysis cannot run, the simulation's truth summary.
 
 Idempotent: the simulation uses the scenario's fixed seed, so the log is
 byte-identical every time and the importer's sha256 check stores it only once.
@@ -38,23 +40,35 @@ def _fmt(x: Any, spec: str = ".0f", unit: str = "") -> str:
         return str(x)
 
 
-def _summary_from_truth(truth: dict) -> list[str]:
+def _truth_figures(truth: dict) -> dict[str, Any]:
+    """The simulation's own figures (its truth file), for when the analysis cannot run."""
     days = truth["days"]
     n = len(days)
-    used = sum(d["consumed_Ah"] for d in days) / n
-    used_wh = sum(d["consumed_Wh"] for d in days) / n
-    by_src = {s: sum(d["charged_Ah"][s] for d in days) for s in ("solar", "alternator", "shore")}
-    total = sum(by_src.values()) or 1.0
     b = truth["battery"]
-    clear = [s for s in truth["solar"]["days"] if s["sky"] == "clear"]
+    return {
+        "days": n,
+        "mean_consumed_Ah": sum(d["consumed_Ah"] for d in days) / n,
+        "mean_consumed_Wh": sum(d["consumed_Wh"] for d in days) / n,
+        "charged_Ah": {s: sum(d["charged_Ah"][s] for d in days) for s in ("solar", "alternator", "shore")},
+        "usable_Ah": b["usable_Ah"], "rated_Ah": b["rated_Ah"], "state_of_health_pct": b["state_of_health_pct"],
+        "lowest_soc_pct": min(d["soc_min_pct"] for d in days),
+        "clear_days": sum(1 for s in truth["solar"]["days"] if s["sky"] == "clear"),
+        "solar_derate": truth["solar"]["derate"], "full_charges": len(truth["full_charges"]),
+    }
+
+
+def _summary_from_truth(truth: dict) -> list[str]:
+    f = _truth_figures(truth)
+    total = sum(f["charged_Ah"].values()) or 1.0
     return [
-        f"  {n} days; mean use {used:.0f} Ah/day ({used_wh:.0f} Wh/day)",
-        "  charge by source: " + ", ".join(f"{s} {v:.0f} Ah ({100 * v / total:.0f} %)" for s, v in by_src.items()),
-        f"  battery: {b['usable_Ah']:.0f} Ah usable of {b['rated_Ah']:g} Ah rated "
-        f"(state of health {b['state_of_health_pct']:.0f} %), lowest state of charge "
-        f"{min(d['soc_min_pct'] for d in days):.0f} %",
-        f"  solar: {len(clear)} clear days, system derate {truth['solar']['derate']:g}; "
-        f"bank full {len(truth['full_charges'])} times",
+        f"  {labels.plural(f['days'], 'day')}; mean use {f['mean_consumed_Ah']:.0f} Ah/day "
+        f"({f['mean_consumed_Wh']:.0f} Wh/day)",
+        "  charge by source: " + ", ".join(f"{s} {v:.0f} Ah ({100 * v / total:.0f} %)"
+                                           for s, v in f["charged_Ah"].items()),
+        f"  battery: {f['usable_Ah']:.0f} Ah usable of {f['rated_Ah']:g} Ah rated "
+        f"(state of health {f['state_of_health_pct']:.0f} %), lowest state of charge {f['lowest_soc_pct']:.0f} %",
+        f"  solar: {labels.plural(f['clear_days'], 'clear day')}, system derate {f['solar_derate']:g}; "
+        f"bank full {labels.plural(f['full_charges'], 'time')}",
     ]
 
 
@@ -138,10 +152,12 @@ def run(args: Any, ctx: Context) -> int:
                   f"{getattr(result, 'rows_rejected', '?')} rejected", file=sys.stderr)
 
     tz = system.site.timezone  # a person reads local time with its zone
-    print(f"drawdown demo: {scenario.name}, {labels.local_time(sim.truth['start'], tz)} .. "
-          f"{labels.local_time(sim.truth['end'], tz)}")
+    as_json = bool(getattr(args, "json", False))
+    if not as_json:
+        print(f"drawdown demo: {scenario.name}, {labels.local_time(sim.truth['start'], tz)} .. "
+              f"{labels.local_time(sim.truth['end'], tz)}")
     build_report = _optional("analysis.report", "build_report")
-    lines: list[str] | None = None
+    report = None
     if build_report is not None and imported:
         try:
             import pandas as pd
@@ -151,15 +167,32 @@ def run(args: Any, ctx: Context) -> int:
                 rejected = sum(int(i.get("rows_rejected") or 0) for i in store.imports())
             report = build_report(readings, system, rows_rejected=rejected,
                                   start=pd.Timestamp(sim.truth["start"]), end=pd.Timestamp(sim.truth["end"]))
-            print("analysis of the stored log:")
-            lines = _summary_from_report(report)
         except ValueError as exc:  # nothing analysable stored: show the truth, and say why
             print(f"the analysis could not run ({exc}); showing the simulation's truth", file=sys.stderr)
-    if lines is None:
-        print("what the simulation did (its truth file):")
-        lines = _summary_from_truth(sim.truth)
-    for line in lines:
-        print(line)
+    if as_json:
+        out_json: dict[str, Any] = {
+            "scenario": scenario.name, "start": sim.truth["start"], "end": sim.truth["end"], "days": days,
+            "log": str(out), "truth": str(truth_path), "system": str(ctx.system_path),
+            "store": str(ctx.store_path),
+            "import": None if not imported else {
+                "already_imported": bool(getattr(result, "already_imported", False)),
+                "rows_stored": getattr(result, "rows_stored", None),
+                "rows_rejected": getattr(result, "rows_rejected", None)},
+            "report": None if report is None else json.loads(json.dumps(report.to_json(), default=str)),
+            "truth_summary": None if report is not None else _truth_figures(sim.truth),
+            "serving": not args.no_serve,
+        }
+        print(json.dumps(out_json, indent=2), flush=True)
+    else:
+        if report is not None:
+            print("analysis of the stored log:")
+            lines = _summary_from_report(report)
+        else:
+            print("what the simulation did (its truth file):")
+            lines = _summary_from_truth(sim.truth)
+        for line in lines:
+            print(line)
+        sys.stdout.flush()
 
     if args.no_serve:
         return 0
