@@ -26,6 +26,12 @@ import pandas as pd
 
 from analysis.system import System
 
+#: The sizing targets every face starts from: days parked from full to the reserve, and the share
+#: of parked spells covered [%] (``drawdown size`` defaults, the Upgrade planner's first view and
+#: the HTML report's sizing section).
+DEFAULT_AUTONOMY_DAYS: float = 3.0
+DEFAULT_PERCENTILE: float = 90.0
+
 #: Quantile of the load current taken as the peak DC load of the distribution feeder [-].
 PEAK_LOAD_QUANTILE: float = 0.995
 #: Fewest load readings the peak is taken from (fewer: the inventory or a stated default is used).

@@ -87,8 +87,10 @@ def number(x: Any, digits: int = 1) -> str:
 
 
 def mm2(x: Any) -> str:
-    """A conductor cross-section as sold: whole mm² from 10 up, one decimal below (1.5, 2.5)."""
-    return number(x, 0 if (x or 0) >= 10 else 1)
+    """A conductor cross-section as it is sold and as the command line says it: 1.5, 2.5, 4, 6, 10, 16 (mm²)."""
+    if x is None or not isinstance(x, (int, float)) or x != x:
+        return number(x, 1)
+    return f"{round(float(x), 2):g}"
 
 
 def run_rows(runs: list[dict]) -> list[dict[str, Any]]:

@@ -61,11 +61,11 @@ def _write_html_report(report: Any, path: Path, system: Any, sizing: Any = None)
 
 def _html_sizing(readings: Any, system: Any) -> Any:
     """The sizing the HTML report opens with: ``drawdown size``'s answer at its default targets, or None."""
-    from analysis.answers import size_answer
+    from analysis.answers import DEFAULT_AUTONOMY_DAYS, DEFAULT_PERCENTILE, size_answer
     from analysis.sizing import SizingInputError
 
     try:
-        return size_answer(readings, system, autonomy_days=3.0, percentile=90.0)
+        return size_answer(readings, system, autonomy_days=DEFAULT_AUTONOMY_DAYS, percentile=DEFAULT_PERCENTILE)
     except SizingInputError as exc:
         warn(f"drawdown report: the HTML report has no sizing section ({exc})")
         return None

@@ -21,7 +21,9 @@ def run(args, ctx) -> int:
     from analysis.answers import size_answer
     from analysis.sizing import SizingInputError
 
-    n = 3.0 if args.autonomy_days is None else args.autonomy_days
+    from analysis.answers import DEFAULT_AUTONOMY_DAYS
+
+    n = DEFAULT_AUTONOMY_DAYS if args.autonomy_days is None else args.autonomy_days
     if not math.isfinite(n) or not 0 < n <= 60:
         raise UsageError(f"--autonomy-days {n:g}: expected 0 < N <= 60 days")
     if not math.isfinite(args.percentile) or not 50 <= args.percentile < 100:

@@ -15,6 +15,7 @@ from typing import Any
 import dash
 from dash import Input, Output, State, callback, dcc, html
 
+from analysis.answers import DEFAULT_AUTONOMY_DAYS, DEFAULT_PERCENTILE
 from dashboard import figures, ids, labels
 from dashboard.data import DataSource, as_json, current
 from dashboard.pages._parts import card, fmt, graph, missing, notice, page_head, table
@@ -30,10 +31,10 @@ def layout(**_kwargs: Any) -> html.Div:
                                      "and fuses it needs."),
         html.Div([
             html.Div([html.Label("Days parked, full to reserve", htmlFor=ids.PLAN_AUTONOMY, className="field-label"),
-                      dcc.Input(id=ids.PLAN_AUTONOMY, type="number", min=0.5, max=30, step=0.5, value=2,
+                      dcc.Input(id=ids.PLAN_AUTONOMY, type="number", min=0.5, max=30, step=0.5, value=DEFAULT_AUTONOMY_DAYS,
                                 debounce=True, className="number-input", inputMode="decimal")], className="field"),
             html.Div([html.Label("Cover this share of days", htmlFor=ids.PLAN_PERCENTILE, className="field-label"),
-                      dcc.Dropdown(id=ids.PLAN_PERCENTILE, value=90, clearable=False, searchable=False,
+                      dcc.Dropdown(id=ids.PLAN_PERCENTILE, value=int(DEFAULT_PERCENTILE), clearable=False, searchable=False,
                                    options=[{"label": f"{p} % of days", "value": p} for p in PERCENTILES],
                                    className="dropdown")], className="field"),
         ], className="controls"),
