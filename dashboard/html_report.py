@@ -226,7 +226,7 @@ def _quality(j: dict, tz: str = "UTC") -> str:
         items += [f"gap on {e(str(g.get('channel', '?')))} from {e(labels.local_time(g['start'], tz))} to "
                   f"{e(labels.local_time(g['end'], tz))} ({float(g['seconds']):.0f} s): energy unknown"
                   for g in longest]
-    items += [e(labels.for_people(n)) for n in dq.get("notes", [])]
+    items += [e(labels.sentence(n)) for n in dq.get("notes", [])]
     return "<ul>" + "".join(f"<li>{i}</li>" for i in items) + "</ul>"
 
 
@@ -269,7 +269,7 @@ def _headline(report: Any, j: dict, sizing: dict | None) -> str:
         f"<div class='card'><div class='label'>{e(a)}</div><div class='value'>{e(v)}</div>"
         f"<div class='note'>{e(labels.for_people(n))}</div></div>" for a, v, n in cards) + "</div>"
     if sizing is not None and sizing.get("verdict"):
-        out += "<ul class='verdict'>" + "".join(f"<li>{e(labels.for_people(v))}</li>" for v in sizing["verdict"]) + "</ul>"
+        out += "<ul class='verdict'>" + "".join(f"<li>{e(labels.sentence(v))}</li>" for v in sizing["verdict"]) + "</ul>"
     return out
 
 

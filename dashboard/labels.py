@@ -24,7 +24,9 @@ _UNITS = [(re.compile(r"(\d)\s*degC\b"), "\\1 °C"), (re.compile(r"\bdegC\b"), "
           (re.compile(r"\bmOhm\b"), "mΩ"), (re.compile(r"\blifepo4\b"), "LiFePO4"),
           # 'N thing(s)': singular for exactly 1 (not 0.1 or 21), plural otherwise; other words are left alone.
           (re.compile(r"(?<![\d.,])1 (\w+)\(s\)"), "1 \\1"), (re.compile(r"(\d) (\w+)\(s\)"), "\\1 \\2s"),
-          (re.compile(r"\b(\w+)\(s\)"), "\\1s")]
+          (re.compile(r"\b(\w+)\(s\)"), "\\1s"),
+          # 1500 W -> 1,500 W (a figure with a unit; dates and years carry none)
+          (re.compile(r"(?<![\d.,])(\d{4,})(?= ?(?:W|Wh|kWh|Ah|A|mAh)\b)"), lambda m: f"{int(m.group(1)):,}")]
 
 
 def chemistry(name: str | None) -> str:
@@ -43,6 +45,12 @@ def for_people(text: Any) -> str:
     for pattern, repl in _UNITS:
         out = pattern.sub(repl, out)
     return out
+
+
+def sentence(text: Any) -> str:
+    """:func:`for_people`, starting with a capital letter: a note shown on its own line."""
+    out = for_people(text)
+    return out[:1].upper() + out[1:] if out[:1].islower() else out
 
 
 def plural(n: int, word: str, many: str | None = None) -> str:

@@ -5,7 +5,7 @@ from the simulated 'autumn-van' scenario. Each test collects the browser's
 console errors, uncaught page errors and failed Dash callback responses
 (``/_dash-update-component`` answering >= 400) and requires none.
 
-Screenshots of every page at 1280 px and 390 px wide are written to
+Screenshots of every page at 1366 px and 390 px wide are written to
 artifacts/screenshots/ (git-ignored) for people to look at.
 
 Never run ``playwright install``: the tests use the system Chromium.
@@ -36,7 +36,7 @@ pytestmark = [
 
 PAGES = [("/", "now"), ("/trip", "trip"), ("/health", "health"), ("/solar", "solar"), ("/planner", "planner"),
          ("/setup", "setup")]
-WIDTHS = (1280, 390)
+WIDTHS = (1366, 390)
 
 
 @pytest.fixture(scope="module")

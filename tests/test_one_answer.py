@@ -495,3 +495,14 @@ def test_labels_spell_units_and_names_for_people():
     assert labels.for_people("below 0 degC; 4 mm2; 3 file(s); 1 gap(s)") == "below 0 °C; 4 mm²; 3 files; 1 gap"
     assert labels.local_time("2026-10-11T21:59:50+00:00", "Europe/Oslo") == "2026-10-11 23:59 CEST"
     assert labels.run_lengths({"battery-inverter": 1.5}) == "battery-inverter 1.5 m"
+
+
+def test_notes_read_as_sentences_with_thousands_separated():
+    # Common practice in written English: a sentence starts with a capital; 1,500 W groups its thousands.
+    from dashboard import labels
+
+    said = labels.sentence("the measured consumption already includes any inverter; a new 1500 W inverter "
+                           "left on adds about 360 Wh/day from 2026-09-21, 12000 Wh over 2026 days")
+    assert said.startswith("The measured")
+    assert "1,500 W" in said and "12,000 Wh" in said and "2026-09-21" in said and "2026 days" in said
+    assert labels.sentence("LiFePO4 bank") == "LiFePO4 bank"

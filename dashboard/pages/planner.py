@@ -89,7 +89,7 @@ def _assumption_items(js: dict[str, Any]) -> list[Any]:
     if cc.get("battery_capacity_Ah") is not None:
         items.append(f"Worksheet cross-check ({cc.get('method')}): battery {fmt(cc.get('battery_capacity_Ah'), 'Ah', 0)}, "
                      f"array {fmt(cc.get('array_W'), 'W', 0)}; " + "; ".join(cc.get("explanation") or []) + ".")
-    return [html.Li(labels.for_people(i)) for i in items]
+    return [html.Li(labels.sentence(i)) for i in items]
 
 
 def render_plan(source: DataSource, autonomy_days: float | None, percentile: float | None,
@@ -123,9 +123,9 @@ def render_plan(source: DataSource, autonomy_days: float | None, percentile: flo
     smaller = (bat.get("capacity_Ah") or 0) < (bat.get("present_Ah") or 0)
     cards = html.Div([
         html.P(f"For {fmt(autonomy_days, '', 1)} days parked, from full down to the reserve, in "
-               f"{fmt(percentile, '', 0)} % of parked spells, {basis}; the same answer as `drawdown size`.",
+               f"{fmt(percentile, '', 0)} % of parked spells, {basis}; the same answer as the command line's drawdown size.",
                className="hint"),
-        notice([labels.for_people(v) for v in js.get("verdict") or []], kind="info") if js.get("verdict") else "",
+        notice([labels.sentence(v) for v in js.get("verdict") or []], kind="info") if js.get("verdict") else "",
         html.Div([
             card("Battery", fmt(bat.get("capacity_Ah"), "Ah", 0),
                  " · ".join(x for x in (labels.chemistry(bat.get("chemistry")),
@@ -138,7 +138,7 @@ def render_plan(source: DataSource, autonomy_days: float | None, percentile: flo
                  inv.get("continuous_W_why") or (f"surge {fmt(inv.get('surge_W'), 'W', 0)}"
                                                  if inv.get("surge_W") else "continuous")),
         ], className="cards"),
-        notice([labels.for_people(n) for n in js.get("notes") or []], kind="info") if js.get("notes") else "",
+        notice([labels.sentence(n) for n in js.get("notes") or []], kind="info") if js.get("notes") else "",
     ])
     au = js.get("autonomy") or {}
     fig = figures.autonomy_figure((js.get("present_system") or {}).get("autonomy"), au,
@@ -148,7 +148,7 @@ def render_plan(source: DataSource, autonomy_days: float | None, percentile: flo
     runs_view = (table(rows, _RUN_COLUMNS, numeric=["current_A", "length_m", "cross_section_mm2", "drop_mm2",
                                                     "drop_awg", "fuse_A"]) if rows
                  else html.P("No cable runs in the result."))
-    cautions = [labels.for_people(_caution_text(c)) for c in js.get("cautions") or []]
+    cautions = [labels.sentence(_caution_text(c)) for c in js.get("cautions") or []]
     caution_view = html.Div([notice(cautions, kind="warn") if cautions else "",
                              html.Details([html.Summary("Assumptions and the worksheet cross-check"),
                                            html.Ul(_assumption_items(js))])])

@@ -79,8 +79,9 @@ def diagnostic_sections(diag: dict[str, Any], tz: str) -> list[tuple[str, list[s
                      "left out of the performance ratio.")
     cloud = diag.get("cloud_inclusive_ratio")
     if cloud is not None:
-        found.append(f"Over all daylight, clouds included, the array gave {100 * cloud:.0f} % of the clear-sky "
-                     "expectation.")
+        found.append(f"Over the daylight hours when the battery could take charge, clouds included, the array "
+                     f"gave {100 * cloud:.0f} % of the clear-sky expectation (the totals above also count the "
+                     "hours it was held back).")
     best = diag.get("best_clear_hour")
     if best:
         found.append(f"Best clear hour ({labels.local_time(best.get('start'), tz)}): {fmt(best.get('measured_W'), 'W', 0)} "

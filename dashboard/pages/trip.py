@@ -134,7 +134,7 @@ def _quality(source: DataSource, start_date: str, end_date: str) -> html.Div:
         for key, value in dq.items():
             if key.endswith("_why") or key in ("notes", "warnings"):
                 for line in value if isinstance(value, list) else [value]:
-                    items.append(html.Li(labels.for_people(line)))
+                    items.append(html.Li(labels.sentence(line)))
     else:
         led = source.ledger(start_date, end_date)
         if led.ok:
