@@ -137,7 +137,9 @@ def _base_layout(fig: go.Figure, *, title: str | None = None, height: int = 340,
                  legend_below: bool = True, subtitle: str | None = None) -> go.Figure:
     head: dict[str, Any] | None = None
     if title:
-        head = {"text": title, "x": 0.0, "xanchor": "left", "font": {"size": 15}}
+        # At the top of the chart's box (plotly centres it in the top margin otherwise, leaving a band above).
+        head = {"text": title, "x": 0.0, "xanchor": "left", "font": {"size": 15},
+                "y": 1.0, "yref": "container", "yanchor": "top", "pad": {"t": 12}}
         if subtitle:
             head["subtitle"] = {"text": _wrap(subtitle), "font": {"size": 11, "color": PALETTE["muted"]}}
     fig.update_layout(

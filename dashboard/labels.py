@@ -25,6 +25,7 @@ _UNITS = [(re.compile(r"(\d)\s*degC\b"), "\\1 °C"), (re.compile(r"\bdegC\b"), "
           # 'N thing(s)': singular for exactly 1 (not 0.1 or 21), plural otherwise; other words are left alone.
           (re.compile(r"(?<![\d.,])1 (\w+)\(s\)"), "1 \\1"), (re.compile(r"(\d) (\w+)\(s\)"), "\\1 \\2s"),
           (re.compile(r"\b(\w+)\(s\)"), "\\1s"),
+          (re.compile(r"(?<=\s)>=(?=\s)"), "≥"), (re.compile(r"(?<=\s)<=(?=\s)"), "≤"),
           # 1500 W -> 1,500 W (a figure with a unit; dates and years carry none)
           (re.compile(r"(?<![\d.,])(\d{4,})(?= ?(?:W|Wh|kWh|Ah|A|mAh)\b)"), lambda m: f"{int(m.group(1)):,}")]
 

@@ -12,7 +12,7 @@ from typing import Any
 import dash
 from dash import Input, Output, callback, html
 
-from dashboard import figures, ids
+from dashboard import figures, ids, labels
 from dashboard.data import HEALTH_DAYS, DataSource, current
 from dashboard.pages._parts import card, fmt, graph, missing, page_head
 
@@ -31,7 +31,8 @@ def layout(**_kwargs: Any) -> html.Div:
 
 
 def _why(battery: dict, key: str) -> str | None:
-    return battery.get(f"{key}_why")
+    why = battery.get(f"{key}_why")
+    return labels.for_people(why) if why else None
 
 
 def render_health(source: DataSource) -> tuple[Any, Any, Any, Any]:
