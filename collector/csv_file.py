@@ -1203,6 +1203,8 @@ def import_file(path: Path, store: Store, *, tz: str | None = None, channel: str
 
 SCRATCH_PREFIX = ".import-"
 SCRATCH_OWNER = "owner.pid"
+#: The fallback prefix in the system's temporary folder when the store's folder is not writable.
+TEMP_SCRATCH_PREFIX = "drawdown-import-"
 
 
 def _scratch_dir(store: Store) -> Path:
@@ -1211,12 +1213,12 @@ def _scratch_dir(store: Store) -> Path:
     The folder holds the importing process's id; folders left behind by an import that was
     killed (its process gone) are removed first, so a crash leaves no lasting copy of a log.
     """
-    for parent, prefix in ((store.path.parent, SCRATCH_PREFIX), (Path(tempfile.gettempdir()), "drawdown-import-")):
+    for parent, prefix in ((store.path.parent, SCRATCH_PREFIX), (Path(tempfile.gettempdir()), TEMP_SCRATCH_PREFIX)):
         _sweep_orphan_scratch(parent, prefix)
     try:
         folder = Path(tempfile.mkdtemp(prefix=SCRATCH_PREFIX, dir=store.path.parent))
     except OSError:
-        folder = Path(tempfile.mkdtemp(prefix="drawdown-import-"))
+        folder = Path(tempfile.mkdtemp(prefix=TEMP_SCRATCH_PREFIX))
     try:
         (folder / SCRATCH_OWNER).write_text(str(os.getpid()), encoding="ascii")
     except OSError:

@@ -72,14 +72,8 @@ def _summary_from_truth(truth: dict) -> list[str]:
     ]
 
 
-def _summary_from_report(report: Any) -> list[str]:
-    if hasattr(report, "to_json"):
-        report = report.to_json()
-    elif hasattr(report, "__dataclass_fields__"):
-        import dataclasses
-
-        report = dataclasses.asdict(report)
-    report = json.loads(json.dumps(report, default=str))
+def _summary_from_report(report: dict) -> list[str]:
+    """A few lines from the report's JSON form (the same keys ``report --json`` prints)."""
     days = report.get("days") or []
     bat = report.get("battery") or {}
     sol = report.get("solar") or {}
@@ -169,6 +163,7 @@ def run(args: Any, ctx: Context) -> int:
                                   start=pd.Timestamp(sim.truth["start"]), end=pd.Timestamp(sim.truth["end"]))
         except ValueError as exc:  # nothing analysable stored: show the truth, and say why
             print(f"the analysis could not run ({exc}); showing the simulation's truth", file=sys.stderr)
+    report_json = None if report is None else json.loads(json.dumps(report.to_json(), default=str))
     if as_json:
         out_json: dict[str, Any] = {
             "scenario": scenario.name, "start": sim.truth["start"], "end": sim.truth["end"], "days": days,
@@ -178,7 +173,7 @@ def run(args: Any, ctx: Context) -> int:
                 "already_imported": bool(getattr(result, "already_imported", False)),
                 "rows_stored": getattr(result, "rows_stored", None),
                 "rows_rejected": getattr(result, "rows_rejected", None)},
-            "report": None if report is None else json.loads(json.dumps(report.to_json(), default=str)),
+            "report": report_json,
             "truth_summary": None if report is not None else _truth_figures(sim.truth),
             "serving": not args.no_serve,
         }
@@ -186,7 +181,7 @@ def run(args: Any, ctx: Context) -> int:
     else:
         if report is not None:
             print("analysis of the stored log:")
-            lines = _summary_from_report(report)
+            lines = _summary_from_report(report_json)
         else:
             print("what the simulation did (its truth file):")
             lines = _summary_from_truth(sim.truth)
