@@ -17,6 +17,7 @@ Everything that cannot be estimated is ``None`` with a sibling ``*_why``.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -42,7 +43,7 @@ from analysis.readings import US_PER_S, split_channels
 from analysis.runtime import RuntimeEstimate, runtime_left
 from analysis.soc_band import capacity_range_Ah, soc_band_pct
 from analysis.solar import SolarAnalysis, analyse_solar
-from analysis.json_values import rounded
+from analysis.json_values import json_ready
 from analysis.system import System
 
 #: Days whose mean |our SoC - device SoC| exceeds this are flagged [%].
@@ -63,9 +64,19 @@ def hidden_load_note(hours: float) -> str:
 PLOT_POINTS: int = 2000
 
 
-def _r(x: Any, nd: int = 3) -> Any:
-    """This module's JSON rounding (3 decimals unless told): :func:`analysis.json_values.rounded`."""
-    return rounded(x, nd)
+#: Decimals the report JSON keeps (values below 10^-(n-1) keep 4 significant digits): analysis.json_values.
+JSON_DECIMALS: int = 3
+
+
+def _v(x: Any) -> Any:
+    """A number at full precision, or None where it is not finite (NaN is not JSON); rounding is the faces' job."""
+    if x is None:
+        return None
+    try:
+        xf = float(x)
+    except (TypeError, ValueError):
+        return x
+    return xf if math.isfinite(xf) else None
 
 
 @dataclass(frozen=True)
@@ -97,9 +108,12 @@ class Report:
     charging: ChargingAnalysis | None = field(default=None, repr=False, compare=False)
 
     def to_json(self) -> dict:
-        """The report JSON object (DESIGN.md keys first, then extras)."""
-        return {"period": self.period, "data_quality": self.data_quality, "days": self.days,
-                "battery": self.battery, "solar": self.solar, **self.extras}
+        """The report JSON object (contract keys first, then extras), rounded here and only here.
+
+        The sections hold full-precision values; JSON keeps :data:`JSON_DECIMALS` decimals.
+        """
+        return json_ready({"period": self.period, "data_quality": self.data_quality, "days": self.days,
+                           "battery": self.battery, "solar": self.solar, **self.extras}, JSON_DECIMALS)
 
 
 def _rows_stored(channels: dict) -> int:
@@ -310,16 +324,16 @@ def _assemble(channels, system: System, rows_rejected: int, soc: SocResult | Non
     days = []
     for k_day, row in enumerate(d.itertuples(index=False)):  # one row per day
         item = {"date": row.date.isoformat(), "complete": bool(row.complete),
-                "consumed_Ah": _r(row.consumed_Ah), "consumed_Wh": _r(row.consumed_Wh, 1),
-                "charged_Ah": {s: _r(getattr(row, f"charged_Ah_{s}")) for s in SOURCES},
-                "charged_Wh": {s: _r(getattr(row, f"charged_Wh_{s}"), 1) for s in SOURCES},
-                "soc_min_pct": _r(row.soc_min_pct, 2), "soc_end_pct": _r(row.soc_end_pct, 2),
-                "mean_temperature_C": _r(row.mean_temperature_C, 2), "driving_h": _r(row.driving_h, 3),
-                "hidden_load_h": _r(row.hidden_load_h, 2),
-                "observed_load_share": _r(row.observed_load_share, 3),
-                "device_soc_diff_pct": _r(row.device_soc_diff_pct, 2)}
+                "consumed_Ah": _v(row.consumed_Ah), "consumed_Wh": _v(row.consumed_Wh),
+                "charged_Ah": {s: _v(getattr(row, f"charged_Ah_{s}")) for s in SOURCES},
+                "charged_Wh": {s: _v(getattr(row, f"charged_Wh_{s}")) for s in SOURCES},
+                "soc_min_pct": _v(row.soc_min_pct), "soc_end_pct": _v(row.soc_end_pct),
+                "mean_temperature_C": _v(row.mean_temperature_C), "driving_h": _v(row.driving_h),
+                "hidden_load_h": _v(row.hidden_load_h),
+                "observed_load_share": _v(row.observed_load_share),
+                "device_soc_diff_pct": _v(row.device_soc_diff_pct)}
         if np.isfinite(row.consumed_Ah_pi95_lo):
-            item["consumed_Ah_pi95"] = [_r(row.consumed_Ah_pi95_lo), _r(row.consumed_Ah_pi95_hi)]
+            item["consumed_Ah_pi95"] = [_v(row.consumed_Ah_pi95_lo), _v(row.consumed_Ah_pi95_hi)]
         if row.hidden_load_h > HIDDEN_NOTE_H:
             item["hidden_load_note"] = hidden_load_note(row.hidden_load_h)
         if not row.complete:
@@ -330,22 +344,22 @@ def _assemble(channels, system: System, rows_rejected: int, soc: SocResult | Non
         elif np.isfinite(row.soc_min_pct) and row.soc_min_pct < LOW_SOC_NOTE_PCT:
             item["soc_min_pct_note"] = _low_soc_note(soc, led.bounds_us, k_day, b, cap)
         days.append(item)
-    battery = {"rated_Ah": b.rated_capacity_Ah, "usable_Ah": _r(cap.usable_Ah, 2),
-               "usable_Ah_ci95": [_r(cap.ci95_Ah[0], 2), _r(cap.ci95_Ah[1], 2)] if cap.ci95_Ah else None,
-               "state_of_health_pct": _r(cap.state_of_health_pct, 1),
-               "peukert_k": _r(peuk.k, 4), "peukert_k_source": peuk.source,
-               "internal_resistance_ohm": _r(ir.ohm, 5),
+    battery = {"rated_Ah": b.rated_capacity_Ah, "usable_Ah": _v(cap.usable_Ah),
+               "usable_Ah_ci95": [_v(cap.ci95_Ah[0]), _v(cap.ci95_Ah[1])] if cap.ci95_Ah else None,
+               "state_of_health_pct": _v(cap.state_of_health_pct),
+               "peukert_k": _v(peuk.k), "peukert_k_source": peuk.source,
+               "internal_resistance_ohm": _v(ir.ohm),
                "chemistry": b.chemistry, "capacity_method": cap.method,
                "anchor_pairs": [p.to_json() for p in cap.pairs],
-               "internal_resistance_trend_ohm_per_30d": _r(ir.trend_ohm_per_30d, 6),
+               "internal_resistance_trend_ohm_per_30d": _v(ir.trend_ohm_per_30d),
                "internal_resistance_steps": ir.steps,
-               "internal_resistance_days": [{"date": r.date.isoformat(), "ohm": _r(r.ohm, 5), "steps": int(r.steps)}
+               "internal_resistance_days": [{"date": r.date.isoformat(), "ohm": _v(r.ohm), "steps": int(r.steps)}
                                             for r in ir.per_day.itertuples(index=False)] if len(ir.per_day) else []}
-    battery["charge_efficiency"] = _r(b.effective_charge_efficiency, 3)
+    battery["charge_efficiency"] = _v(b.effective_charge_efficiency)
     if eta is not None and eta.cycles and eta.eta is not None:
         battery["charge_efficiency_source"] = (f"measured over {eta.cycles} full-to-full cycle{'' if eta.cycles == 1 else 's'}, weighed "
                                                "against the chemistry default")
-        battery["charge_efficiency_sigma"] = _r(eta.sigma, 3)
+        battery["charge_efficiency_sigma"] = _v(eta.sigma)
     elif b.charge_efficiency is not None and (eta is None or not eta.cycles):
         battery["charge_efficiency_source"] = "system.toml"
     else:
@@ -372,23 +386,23 @@ def _assemble(channels, system: System, rows_rejected: int, soc: SocResult | Non
         band_lo, band_hi = soc_band_pct(soc.t_us, soc.soc, soc.capacity_Ah, c_rng,
                                         [(a.index, a.soc_pct, a.sigma) for a in soc.anchors], at=idx)
         extras["soc_series"] = {"t": [_iso_us(t) for t in soc.t_us[idx]],
-                                "soc_pct": [round(float(v), 2) for v in soc.soc[idx]],
-                                "soc_pct_lo": [round(float(v), 2) for v in band_lo],
-                                "soc_pct_hi": [round(float(v), 2) for v in band_hi],
-                                "band_capacity_Ah": [_r(c_rng[0], 1), _r(c_rng[1], 1)],
+                                "soc_pct": [float(v) for v in soc.soc[idx]],
+                                "soc_pct_lo": [float(v) for v in band_lo],
+                                "soc_pct_hi": [float(v) for v in band_hi],
+                                "band_capacity_Ah": [_v(c_rng[0]), _v(c_rng[1])],
                                 "band_why": ("95 % band: the capacity the count is divided by ("
                                              + (f"measured, {c_rng[0]:.0f}-{c_rng[1]:.0f} Ah" if cap.ci95_Ah else
                                                 f"not pinned by the log: {c_rng[0]:.0f}-{c_rng[1]:.0f} Ah")
                                              + "), each reset's own uncertainty and the shunt's zero offset "
                                              "since then (docs/validation.md)")}
         extras["resyncs"] = [a.time.isoformat() for a in soc.anchors if a.kind == "full"]
-        extras["ocv_anchors"] = [{"t": a.time.isoformat(), "soc_pct": round(a.soc_pct, 1), "kind": a.kind}
+        extras["ocv_anchors"] = [{"t": a.time.isoformat(), "soc_pct": float(a.soc_pct), "kind": a.kind}
                                  for a in soc.capacity_anchors if a.kind != "full"]
         extras["soc_start"] = soc.start
-        extras["soc_capacity_Ah"] = _r(soc.capacity_Ah, 2)
+        extras["soc_capacity_Ah"] = _v(soc.capacity_Ah)
         dis = d[d["device_soc_diff_pct"] > DEVICE_DISAGREEMENT_PCT]
         extras["device_soc_disagreement_days"] = [{"date": r.date.isoformat(),
-                                                    "mean_abs_diff_pct": _r(r.device_soc_diff_pct, 2)}
+                                                    "mean_abs_diff_pct": _v(r.device_soc_diff_pct)}
                                                    for r in dis.itertuples(index=False)]
         if not np.isfinite(d["device_soc_diff_pct"]).any():
             extras["device_soc_disagreement_days_why"] = "the log has no device SoC column"

@@ -13,22 +13,16 @@ byte-identical every time and the importer's sha256 check stores it only once.
 
 from __future__ import annotations
 
-import importlib
 import json
 import sys
 from typing import Any
 
+import pandas as pd
+
+from analysis.report import build_report
+from collector.csv_file import import_file
 from dashboard import labels
 from dashboard.context import Context, UsageError
-
-
-def _optional(module: str, name: str) -> Any | None:
-    try:
-        return getattr(importlib.import_module(module), name)
-    except ImportError:
-        return None
-    except AttributeError:
-        return None
 
 
 def _fmt(x: Any, spec: str = ".0f", unit: str = "") -> str:
@@ -130,49 +124,36 @@ def run(args: Any, ctx: Context) -> int:
         print(f"system description: wrote {ctx.system_path}", file=sys.stderr)
     system = ctx.load_system()
 
-    import_file = _optional("collector.csv_file", "import_file")
-    imported = False
-    if import_file is None:
-        print("the CSV importer (collector.csv_file.import_file) is not installed: nothing imported", file=sys.stderr)
+    with ctx.open_store() as store:
+        result = import_file(out, store, tz=system.site.timezone,
+                             nominal_voltage_V=system.battery.nominal_voltage_V)
+    if result.already_imported:
+        print("import: already in the store (same content), nothing added", file=sys.stderr)
     else:
-        with ctx.open_store() as store:
-            result = import_file(out, store, tz=system.site.timezone,
-                                 nominal_voltage_V=system.battery.nominal_voltage_V)
-        imported = True
-        if getattr(result, "already_imported", False):
-            print("import: already in the store (same content), nothing added", file=sys.stderr)
-        else:
-            print(f"import: {getattr(result, 'rows_stored', '?')} rows stored, "
-                  f"{getattr(result, 'rows_rejected', '?')} rejected", file=sys.stderr)
+        print(f"import: {result.rows_stored} rows stored, {result.rows_rejected} rejected", file=sys.stderr)
 
     tz = system.site.timezone  # a person reads local time with its zone
     as_json = bool(getattr(args, "json", False))
     if not as_json:
         print(f"drawdown demo: {scenario.name}, {labels.local_time(sim.truth['start'], tz)} .. "
               f"{labels.local_time(sim.truth['end'], tz)}")
-    build_report = _optional("analysis.report", "build_report")
     report = None
-    if build_report is not None and imported:
-        try:
-            import pandas as pd
-
-            with ctx.open_store() as store:
-                readings = store.read(sim.truth["start"], sim.truth["end"])
-                rejected = sum(int(i.get("rows_rejected") or 0) for i in store.imports())
-            report = build_report(readings, system, rows_rejected=rejected,
-                                  start=pd.Timestamp(sim.truth["start"]), end=pd.Timestamp(sim.truth["end"]))
-        except ValueError as exc:  # nothing analysable stored: show the truth, and say why
-            print(f"the analysis could not run ({exc}); showing the simulation's truth", file=sys.stderr)
+    try:
+        with ctx.open_store() as store:
+            readings = store.read(sim.truth["start"], sim.truth["end"])
+            rejected = sum(int(i.get("rows_rejected") or 0) for i in store.imports())
+        report = build_report(readings, system, rows_rejected=rejected,
+                              start=pd.Timestamp(sim.truth["start"]), end=pd.Timestamp(sim.truth["end"]))
+    except ValueError as exc:  # nothing analysable stored: show the truth, and say why
+        print(f"the analysis could not run ({exc}); showing the simulation's truth", file=sys.stderr)
     report_json = None if report is None else json.loads(json.dumps(report.to_json(), default=str))
     if as_json:
         out_json: dict[str, Any] = {
             "scenario": scenario.name, "start": sim.truth["start"], "end": sim.truth["end"], "days": days,
             "log": str(out), "truth": str(truth_path), "system": str(ctx.system_path),
             "store": str(ctx.store_path),
-            "import": None if not imported else {
-                "already_imported": bool(getattr(result, "already_imported", False)),
-                "rows_stored": getattr(result, "rows_stored", None),
-                "rows_rejected": getattr(result, "rows_rejected", None)},
+            "import": {"already_imported": result.already_imported, "rows_stored": result.rows_stored,
+                       "rows_rejected": result.rows_rejected},
             "report": report_json,
             "truth_summary": None if report is not None else _truth_figures(sim.truth),
             "serving": not args.no_serve,
@@ -191,8 +172,6 @@ def run(args: Any, ctx: Context) -> int:
 
     if args.no_serve:
         return 0
-    serve = _optional("dashboard.app", "serve")
-    if serve is None:
-        print("the dashboard (dashboard.app.serve) is not installed; stopping here", file=sys.stderr)
-        return 0
+    from dashboard.app import serve  # the web stack loads only when serving
+
     return int(serve(ctx, args.host, args.port) or 0)
