@@ -126,6 +126,10 @@ def downsample(t: Any, y: Any, n_out: int = SCREEN_POINTS, *, gap_factor: float 
 SUBTITLE_CHARS = 62
 
 
+#: Characters per line of a chart's "nothing to show" message (fits 390 px at 13 px).
+MESSAGE_CHARS: int = 44
+
+
 def _wrap(text: str, width: int = SUBTITLE_CHARS) -> str:
     """A subtitle broken at spaces into lines of at most ``width`` characters (plotly's '<br>')."""
     import textwrap
@@ -139,7 +143,7 @@ def _base_layout(fig: go.Figure, *, title: str | None = None, height: int = 340,
     if title:
         # At the top of the chart's box (plotly centres it in the top margin otherwise, leaving a band above).
         head = {"text": title, "x": 0.0, "xanchor": "left", "font": {"size": 15},
-                "y": 1.0, "yref": "container", "yanchor": "top", "pad": {"t": 12}}
+                "y": 1.0, "yref": "container", "yanchor": "top", "pad": {"t": 10, "l": 14}}
         if subtitle:
             head["subtitle"] = {"text": _wrap(subtitle), "font": {"size": 11, "color": PALETTE["muted"]}}
     fig.update_layout(
@@ -167,7 +171,8 @@ def _base_layout(fig: go.Figure, *, title: str | None = None, height: int = 340,
 def message_figure(message: str, *, title: str | None = None, height: int = 220) -> go.Figure:
     """An empty plot that says why there is nothing to show (e.g. 'not available yet')."""
     fig = go.Figure()
-    fig.add_annotation(text=message, x=0.5, y=0.5, xref="paper", yref="paper", showarrow=False,
+    # Broken into short lines: one long line is cut at both ends on a phone.
+    fig.add_annotation(text=_wrap(message, MESSAGE_CHARS), x=0.5, y=0.5, xref="paper", yref="paper", showarrow=False,
                        font={"size": 13, "color": PALETTE["muted"]})
     fig.update_xaxes(visible=False)
     fig.update_yaxes(visible=False)

@@ -51,10 +51,9 @@ _CSS = (
     f"header{{background:{_P['soc']};color:#fff;padding:0.8em 1.2em}}header h1{{margin:0;font-size:1.4em}}"
     "header p{margin:0.2em 0 0;opacity:0.85;font-size:0.9em}"
     "h2{font-size:1.1em;margin:1.6em 0 0.5em}"
-    f".fig{{background:{_P['paper']};border:1px solid #e0dbd0;border-radius:8px;margin:0.8em 0;padding:4px;"
-    "padding-top:28px}"
-    # The chart toolbar sits in the strip above the chart, never over its title.
-    ".fig .modebar-container{top:-24px!important}"
+    f".fig{{background:{_P['paper']};border:1px solid #e0dbd0;border-radius:8px;margin:0.8em 0;padding:4px}}"
+    # The chart toolbar sits top right beside the title; on a phone, in a strip above the chart, never over it.
+    "@media (max-width:700px){.fig{padding-top:28px}.fig .modebar-container{top:-24px!important}}"
     # A wide table scrolls inside its box: the first column stays pinned, a shadow on the right edge and
     # (on a phone) a line above it say there is more to the right.
     f".wide{{overflow-x:auto;background:linear-gradient(to left,{_P['paper']} 40%,rgba(255,253,249,0)) "

@@ -90,3 +90,52 @@ def test_chart_subtitles_stay_inside_their_chart_on_a_phone(server, watched, pat
     w.settle()
     past = w.page.evaluate(SUBTITLE_JS)
     assert past and max(past) <= 0, f"{path}: a chart subtitle runs {max(past):.0f} px past the chart at 390 px"
+
+
+#: Per chart: [title top - chart box top, does the toolbar's box cross the title's box] after a hover.
+TITLE_JS = """() => Array.from(document.querySelectorAll('.js-plotly-plot')).flatMap(plot => {
+  const t = plot.querySelector('.gtitle'), m = plot.querySelector('.modebar');
+  if (!t) return [];
+  const box = plot.closest('.graph, .fig') || plot, b = box.getBoundingClientRect(), r = t.getBoundingClientRect();
+  let crosses = false;
+  if (m) { const q = m.getBoundingClientRect();
+    crosses = q.width > 0 && q.left < r.right && r.left < q.right && q.top < r.bottom && r.top < q.bottom; }
+  return [[r.top - b.top, crosses, r.left - b.left]];
+})"""
+
+
+@pytest.mark.parametrize("width", [1366, 390])
+# Not /now: its live chart has no title while readings are fresh.
+@pytest.mark.parametrize("path", ["/health", "/trip", "/solar", "/planner"])
+def test_chart_titles_sit_at_the_top_of_their_box_clear_of_the_toolbar(server, watched, path, width):
+    w = watched(width)
+    assert w.page.goto(server + path).status == 200
+    w.page.wait_for_selector(".js-plotly-plot .gtitle", timeout=60_000)
+    w.settle()
+    for k in range(w.page.locator(".js-plotly-plot").count()):  # the toolbar shows on hover
+        w.page.locator(".js-plotly-plot").nth(k).hover()
+        found = w.page.evaluate(TITLE_JS)
+        assert found, f"{path}: no chart title"
+        top, crosses, left = found[min(k, len(found) - 1)]
+        assert not crosses, f"{path} at {width} px: the chart toolbar lies over a chart title"
+        assert left >= 8, f"{path} at {width} px: a chart title touches its box's left edge ({left:.0f} px)"
+        # On a wide screen the title opens the box; on a phone the toolbar's strip sits above it.
+        assert top <= (24 if width > 700 else 52), f"{path} at {width} px: a chart title starts {top:.0f} px down"
+
+
+#: Per chart annotation: how far it reaches past its chart's left and right edges [px].
+ANNOTATION_JS = """() => Array.from(document.querySelectorAll('.js-plotly-plot')).flatMap(plot => {
+  const b = plot.getBoundingClientRect();
+  return Array.from(plot.querySelectorAll('.annotation-text')).map(t => {
+    const r = t.getBoundingClientRect(); return Math.max(b.left - r.left, r.right - b.right); });
+})"""
+
+
+def test_a_chart_that_has_nothing_to_show_says_why_within_its_box_on_a_phone(server, watched):
+    # The demo's Battery health page: no capacity or resistance estimate yet, each chart says why.
+    w = watched(390)
+    assert w.page.goto(server + "/health").status == 200
+    w.page.wait_for_selector(".js-plotly-plot .annotation-text", timeout=60_000)
+    w.settle()
+    past = w.page.evaluate(ANNOTATION_JS)
+    assert past and max(past) <= 0, f"a chart's message runs {max(past):.0f} px past its chart at 390 px"
