@@ -24,7 +24,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from analysis.system import System
+from drawdown.analysis.system import System
 
 #: The sizing targets every face starts from: days parked from full to the reserve, and the share
 #: of parked spells covered [%] (``drawdown size`` defaults, the Upgrade planner's first view and
@@ -59,7 +59,7 @@ class SizingInputs:
 
 
 def _ledger_days(readings: pd.DataFrame, system: System, notes: list[str]) -> pd.DataFrame | None:
-    from analysis.ledger import daily_ledger
+    from drawdown.analysis.ledger import daily_ledger
 
     try:
         return daily_ledger(readings, system)
@@ -71,7 +71,7 @@ def _ledger_days(readings: pd.DataFrame, system: System, notes: list[str]) -> pd
 def _performance_ratio(readings: pd.DataFrame, system: System, notes: list[str]) -> float | None:
     if not system.solar:
         return None
-    from analysis.solar import analyse_solar
+    from drawdown.analysis.solar import analyse_solar
 
     try:
         pr = analyse_solar(readings, system).performance_ratio
@@ -118,7 +118,7 @@ def size_with(inputs: SizingInputs, system: System, *, autonomy_days: float, per
     analysis.sizing.SizingInputError
         No logs and no inventory, or a target out of range (the message names it).
     """
-    from analysis.sizing import recommend
+    from drawdown.analysis.sizing import recommend
 
     result = recommend(system, inputs.days, autonomy_days=autonomy_days, percentile=percentile,
                        performance_ratio=inputs.performance_ratio, min_temperature_C=inputs.min_temperature_C,
@@ -166,7 +166,7 @@ def sizing_verdict(result) -> list[str]:
     ----------
     result : analysis.sizing.SizingResult
     """
-    from analysis.sizing import MONTH_NAMES
+    from drawdown.analysis.sizing import MONTH_NAMES
 
     b, s, dc, au, pres = result.battery, result.solar, result.dc_dc_charger, result.autonomy, result.present
     p, target, horizon = au["percentile"], au["target_days"], au["horizon_days"]

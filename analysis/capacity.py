@@ -21,10 +21,10 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from analysis.charge import Anchor, SocResult, corrected_current_A, trapezoid_increments
-from analysis.peukert import fit_exponent
-from analysis.readings import US_PER_S, Channel
-from analysis.system import CHEMISTRY_DEFAULTS, System
+from drawdown.analysis.charge import Anchor, SocResult, corrected_current_A, trapezoid_increments
+from drawdown.analysis.peukert import fit_exponent
+from drawdown.analysis.readings import US_PER_S, Channel
+from drawdown.analysis.system import CHEMISTRY_DEFAULTS, System
 
 MIN_DELTA_SOC: float = 0.4  # common practice (docs/capacity.md)
 #: How far back [us] beyond the nearest qualifying start anchor a better-known one is sought.
@@ -156,7 +156,7 @@ def estimate_charge_efficiency(ch: Channel, soc: SocResult, system: System, *,
     and its :data:`ETA_SIGMA` (inverse-variance weights: the default is the prior).
     The result is bounded to 0.70-1.00.
     """
-    from analysis.charge import FULL_SIGMA
+    from drawdown.analysis.charge import FULL_SIGMA
 
     b = system.battery
     full = [a for a in soc.anchors if a.kind == "full"]

@@ -31,9 +31,9 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 import pandas as pd
 
-from analysis import ocv as ocv_mod
-from analysis.peukert import effective_current
-from analysis.readings import (
+from drawdown.analysis import ocv as ocv_mod
+from drawdown.analysis.peukert import effective_current
+from drawdown.analysis.readings import (
     BLOCK,
     US_PER_S,
     Channel,
@@ -43,7 +43,7 @@ from analysis.readings import (
     gap_threshold_s,
     median_interval_s,
 )
-from analysis.system import System
+from drawdown.analysis.system import System
 
 #: One-sigma uncertainty of a full-charge resync [fraction of capacity] (common practice: ~ 2-3 %;
 #: a tail-current criterion fires a little before the bank is truly full).
@@ -475,7 +475,7 @@ def device_disagreement_pct(soc: np.ndarray, device_soc_pct: np.ndarray, day: np
 def device_disagreement_by_day(soc: np.ndarray, device_soc_pct: np.ndarray, t_us: np.ndarray,
                                bounds_us: np.ndarray) -> np.ndarray:
     """As :func:`device_disagreement_pct`, one local day at a time (bounded memory on a year at 1 Hz)."""
-    from analysis.readings import per_day_mean
+    from drawdown.analysis.readings import per_day_mean
 
     return per_day_mean(t_us, device_soc_pct, bounds_us, minus=soc)
 

@@ -25,10 +25,10 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from analysis.readings import epoch_us
-from analysis.solar_bins import ChannelBinner, Grid
-from analysis.json_values import rounded
-from analysis.system import System
+from drawdown.analysis.readings import epoch_us
+from drawdown.analysis.solar_bins import ChannelBinner, Grid
+from drawdown.analysis.json_values import rounded
+from drawdown.analysis.system import System
 
 __all__ = ["ChargingAnalysis", "analyse_charging", "dc_dc_input_current_A", "SOURCES"]
 

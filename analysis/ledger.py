@@ -26,13 +26,13 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from analysis.charge import (
+from drawdown.analysis.charge import (
     SocResult,
     device_disagreement_by_day,
     state_of_charge,
     trapezoid_increments,
 )
-from analysis.readings import (
+from drawdown.analysis.readings import (
     US_PER_S,
     Channel,
     Gap,
@@ -46,9 +46,9 @@ from analysis.readings import (
     per_day_mean,
     split_channels,
 )
-from analysis.instrument import daily_half_width_Ah, offset_bound_A
-from analysis.single_shunt import SOURCES, LoadModel, single_shunt_ledger
-from analysis.system import System
+from drawdown.analysis.instrument import daily_half_width_Ah, offset_bound_A
+from drawdown.analysis.single_shunt import SOURCES, LoadModel, single_shunt_ledger
+from drawdown.analysis.system import System
 
 LEDGER_COLUMNS: tuple[str, ...] = (
     "date", "complete", "consumed_Ah", "consumed_Wh",

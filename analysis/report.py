@@ -24,7 +24,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from analysis.capacity import (
+from drawdown.analysis.capacity import (
     MIN_DELTA_SOC,
     CapacityEstimate,
     EfficiencyEstimate,
@@ -36,15 +36,15 @@ from analysis.capacity import (
     fit_peukert,
     internal_resistance,
 )
-from analysis.charge import SocResult, state_of_charge
-from analysis.charging import ChargingAnalysis, analyse_charging
-from analysis.ledger import SOURCES, LedgerResult, compute_ledger
-from analysis.readings import US_PER_S, split_channels
-from analysis.runtime import RuntimeEstimate, runtime_left
-from analysis.soc_band import capacity_range_Ah, soc_band_pct
-from analysis.solar import SolarAnalysis, analyse_solar
-from analysis.json_values import json_ready
-from analysis.system import System
+from drawdown.analysis.charge import SocResult, state_of_charge
+from drawdown.analysis.charging import ChargingAnalysis, analyse_charging
+from drawdown.analysis.ledger import SOURCES, LedgerResult, compute_ledger
+from drawdown.analysis.readings import US_PER_S, split_channels
+from drawdown.analysis.runtime import RuntimeEstimate, runtime_left
+from drawdown.analysis.soc_band import capacity_range_Ah, soc_band_pct
+from drawdown.analysis.solar import SolarAnalysis, analyse_solar
+from drawdown.analysis.json_values import json_ready
+from drawdown.analysis.system import System
 
 #: Days whose mean |our SoC - device SoC| exceeds this are flagged [%].
 DEVICE_DISAGREEMENT_PCT: float = 5.0

@@ -15,8 +15,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from analysis.peukert import effective_current
-from analysis.system import System
+from drawdown.analysis.peukert import effective_current
+from drawdown.analysis.system import System
 
 
 @dataclass(frozen=True)

@@ -37,9 +37,9 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from analysis.instrument import SHUNT_OFFSET95_A, daily_half_width_Ah
-from analysis.readings import US_PER_S, Channel, day_index, fill0, median_interval_s
-from analysis.system import System
+from drawdown.analysis.instrument import SHUNT_OFFSET95_A, daily_half_width_Ah
+from drawdown.analysis.readings import US_PER_S, Channel, day_index, fill0, median_interval_s
+from drawdown.analysis.system import System
 
 #: The sources a day's charge is split into (the ledger's charged_Ah_<source> columns).
 SOURCES: tuple[str, ...] = ("solar", "alternator", "shore", "other")
@@ -276,7 +276,7 @@ def _clear_sky_cap_A(t_mid: np.ndarray, v_bin: np.ndarray, system: System) -> np
     Solar cannot deliver more than the arrays' clear-sky output, plus what
     cloud-edge enhancement may add.
     """
-    from analysis.solar_model import expected_clear_sky
+    from drawdown.analysis.solar_model import expected_clear_sky
 
     times = pd.DatetimeIndex(t_mid.view("M8[us]")).tz_localize("UTC")
     v_ok = np.isfinite(v_bin)

@@ -51,14 +51,14 @@ from functools import lru_cache
 import numpy as np
 import pandas as pd
 
-from analysis import autonomy as _auto
-from analysis import catalogue as _cat
-from analysis import design_method as _dm
-from analysis.cautions import build_cautions
-from analysis.charging import dc_dc_input_current_A
-from analysis.json_values import json_ready
-from analysis.system import System
-from analysis.wiring import RunSizing, size_run
+from drawdown.analysis import autonomy as _auto
+from drawdown.analysis import catalogue as _cat
+from drawdown.analysis import design_method as _dm
+from drawdown.analysis.cautions import build_cautions
+from drawdown.analysis.charging import dc_dc_input_current_A
+from drawdown.analysis.json_values import json_ready
+from drawdown.analysis.system import System
+from drawdown.analysis.wiring import RunSizing, size_run
 
 
 class SizingInputError(ValueError):

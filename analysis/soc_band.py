@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from analysis.instrument import SHUNT_OFFSET95_A
+from drawdown.analysis.instrument import SHUNT_OFFSET95_A
 
 #: With no capacity measurement: the range of health a bank of unknown age may have [x rated].
 UNKNOWN_HEALTH_RANGE: tuple[float, float] = (0.60, 1.05)

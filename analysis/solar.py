@@ -35,16 +35,16 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from analysis.readings import epoch_us
-from analysis.solar_bins import ChannelBinner, Grid, bin_mean
-from analysis.solar_model import (
+from drawdown.analysis.readings import epoch_us
+from drawdown.analysis.solar_bins import ChannelBinner, Grid, bin_mean
+from drawdown.analysis.solar_model import (
     DEFAULT_TEMP_AIR_C,
     MPPT_EFFICIENCY,
     TEMPERATURE_MOUNT,
     expected_clear_sky,
 )
-from analysis.json_values import rounded
-from analysis.system import System
+from drawdown.analysis.json_values import rounded
+from drawdown.analysis.system import System
 
 __all__ = ["SolarAnalysis", "analyse_solar", "expected_clear_sky", "BIN_MINUTES"]
 

@@ -12,7 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from analysis.readings import epoch_us
+from drawdown.analysis.readings import epoch_us
 
 
 @dataclass(frozen=True)

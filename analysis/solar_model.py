@@ -34,7 +34,7 @@ import pandas as pd
 from pvlib import irradiance, pvsystem, temperature
 from pvlib.location import Location
 
-from analysis.system import SolarArray, System
+from drawdown.analysis.system import SolarArray, System
 
 #: Air temperature used when the log has none [degC] (FIELDREF §5's daily-energy
 #: check also uses 20 degC).

@@ -1,6 +1,6 @@
 """Live collector benchmark: sustained line rate through a pty, and CPU use at 50 Hz.
 
-Runs the real command line (``python -m dashboard.cli collect --serial``) in a
+Runs the real command line (``python -m drawdown.cli collect --serial``) in a
 subprocess against a pseudo-terminal and a fresh SQLite store, so the figures
 include pyserial, parsing, batching and ``synchronous=FULL`` commits.
 
@@ -97,7 +97,7 @@ def _send(pty: _Pty, rate_hz: float, seconds: float, stop: threading.Event) -> i
 
 
 def _start(store: Path, port: str) -> subprocess.Popen:
-    return subprocess.Popen([sys.executable, "-m", "dashboard.cli", "--store", str(store), "collect",
+    return subprocess.Popen([sys.executable, "-m", "drawdown", "--store", str(store), "collect",
                              "--serial", port, "--format", "keyvalue", "--baud", "115200"],
                             cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
 

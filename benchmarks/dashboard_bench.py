@@ -122,7 +122,7 @@ def _day(d: int, rng: np.random.Generator) -> tuple[np.ndarray, dict[str, np.nda
 
 def build_store(path: Path, days: int, *, seed: int = 7) -> float:
     """Write ``days`` synthetic days into a new store at ``path``; returns seconds taken."""
-    from collector.store import Store
+    from drawdown.collector.store import Store
 
     t0 = time.perf_counter()
     rng = np.random.default_rng(seed)
@@ -154,8 +154,8 @@ def _stats(ms: list[float]) -> dict[str, float]:
 
 def _naive_readings(store_path: Path, lo, hi, tz: str):
     """The readings plot from every stored battery reading of ``[lo, hi)`` (no thinning, no cache)."""
-    from collector.store import Store
-    from dashboard import figures
+    from drawdown.collector.store import Store
+    from drawdown.dashboard import figures
 
     with Store(store_path) as st:
         piece = st.read(lo, hi, channels=["battery"])
@@ -186,8 +186,8 @@ def run_baseline(store_path: Path, system_path: Path, *, repeats: int, seed: int
     """The naive figure path on the same store (see the module docstring); ``ours`` = :func:`run`'s result."""
     import pandas as pd
 
-    from dashboard.app import create_app
-    from dashboard.data import clear_caches, current
+    from drawdown.dashboard.app import create_app
+    from drawdown.dashboard.data import clear_caches, current
 
     rng = np.random.default_rng(seed)  # the same seed: the same zoom windows as ours
     app = create_app(SimpleNamespace(store_path=store_path, system_path=system_path))
@@ -195,7 +195,7 @@ def run_baseline(store_path: Path, system_path: Path, *, repeats: int, seed: int
     extrapolated: list[dict] = []
     cap = pd.Timedelta(days=cap_days)
     with app.server.test_request_context():
-        from dashboard.pages import live, planner, trip
+        from drawdown.dashboard.pages import live, planner, trip
 
         clear_caches()
         src = current()
@@ -254,15 +254,15 @@ def run_baseline(store_path: Path, system_path: Path, *, repeats: int, seed: int
 def run(store_path: Path, system_path: Path, *, repeats: int, seed: int) -> dict:
     import pandas as pd
 
-    from dashboard.app import create_app
-    from dashboard.data import clear_caches, current
+    from drawdown.dashboard.app import create_app
+    from drawdown.dashboard.data import clear_caches, current
 
     rng = np.random.default_rng(seed)
     app = create_app(SimpleNamespace(store_path=store_path, system_path=system_path))
     results: dict[str, list[float]] = {k: [] for k in ("live_cold", "live", "overview_cold", "overview_warm", "zoom",
                                                        "trip_cold", "trip_warm", "planner_cold", "planner")}
     with app.server.test_request_context():
-        from dashboard.pages import live, planner, trip
+        from drawdown.dashboard.pages import live, planner, trip
 
         clear_caches()
         src = current()
@@ -336,7 +336,7 @@ def main(argv: list[str] | None = None) -> int:
             out["baseline"] = run_baseline(store_path, system_path, repeats=max(1, args.baseline_repeats),
                                            seed=args.seed, cap_days=args.baseline_days, ours=out)
             out["speedup_p95_interactive"] = out["baseline"]["speedup_p95"]["interactive"]
-        from collector.store import Store
+        from drawdown.collector.store import Store
 
         with Store(store_path) as st:
             rows = sum(c["rows"] for c in st.channel_summary().values())

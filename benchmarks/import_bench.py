@@ -89,8 +89,8 @@ def generate(path: Path, days: float, seed: int = 1) -> Path:
 
 def worker_ours(csv_path: str, store_path: str, read_month: bool) -> dict:
     sys.path.insert(0, str(ROOT))
-    from collector.csv_file import import_file
-    from collector.store import Store
+    from drawdown.collector.csv_file import import_file
+    from drawdown.collector.store import Store
 
     t0 = time.perf_counter()
     with Store(store_path) as st:

@@ -52,8 +52,8 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from collector.csv_file import UnusableInput, import_file  # noqa: E402
-from collector.store import Store  # noqa: E402
+from drawdown.collector.csv_file import UnusableInput, import_file  # noqa: E402
+from drawdown.collector.store import Store  # noqa: E402
 
 STORE_EVERY = 500  # cases per store (then a fresh one: integrity checked, counts stay small)
 
@@ -352,7 +352,7 @@ def run_in_process(n: int, work: Path, rng: random.Random, timeout_s: float, fai
 
 def _command() -> list[str]:
     entry = Path(sys.executable).with_name("drawdown")
-    return [str(entry)] if entry.exists() else [sys.executable, "-m", "dashboard.cli"]
+    return [str(entry)] if entry.exists() else [sys.executable, "-m", "drawdown"]
 
 
 def run_command(n: int, work: Path, rng: random.Random, timeout_s: float, failures: list[dict]) -> dict:

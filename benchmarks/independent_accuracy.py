@@ -38,10 +38,10 @@ ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "fixtures"))
 
-from analysis.report import build_report  # noqa: E402
-from analysis.system import parse_system  # noqa: E402
-from collector.csv_file import import_file  # noqa: E402
-from collector.store import Store  # noqa: E402
+from drawdown.analysis.report import build_report  # noqa: E402
+from drawdown.analysis.system import parse_system  # noqa: E402
+from drawdown.collector.csv_file import import_file  # noqa: E402
+from drawdown.collector.store import Store  # noqa: E402
 
 MULTI_TOL = 0.02
 SINGLE_TOL = 0.08

@@ -70,7 +70,7 @@ def synthetic_frame(seconds: int, *, seed: int = 1, source_interval_s: int = 10)
 
 
 def _system():
-    from analysis.system import system_from_mapping
+    from drawdown.analysis.system import system_from_mapping
 
     return system_from_mapping({"site": {"latitude_deg": 60.4, "longitude_deg": 5.3, "timezone": "Europe/Oslo"},
                                 "battery": {"chemistry": "lifepo4", "nominal_voltage_V": 12.8,
@@ -120,8 +120,8 @@ def naive_ledger(readings: pd.DataFrame, timezone: str) -> pd.DataFrame:
 
 
 def run(scale: float, single_shunt: bool = False) -> dict:
-    from analysis.ledger import daily_ledger
-    from analysis.report import build_report
+    from drawdown.analysis.ledger import daily_ledger
+    from drawdown.analysis.report import build_report
 
     system = _system()
     def make(seconds: int) -> pd.DataFrame:

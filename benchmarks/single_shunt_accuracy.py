@@ -22,9 +22,9 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from analysis.ledger import compute_ledger
-from analysis.readings import split_channels
-from collector.simulated import (
+from drawdown.analysis.ledger import compute_ledger
+from drawdown.analysis.readings import split_channels
+from drawdown.collector.simulated import (
     available_scenarios,
     load_scenario,
     simulate,

@@ -38,9 +38,9 @@ import time
 import numpy as np
 import pandas as pd
 
-from analysis.charging import analyse_charging
-from analysis.solar import analyse_solar, expected_clear_sky
-from analysis.system import system_from_mapping
+from drawdown.analysis.charging import analyse_charging
+from drawdown.analysis.solar import analyse_solar, expected_clear_sky
+from drawdown.analysis.system import system_from_mapping
 
 SYSTEM = system_from_mapping({
     "site": {"latitude_deg": 61.2, "longitude_deg": 7.1, "timezone": "Europe/Oslo"},

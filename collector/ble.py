@@ -23,9 +23,9 @@ import threading
 from collections.abc import Callable
 from typing import Any
 
-from collector import gatt
-from collector.clock import HostClock
-from collector.source import NAN, Backoff, Reading, Sink, Source, SourceUnavailable
+from drawdown.collector import gatt
+from drawdown.collector.clock import HostClock
+from drawdown.collector.source import NAN, Backoff, Reading, Sink, Source, SourceUnavailable
 
 Layouts = dict[str, tuple[str, list[gatt.FieldLayout]]]
 _MISSING_STACK = (

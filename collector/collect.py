@@ -22,9 +22,9 @@ import traceback
 from collections.abc import Callable
 from dataclasses import dataclass
 
-from collector import downsample
-from collector.source import Source, SourceUnavailable
-from collector.writer import BatchWriter, WriterStats
+from drawdown.collector import downsample
+from drawdown.collector.source import Source, SourceUnavailable
+from drawdown.collector.writer import BatchWriter, WriterStats
 
 log = logging.getLogger(__name__)
 

@@ -67,9 +67,9 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.csv as pcsv
 
-from collector.canonical import CHARGE_SOURCES, VALUE_COLUMNS, from_epoch_us
-from collector.columns import ColumnSpec, classify_column, normalise_channel
-from collector.store import Store
+from drawdown.collector.canonical import CHARGE_SOURCES, VALUE_COLUMNS, from_epoch_us
+from drawdown.collector.columns import ColumnSpec, classify_column, normalise_channel
+from drawdown.collector.store import Store
 
 __all__ = ["UnusableInput", "NothingStored", "ImportResult", "Gap", "import_file", "detect_sign_inversion",
            "sniff_format", "FileFormat", "BLOCK_BYTES"]

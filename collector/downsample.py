@@ -50,8 +50,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from collector.canonical import VALUE_COLUMNS, from_epoch_us
-from collector.store import MAX_CHUNK
+from drawdown.collector.canonical import VALUE_COLUMNS, from_epoch_us
+from drawdown.collector.store import MAX_CHUNK
 
 _SUMMARY_SCHEMA = """
 CREATE TABLE IF NOT EXISTS summaries (

@@ -45,9 +45,9 @@ import re
 from collections.abc import Callable
 from datetime import datetime, timezone
 
-from collector import nmea
-from collector.columns import MAP_QUANTITIES, ColumnSpec, classify_column, normalise_channel
-from collector.source import NAN, Reading
+from drawdown.collector import nmea
+from drawdown.collector.columns import MAP_QUANTITIES, ColumnSpec, classify_column, normalise_channel
+from drawdown.collector.source import NAN, Reading
 
 FORMATS: tuple[str, ...] = ("csv", "keyvalue", "jsonl", "nmea")
 MAX_LINE_CHARS = 4096

@@ -26,11 +26,11 @@ import json
 import threading
 from urllib.parse import unquote, urlsplit
 
-from collector.clock import HostClock
-from collector.columns import classify_column, normalise_channel
-from collector.lines import JsonLinesParser, LineError, classify_key
-from collector.signalk import delta_to_readings, is_delta
-from collector.source import Reading, Sink, Source, SourceUnavailable
+from drawdown.collector.clock import HostClock
+from drawdown.collector.columns import classify_column, normalise_channel
+from drawdown.collector.lines import JsonLinesParser, LineError, classify_key
+from drawdown.collector.signalk import delta_to_readings, is_delta
+from drawdown.collector.source import Reading, Sink, Source, SourceUnavailable
 
 _NOT_YET = "mqtt broker not reachable at start"
 _CHANNEL_WORDS = {"battery", "solar", "alternator", "shore", "load"}

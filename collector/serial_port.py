@@ -22,9 +22,9 @@ from collections.abc import Callable
 
 import serial
 
-from collector.clock import HostClock
-from collector.lines import MAX_LINE_CHARS, LineParser, first_line_is_whole
-from collector.source import Backoff, Sink, Source
+from drawdown.collector.clock import HostClock
+from drawdown.collector.lines import MAX_LINE_CHARS, LineParser, first_line_is_whole
+from drawdown.collector.source import Backoff, Sink, Source
 
 
 class LineSplitter:

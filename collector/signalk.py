@@ -33,8 +33,8 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from collector.lines import parse_time
-from collector.source import NAN, Reading
+from drawdown.collector.lines import parse_time
+from drawdown.collector.source import NAN, Reading
 
 _GROUPS = {"batteries": "battery", "solar": "solar", "alternators": "alternator"}
 _BATTERY_IDS = {"house", "main", "bank", "battery", "0", "1", "service"}

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from collector.sim_scenario import Loads
+from drawdown.collector.sim_scenario import Loads
 
 
 @dataclass(frozen=True)

@@ -22,7 +22,7 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
-from analysis.system import _explain
+from drawdown.analysis.system import _explain
 
 Sky = Literal["clear", "partly cloudy", "overcast"]
 

@@ -58,11 +58,11 @@ import pyarrow as pa
 import pyarrow.csv as pacsv
 from scipy.signal import lfilter
 
-from analysis.system import System, parse_system
-from collector.sim_loads import EventSchedule, build_load_events
-from collector.sim_physics import BankModel, BankRun, open_circuit_voltage_V, run_bank
-from collector.sim_scenario import ScenarioParams, parse_scenario
-from collector.sim_solar import array_dc_power_W, clear_sky_poa_W_m2, cloud_factor_series, pwm_current_A
+from drawdown.analysis.system import System, parse_system
+from drawdown.collector.sim_loads import EventSchedule, build_load_events
+from drawdown.collector.sim_physics import BankModel, BankRun, open_circuit_voltage_V, run_bank
+from drawdown.collector.sim_scenario import ScenarioParams, parse_scenario
+from drawdown.collector.sim_solar import array_dc_power_W, clear_sky_poa_W_m2, cloud_factor_series, pwm_current_A
 
 MULTI_CHANNEL_COLUMNS: tuple[str, ...] = (
     "time", "battery_voltage_V", "battery_current_A", "battery_temperature_C", "battery_soc_pct",
@@ -85,7 +85,7 @@ class UnknownScenarioError(KeyError):
 
 
 def _scenario_dir():
-    return resources.files("collector") / "scenarios"
+    return resources.files("drawdown.collector") / "scenarios"
 
 
 def available_scenarios() -> list[str]:

@@ -35,7 +35,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from collector.canonical import VALUE_COLUMNS, empty_frame, from_epoch_us, to_epoch_us
+from drawdown.collector.canonical import VALUE_COLUMNS, empty_frame, from_epoch_us, to_epoch_us
 
 SCHEMA_VERSION = 1
 MAX_CHUNK = 86_400  # samples per chunk: one day at 1 Hz

@@ -40,8 +40,8 @@ from typing import Any
 
 import numpy as np
 
-from collector.clock import ClockJump, HostClock
-from collector.source import Reading
+from drawdown.collector.clock import ClockJump, HostClock
+from drawdown.collector.source import Reading
 
 log = logging.getLogger(__name__)
 

@@ -22,9 +22,9 @@ from typing import Any
 import dash
 from dash import Input, Output, dcc, html
 
-from dashboard import ids
-from dashboard.data import DataSource
-from dashboard.security import (install_body_limit, install_host_guard, install_security_headers,
+from drawdown.dashboard import ids
+from drawdown.dashboard.data import DataSource
+from drawdown.dashboard.security import (install_body_limit, install_host_guard, install_security_headers,
                                 install_token_guard, is_loopback, new_token, quiet_request_handler)
 
 HERE = Path(__file__).resolve().parent
@@ -87,7 +87,7 @@ def create_app(ctx: Any, *, token: str | None = None, host: str = "127.0.0.1") -
     Parameters
     ----------
     ctx
-        A :class:`dashboard.context.Context` (anything with ``store_path`` and
+        A :class:`drawdown.cli.context.Context` (anything with ``store_path`` and
         ``system_path``).
     token
         When given, every request must carry it (``?token=`` once, then a
@@ -104,7 +104,7 @@ def create_app(ctx: Any, *, token: str | None = None, host: str = "127.0.0.1") -
     """
     _reset_global_callbacks()
     app = dash.Dash(
-        "dashboard",
+        "drawdown.dashboard",  # the package: pages import as drawdown.dashboard.pages.<name>
         use_pages=True,
         pages_folder=str(HERE / "pages"),
         assets_folder=str(HERE / "assets"),
@@ -131,7 +131,7 @@ def _upload_too_large_answer(message: str) -> str:
     """A Dash callback answer that shows an upload's refusal in the System setup page's result box."""
     from dash._utils import to_json
 
-    from dashboard.pages._parts import notice
+    from drawdown.dashboard.pages._parts import notice
 
     box = notice(["Import failed. Nothing was stored.", message], kind="error")
     return to_json({"multi": True, "response": {ids.SETUP_UPLOAD_RESULT: {"children": box}}})
@@ -178,12 +178,12 @@ def serve(ctx: Any, host: str = "127.0.0.1", port: int = 8050, token: str | None
     try:
         server = make_server(host, port, app.server, threaded=True, request_handler=quiet_request_handler())
     except SystemExit:  # werkzeug exits 1 itself when the port is taken
-        from dashboard.context import UsageError
+        from drawdown.cli.context import UsageError
 
         raise UsageError(f"--port {port}: cannot listen on {host}:{port}, the port is in use by another "
                          f"program (another drawdown serve?); stop it or choose another, e.g. --port {port + 1}") from None
     except OSError as exc:
-        from dashboard.context import UsageError
+        from drawdown.cli.context import UsageError
 
         raise UsageError(f"cannot listen on {host}:{port} ({exc.strerror or exc}); "
                          f"is another dashboard running? Try --port {port + 1}.") from None

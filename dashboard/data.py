@@ -40,16 +40,16 @@ from typing import Any, Generic, TypeVar
 import numpy as np
 import pandas as pd
 
-from analysis.sizing import SizingInputError
-from analysis.charge import coulomb_count_Ah
-from analysis.answers import pair_ci95_Ah, size_with, sizing_inputs
-from analysis.ledger import compute_ledger
-from analysis.readings import split_channels
-from analysis.report import Report, build_report
-from analysis.runtime import runtime_left
-from analysis.solar import analyse_solar
-from analysis.system import System, SystemError_, decode_system_bytes, parse_system
-from dashboard import figures, labels
+from drawdown.analysis.sizing import SizingInputError
+from drawdown.analysis.charge import coulomb_count_Ah
+from drawdown.analysis.answers import pair_ci95_Ah, size_with, sizing_inputs
+from drawdown.analysis.ledger import compute_ledger
+from drawdown.analysis.readings import split_channels
+from drawdown.analysis.report import Report, build_report
+from drawdown.analysis.runtime import runtime_left
+from drawdown.analysis.solar import analyse_solar
+from drawdown.analysis.system import System, SystemError_, decode_system_bytes, parse_system
+from drawdown.dashboard import figures, labels
 
 log = logging.getLogger(__name__)
 
@@ -57,7 +57,7 @@ T = TypeVar("T")
 
 #: Largest log file accepted by upload [bytes]: 50 MB (50,000,000 bytes), one figure said one way
 #: everywhere (see dashboard.security).
-from dashboard.security import MAX_UPLOAD_BYTES, scrub_paths, upload_refusal  # noqa: E402
+from drawdown.dashboard.security import MAX_UPLOAD_BYTES, scrub_paths, upload_refusal  # noqa: E402
 #: Ranges longer than this are read from the store in pieces for the screen (bounded memory).
 _PIECE = pd.Timedelta(days=7)
 #: Most readings one analysis run may load [rows]: ~4 months of 1 Hz logging on three channels,
@@ -169,7 +169,7 @@ def _single_flight(maxsize: int) -> Callable[[Callable[..., T]], Callable[..., T
 
 
 def _open_store(path: str):
-    from collector.store import Store
+    from drawdown.collector.store import Store
 
     return Store(path)
 
@@ -926,7 +926,7 @@ class DataSource:
             The file is written to a private temporary folder, parsed as data
             (never executed) and deleted.
         """
-        from collector.csv_file import import_file
+        from drawdown.collector.csv_file import import_file
 
         try:
             _header, payload = contents.split(",", 1)

@@ -29,9 +29,9 @@ import plotly.graph_objects as go
 import plotly.io as pio
 from plotly.offline import get_plotlyjs
 
-from analysis.system import System
-from dashboard import figures, labels
-from dashboard.data import _health_of, _report_days, _soc_of, _to_json, soc_band_of
+from drawdown.analysis.system import System
+from drawdown.dashboard import figures, labels
+from drawdown.dashboard.data import _health_of, _report_days, _soc_of, _to_json, soc_band_of
 
 #: The dashboard footer's caution (dashboard/app.py ``_shell``), repeated word for word at the foot of the report.
 SAFETY_CAUTION = ("Figures come from your own logs; advice on cables, fuses and chargers must be checked against "
@@ -319,7 +319,7 @@ def render_html(report: Any, *, system: System | None = None, solar: Any = None,
     str
         A complete HTML5 document.
     """
-    from dashboard.commands.report import describe
+    from drawdown.cli.commands.report import describe
 
     j = _to_json(report)
     sz = sizing.to_json() if sizing is not None else None

@@ -26,7 +26,7 @@ import tty
 from collections.abc import Callable
 from pathlib import Path
 
-from collector.nmea import with_checksum
+from drawdown.collector.nmea import with_checksum
 
 ROOT = Path(__file__).resolve().parents[1]
 PYTHON = sys.executable
@@ -193,7 +193,7 @@ def k_from_voltage(v: float) -> int:
 
 # -- the collector as a user runs it -------------------------------------------
 def collector_cmd(store: Path, *args: str) -> list[str]:
-    return [PYTHON, "-m", "dashboard.cli", "--store", str(store), "collect", *args]
+    return [PYTHON, "-m", "drawdown", "--store", str(store), "collect", *args]
 
 
 def start_collector(store: Path, *args: str) -> subprocess.Popen:

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from analysis import autonomy as au
+from drawdown.analysis import autonomy as au
 
 
 def test_constant_drain_without_sun_lasts_usable_over_daily_use():

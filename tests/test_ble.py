@@ -18,9 +18,9 @@ import threading
 import pytest
 
 from conftest_collector import collector_cmd, ROOT, wait_for
-from collector import gatt
-from collector.ble import BleSource, decode_notification
-from collector.source import Backoff, ListSink, SourceUnavailable
+from drawdown.collector import gatt
+from drawdown.collector.ble import BleSource, decode_notification
+from drawdown.collector.source import Backoff, ListSink, SourceUnavailable
 
 
 def test_collect_ble_without_a_bluetooth_stack_exits_2_saying_what_is_missing(tmp_path):

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from analysis.capacity import (
+from drawdown.analysis.capacity import (
     anchor_pairs,
     estimate_capacity,
     fit_peukert,
@@ -13,9 +13,9 @@ from analysis.capacity import (
     plett_tls,
     plett_wls,
 )
-from analysis.charge import state_of_charge
-from analysis.readings import Channel, local_day_bounds
-from analysis.system import system_from_mapping
+from drawdown.analysis.charge import state_of_charge
+from drawdown.analysis.readings import Channel, local_day_bounds
+from drawdown.analysis.system import system_from_mapping
 
 T0_US = 1_767_225_600_000_000  # 2026-01-01T00:00Z
 
@@ -52,7 +52,7 @@ def test_plett_tls_reduces_to_wls_as_m_goes_to_zero():
 def _full_then_discharge_then_rest(cap_true=100.0, amps=6.0, out_Ah=60.0):
     # Full (13.5 V, 1 A taper for 10 min), then out_Ah at amps, then a 6 h rest at the OCV of the
     # true final SoC (AGM table, FIELDREF §2, common practice).
-    from analysis.ocv import ocv_from_soc
+    from drawdown.analysis.ocv import ocv_from_soc
     t1 = np.arange(0, 600, 10.0)
     t2 = np.arange(600, 600 + out_Ah / amps * 3600 + 10, 10.0)
     t3 = np.arange(t2[-1] + 10, t2[-1] + 10 + 6 * 3600, 10.0)
@@ -89,8 +89,8 @@ def test_capacity_is_null_with_a_reason_when_no_pair_spans_40_percent():
 
 def test_peukert_exponent_is_fitted_from_discharges_at_different_rates():
     # Two full->rested cycles at 5 A and 25 A on a k = 1.2 bank (capacities from Peukert 1897's form).
-    from analysis.ocv import ocv_from_soc
-    from analysis.peukert import capacity_at_current
+    from drawdown.analysis.ocv import ocv_from_soc
+    from drawdown.analysis.peukert import capacity_at_current
     k_true, parts_t, parts_i, parts_v, t_off = 1.2, [], [], [], 0.0
     for amps in (5.0, 25.0):
         c_at = float(capacity_at_current(100.0, 20.0, amps, k_true))

@@ -6,10 +6,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis import ocv
-from analysis.charge import coulomb_count_Ah, state_of_charge
-from analysis.readings import Channel
-from analysis.system import system_from_mapping
+from drawdown.analysis import ocv
+from drawdown.analysis.charge import coulomb_count_Ah, state_of_charge
+from drawdown.analysis.readings import Channel
+from drawdown.analysis.system import system_from_mapping
 
 
 def _system(chem="agm", cap=100.0, **bat):

@@ -14,8 +14,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis.charging import analyse_charging, dc_dc_input_current_A
-from analysis.system import system_from_mapping
+from drawdown.analysis.charging import analyse_charging, dc_dc_input_current_A
+from drawdown.analysis.system import system_from_mapping
 
 
 def make_system(*, dcdc_A: float = 30.0, alternator_A: float | None = 180.0, shore_A: float | None = None):
@@ -146,7 +146,7 @@ def test_to_json_is_plain_json():
 
 def test_simulated_autumn_van_alternator_ah_matches_truth():
     # The bundled simulator's truth: Ah delivered by the DC-DC charger over its drive days.
-    from collector.simulated import simulate, to_canonical
+    from drawdown.collector.simulated import simulate, to_canonical
 
     sim = simulate("autumn-van", days=8)
     df = to_canonical(sim, interval_s=10)

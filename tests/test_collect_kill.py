@@ -28,7 +28,7 @@ import numpy as np
 import pytest
 
 from conftest_collector import ROOT, Pty, Sender, integrity_ok, start_collector, wait_for
-from collector.store import Store
+from drawdown.collector.store import Store
 
 KILLS = 20
 
@@ -61,9 +61,9 @@ def test_sigkill_50_times_mid_stream_loses_at_most_1_s_each_and_the_store_stays_
 
 _FORKER = r"""
 import importlib, json, os, sys
-import dashboard.cli as cli
-importlib.import_module("dashboard.commands.collect")
-import collector.collect, collector.serial_port, collector.store  # noqa: F401 - warm the imports
+import drawdown.cli as cli
+importlib.import_module("drawdown.cli.commands.collect")
+import drawdown.collector.collect, drawdown.collector.serial_port, drawdown.collector.store  # noqa: F401 - warm the imports
 print("ready", flush=True)
 for line in sys.stdin:
     what, arg = json.loads(line)

@@ -18,11 +18,11 @@ from pathlib import Path
 import pytest
 
 from conftest_collector import start_collector, stored_count, wait_for
-from collector.collect import run_collector
-from collector.mqtt import MqttSource, parse_url
-from collector.source import ListSink
-from collector.store import Store
-from collector.writer import BatchWriter
+from drawdown.collector.collect import run_collector
+from drawdown.collector.mqtt import MqttSource, parse_url
+from drawdown.collector.source import ListSink
+from drawdown.collector.store import Store
+from drawdown.collector.writer import BatchWriter
 
 MOSQUITTO = shutil.which("mosquitto") or ("/usr/sbin/mosquitto" if Path("/usr/sbin/mosquitto").exists() else None)
 

@@ -17,12 +17,12 @@ import pytest
 
 from conftest_collector import (PlugPort, Pty, Sender, integrity_ok, k_from_voltage, start_collector,
                                 stop_collector, stored_count, values, wait_for)
-from collector.clock import HostClock
-from collector.lines import make_parser
-from collector.serial_port import LineSplitter, SerialSource
-from collector.source import ListSink, Reading
-from collector.store import Store
-from collector.writer import BatchWriter
+from drawdown.collector.clock import HostClock
+from drawdown.collector.lines import make_parser
+from drawdown.collector.serial_port import LineSplitter, SerialSource
+from drawdown.collector.source import ListSink, Reading
+from drawdown.collector.store import Store
+from drawdown.collector.writer import BatchWriter
 
 FORMATS = ["csv", "keyvalue", "jsonl", "nmea"]
 
@@ -273,7 +273,7 @@ def test_clock_jump_shifts_committed_and_pending_host_stamped_readings_but_not_d
 def test_lines_arriving_in_one_read_get_distinct_microsecond_stamps():
     """Host stamps of lines read together must not collide in the store's whole microseconds
     (a float epoch has 0.24 us resolution near 1.8e9 s)."""
-    from collector.serial_port import Stamper
+    from drawdown.collector.serial_port import Stamper
 
     stamp = Stamper()
     now = 1_796_175_269.123456
@@ -309,7 +309,7 @@ def test_collect_waits_for_a_missing_port_and_stops_cleanly_at_the_duration(tmp_
 
 
 def test_clock_jump_still_corrects_host_stamped_chunks_after_they_were_compacted(tmp_path):
-    from collector.collect import maintain
+    from drawdown.collector.collect import maintain
 
     c = _FakeClocks(1.767e9 - 3600.0)
     clock = HostClock(wall=c.wall, mono=c.mono)

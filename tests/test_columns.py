@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import pytest
 
-from collector.columns import MAP_QUANTITIES, ColumnSpec, classify_column, normalise_channel, parse_map_option
+from drawdown.collector.columns import MAP_QUANTITIES, ColumnSpec, classify_column, normalise_channel, parse_map_option
 
 
 @pytest.mark.parametrize(

@@ -11,7 +11,7 @@ import json
 
 import pytest
 
-from dashboard.cli import main
+from drawdown.cli import main
 
 
 def run_json(capsys, argv: list[str]) -> tuple[int, dict]:

@@ -241,8 +241,8 @@ def test_planner_page_dom_shows_what_size_json_says(server, demo, watched, capsy
     """The planner's cards and cable table in the browser are `drawdown size --json`'s, run by run (issue 12)."""
     import json
 
-    from dashboard import labels
-    from dashboard.cli import main
+    from drawdown.dashboard import labels
+    from drawdown.cli import main
 
     assert main(["--store", str(demo.store_path), "--system", str(demo.system_path), "size", "--json",
                  "--autonomy-days", "2"]) == 0

@@ -27,9 +27,9 @@ def build_demo_store(folder: Path, *, days: int = DEMO_DAYS, interval_s: float =
     importer (collector.csv_file.import_file) with the options `drawdown import`
     gives it (the system's timezone and nominal voltage).
     """
-    from collector.csv_file import import_file
-    from collector.simulated import simulate_to_file
-    from collector.store import Store
+    from drawdown.collector.csv_file import import_file
+    from drawdown.collector.simulated import simulate_to_file
+    from drawdown.collector.store import Store
 
     folder.mkdir(parents=True, exist_ok=True)
     log, _truth, sim = simulate_to_file("autumn-van", folder / "autumn-van.csv", days=days, interval_s=interval_s)
@@ -53,8 +53,8 @@ def demo(tmp_path_factory):
 @pytest.fixture()
 def app_ctx(demo):
     """A real app on the demo store, and a request context so callbacks can find their data source."""
-    from dashboard.app import create_app
-    from dashboard.data import clear_caches, current
+    from drawdown.dashboard.app import create_app
+    from drawdown.dashboard.data import clear_caches, current
 
     clear_caches()
     app = create_app(demo)
@@ -67,8 +67,8 @@ def copy_ctx(demo, tmp_path):
     """Like app_ctx but on a private copy of the store and system.toml (tests that write)."""
     import shutil
 
-    from dashboard.app import create_app
-    from dashboard.data import clear_caches, current
+    from drawdown.dashboard.app import create_app
+    from drawdown.dashboard.data import clear_caches, current
 
     clear_caches()
     ns = SimpleNamespace(store_path=tmp_path / "readings.sqlite", system_path=tmp_path / "system.toml")
@@ -82,7 +82,7 @@ def copy_ctx(demo, tmp_path):
 # -- downsampling --------------------------------------------------------------------
 
 def test_downsample_keeps_a_one_sample_spike_in_a_million_points():
-    from dashboard.figures import downsample
+    from drawdown.dashboard.figures import downsample
 
     t = pd.date_range("2026-01-01", periods=1_000_000, freq="1s", tz="UTC")
     y = np.sin(np.arange(t.size) / 5000.0)
@@ -97,7 +97,7 @@ def test_downsample_keeps_a_one_sample_spike_in_a_million_points():
 
 
 def test_downsample_returns_a_short_series_whole():
-    from dashboard.figures import downsample
+    from drawdown.dashboard.figures import downsample
 
     t = pd.date_range("2026-01-01", periods=500, freq="1min", tz="UTC")
     y = np.arange(500.0)
@@ -106,7 +106,7 @@ def test_downsample_returns_a_short_series_whole():
 
 
 def test_downsample_breaks_the_line_at_a_gap_in_the_log():
-    from dashboard.figures import downsample
+    from drawdown.dashboard.figures import downsample
 
     t = pd.date_range("2026-01-01", periods=100, freq="1min", tz="UTC")
     t = t[:50].append(t[50:] + pd.Timedelta(hours=6))
@@ -117,7 +117,7 @@ def test_downsample_breaks_the_line_at_a_gap_in_the_log():
 
 
 def test_relayout_zoom_is_read_as_local_time_of_the_system():
-    from dashboard.figures import relayout_x_range
+    from drawdown.dashboard.figures import relayout_x_range
 
     # Europe/Oslo is UTC+2 in September (CEST), from the IANA tz database via zoneinfo.
     lo, hi = relayout_x_range({"xaxis.range[0]": "2026-09-22 12:00:00", "xaxis.range[1]": "2026-09-22 13:30"},
@@ -127,7 +127,7 @@ def test_relayout_zoom_is_read_as_local_time_of_the_system():
 
 
 def test_relayout_double_click_resets_and_legend_click_is_ignored():
-    from dashboard.figures import relayout_x_range
+    from drawdown.dashboard.figures import relayout_x_range
 
     assert relayout_x_range({"xaxis.autorange": True}) == "reset"
     assert relayout_x_range({"legend.x": 0.3}) is None
@@ -137,7 +137,7 @@ def test_relayout_double_click_resets_and_legend_click_is_ignored():
 # -- figures ------------------------------------------------------------------------------
 
 def test_ledger_figure_stacks_charge_up_and_consumption_down():
-    from dashboard.figures import ledger_figure
+    from drawdown.dashboard.figures import ledger_figure
 
     days = pd.DataFrame({"date": ["2026-09-21", "2026-09-22"], "complete": [True, False],
                          "consumed_Ah": [48.9, 61.9], "charged_solar_Ah": [18.6, 62.0],
@@ -152,7 +152,7 @@ def test_ledger_figure_stacks_charge_up_and_consumption_down():
 
 
 def test_peukert_line_matches_the_fieldref_check_values():
-    from dashboard.figures import peukert_figure
+    from drawdown.dashboard.figures import peukert_figure
 
     # FIELDREF §1 [C]: C20 = 100 Ah, H = 20 h, k = 1.25 -> t(10 A) = 8.409 h, t(20 A) = 3.536 h,
     # t(50 A) = 1.125 h (tolerance 0.01). The line is straight on log-log axes, so log interpolation is exact.
@@ -164,7 +164,7 @@ def test_peukert_line_matches_the_fieldref_check_values():
 
 
 def test_solar_power_figure_shades_each_saturated_period():
-    from dashboard.figures import solar_power_figure
+    from drawdown.dashboard.figures import solar_power_figure
 
     t = pd.date_range("2026-09-22 06:00", periods=72, freq="10min", tz="UTC")
     sat = np.zeros(72, dtype=bool)
@@ -178,7 +178,7 @@ def test_solar_power_figure_shades_each_saturated_period():
 
 
 def test_message_figure_says_why_there_is_nothing():
-    from dashboard.figures import message_figure
+    from drawdown.dashboard.figures import message_figure
 
     fig = message_figure("not available yet (analysis.report)")
     assert fig.layout.annotations[0].text == "not available yet (analysis.report)"
@@ -187,7 +187,7 @@ def test_message_figure_says_why_there_is_nothing():
 # -- data access and caching --------------------------------------------------------------
 
 def test_zoomed_window_comes_back_at_full_resolution(app_ctx, demo):
-    from collector.store import Store
+    from drawdown.collector.store import Store
 
     src = app_ctx.source
     span = src.time_span()
@@ -208,7 +208,7 @@ def test_whole_range_is_thinned_for_the_screen(app_ctx):
 
 
 def test_store_key_changes_when_readings_are_added(copy_ctx):
-    from collector.store import Store
+    from drawdown.collector.store import Store
 
     src = copy_ctx.source
     before = src.store_key()
@@ -240,7 +240,7 @@ def test_local_date_range_becomes_utc_half_open_bounds(app_ctx):
 # -- live view -------------------------------------------------------------------------------
 
 def _append_battery(path: Path, t0: pd.Timestamp, minutes: int, voltage_V: float, current_A: float) -> None:
-    from collector.store import Store
+    from drawdown.collector.store import Store
 
     t = t0 + pd.to_timedelta(np.arange(1, minutes + 1), unit="min")
     with Store(path) as store:
@@ -249,7 +249,7 @@ def _append_battery(path: Path, t0: pd.Timestamp, minutes: int, voltage_V: float
 
 
 def test_live_view_shows_the_newest_battery_reading(app_ctx, demo):
-    from collector.store import Store
+    from drawdown.collector.store import Store
 
     snap = app_ctx.source.live()
     with Store(demo.store_path) as store:
@@ -287,7 +287,7 @@ def test_unusual_draw_raises_the_alarm_line(copy_ctx):
 
 
 def test_live_callback_renders_tiles_and_a_figure(app_ctx):
-    from dashboard.pages import live
+    from drawdown.dashboard.pages import live
 
     live.refresh(0)  # the callback itself runs (the demo's newest reading is old: the "not live" state)
     now = app_ctx.source.time_span()[1] + pd.Timedelta(minutes=1)
@@ -323,7 +323,7 @@ def test_valid_system_text_is_written(copy_ctx):
 
 
 def test_setup_check_shows_the_full_charge_settings_and_reserve_in_use(copy_ctx):
-    from dashboard.pages import setup
+    from drawdown.dashboard.pages import setup
 
     text = copy_ctx.source.system_path.read_text().replace("rated_hours = 20", "rated_hours = 20\nfull_hold_s = 300")
     out = str(setup.render_system_action(copy_ctx.source, "check", text))
@@ -334,7 +334,7 @@ def test_setup_check_shows_the_full_charge_settings_and_reserve_in_use(copy_ctx)
 
 
 def test_setup_check_names_the_new_key_for_an_old_one(copy_ctx):
-    from dashboard.pages import setup
+    from drawdown.dashboard.pages import setup
 
     text = copy_ctx.source.system_path.read_text().replace("rated_hours = 20", "rated_hours = 20\ntail_current_pct = 4")
     out = str(setup.render_system_action(copy_ctx.source, "save", text))
@@ -342,7 +342,7 @@ def test_setup_check_names_the_new_key_for_an_old_one(copy_ctx):
 
 
 def test_setup_callback_check_reports_validation_messages(copy_ctx):
-    from dashboard.pages import setup
+    from drawdown.dashboard.pages import setup
 
     out = setup.render_system_action(copy_ctx.source, "check", "[battery]\nchemistry = 'nimh'\n")
     text = str(out)
@@ -363,7 +363,7 @@ def test_upload_of_a_bad_file_returns_the_importer_message(copy_ctx):
 
 
 def test_upload_over_the_size_limit_is_refused(copy_ctx, monkeypatch):
-    import dashboard.data as data
+    import drawdown.dashboard.data as data
 
     monkeypatch.setattr(data, "MAX_UPLOAD_BYTES", 100)
     out = copy_ctx.source.import_upload("big.csv", _data_url(b"time,voltage_V\n" * 20))
@@ -383,7 +383,7 @@ def test_upload_of_a_good_log_stores_its_rows(copy_ctx):
 
 
 def test_upload_callback_shows_an_error_notice_for_a_bad_file(copy_ctx):
-    from dashboard.pages import setup
+    from drawdown.dashboard.pages import setup
 
     msg, _table = setup.render_upload(copy_ctx.source, _data_url(b"\x00\x01\x02 binary junk"), "junk.bin")
     assert "notice-error" in str(msg) and "Import failed" in str(msg)
@@ -403,7 +403,7 @@ def test_app_does_not_suppress_callback_exceptions(app_ctx):
 
 
 def test_trip_range_change_changes_the_ledger(app_ctx):
-    from dashboard.pages import trip
+    from drawdown.dashboard.pages import trip
 
     src = app_ctx.source
     full = src.full_range()
@@ -419,7 +419,7 @@ def test_trip_range_change_changes_the_ledger(app_ctx):
 
 
 def test_planner_recomputes_when_the_autonomy_target_changes(app_ctx):
-    from dashboard.pages import planner
+    from drawdown.dashboard.pages import planner
 
     src = app_ctx.source
     sized = src.sizing(*src.default_range(), autonomy_days=1, percentile=90)
@@ -430,14 +430,14 @@ def test_planner_recomputes_when_the_autonomy_target_changes(app_ctx):
 
 
 def test_planner_rejects_an_out_of_range_target(app_ctx):
-    from dashboard.pages import planner
+    from drawdown.dashboard.pages import planner
 
     out = planner.render_plan(app_ctx.source, 0, 90, None)
     assert "0.5 to 30" in str(out[0])
 
 
 def test_readings_callback_redraws_a_zoom_at_full_resolution(app_ctx):
-    from dashboard.pages import trip
+    from drawdown.dashboard.pages import trip
 
     src = app_ctx.source
     rng = src.full_range()
@@ -479,7 +479,7 @@ def test_live_state_of_charge_carried_forward_matches_a_full_analysis(copy_ctx):
 
 
 def test_a_range_too_big_for_one_analysis_gets_a_message_not_a_crash(app_ctx, monkeypatch):
-    import dashboard.data as data
+    import drawdown.dashboard.data as data
 
     monkeypatch.setattr(data, "MAX_ANALYSIS_READINGS", 1000)
     section = app_ctx.source.days(*app_ctx.source.full_range())
@@ -490,7 +490,7 @@ def test_a_range_too_big_for_one_analysis_gets_a_message_not_a_crash(app_ctx, mo
 def test_day_adapters_carry_a_single_shunts_95_percent_range_and_nothing_otherwise():
     # The report JSON's consumed_Ah_pi95 (DESIGN.md days keys) and the ledger's
     # consumed_Ah_pi95_lo/hi reach the dashboard's flat day frame as consumed_Ah_lo/hi.
-    from dashboard.data import _ledger_days, _report_days
+    from drawdown.dashboard.data import _ledger_days, _report_days
 
     base = {"date": ["2026-09-21"], "complete": [True], "consumed_Ah": [48.2], "consumed_Wh": [644.0],
             "soc_min_pct": [80.0], "soc_end_pct": [89.0]}
@@ -507,7 +507,7 @@ def test_day_adapters_carry_a_single_shunts_95_percent_range_and_nothing_otherwi
 def test_trip_table_for_a_log_with_a_shunt_per_source_has_the_instrument_range_and_no_unseen_hours(app_ctx):
     # Every load measured: nothing was inferred, so no "load not seen" column; the range left
     # is the battery shunt's unseen zero offset and the gains (analysis/instrument.py).
-    from dashboard.pages import trip
+    from drawdown.dashboard.pages import trip
 
     _s, _f, tab, _q, _st = trip.render_trip(app_ctx.source, *app_ctx.source.full_range())
     assert "95 % range" in str(tab)

@@ -10,8 +10,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from collector import downsample
-from collector.store import Store
+from drawdown.collector import downsample
+from drawdown.collector.store import Store
 
 T0_US = 1_767_225_600 * 1_000_000  # 2026-01-01T00:00:00Z
 

@@ -12,8 +12,8 @@ import struct
 
 import pytest
 
-from analysis.system import parse_system
-from collector import gatt
+from drawdown.analysis.system import parse_system
+from drawdown.collector import gatt
 
 
 def test_voltage_36_03_is_12_84375_V():

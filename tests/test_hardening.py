@@ -30,7 +30,7 @@ _ENTRY = Path(sys.executable).with_name("drawdown")
 
 def drawdown(*argv: str, env: dict[str, str] | None = None, timeout: float = 180) -> subprocess.CompletedProcess:
     """Run the real command line in a subprocess (the installed entry point when there is one)."""
-    cmd = [str(_ENTRY)] if _ENTRY.exists() else [sys.executable, "-m", "dashboard.cli"]
+    cmd = [str(_ENTRY)] if _ENTRY.exists() else [sys.executable, "-m", "drawdown"]
     full_env = {**os.environ, "PYBAMM_DISABLE_TELEMETRY": "true", **(env or {})}
     return subprocess.run([*cmd, *argv], cwd=ROOT, env=full_env, capture_output=True, text=True, timeout=timeout)
 
@@ -78,8 +78,8 @@ def test_malformed_first_time_of_a_decimal_comma_local_log_is_a_bad_time_line(tm
 
 
 def test_text_that_is_not_a_time_is_bad_time_and_a_time_without_offset_is_named_so(tmp_path):
-    from collector.csv_file import import_file
-    from collector.store import Store
+    from drawdown.collector.csv_file import import_file
+    from drawdown.collector.store import Store
 
     rows = _log_lines(30)
     rows[5] = "not a time," + rows[5].split(",", 1)[1]
@@ -96,7 +96,7 @@ def test_text_that_is_not_a_time_is_bad_time_and_a_time_without_offset_is_named_
 def test_the_careful_time_parser_turns_what_pandas_refuses_into_missing_times():
     import pandas as pd
 
-    from collector.csv_file import _to_datetime
+    from drawdown.collector.csv_file import _to_datetime
 
     mixed = pd.Series(["2024-06-04 15:19:00", "2024-06-04 15:19:00Z", None, "15-21:48"])
     with pytest.raises(ValueError, match="[Mm]ixed"):  # what the importer used to hit
@@ -152,12 +152,12 @@ def test_a_value_error_inside_the_analysis_is_exit_1_not_usage(demo, tmp_path):
     store, system = demo
     # A real process whose analysis has a bug: sitecustomize runs before the command does.
     (tmp_path / "sitecustomize.py").write_text(textwrap.dedent("""
-        import analysis.report
+        import drawdown.analysis.report
 
         def build_report(*args, **kwargs):
             raise ValueError("a bug in the analysis, not the user's input")
 
-        analysis.report.build_report = build_report
+        drawdown.analysis.report.build_report = build_report
     """), encoding="utf-8")
     path = os.pathsep.join([str(tmp_path), os.environ.get("PYTHONPATH", "")]).rstrip(os.pathsep)
     r = drawdown("--store", str(store), "--system", str(system), "report", env={"PYTHONPATH": path})
@@ -255,7 +255,7 @@ def test_serve_json_prints_the_address_once_listening(tmp_path):
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))
         port = s.getsockname()[1]
-    cmd = [str(_ENTRY)] if _ENTRY.exists() else [sys.executable, "-m", "dashboard.cli"]
+    cmd = [str(_ENTRY)] if _ENTRY.exists() else [sys.executable, "-m", "drawdown"]
     proc = subprocess.Popen([*cmd, "--store", str(tmp_path / "s.sqlite"), "serve", "--port", str(port), "--json"],
                             cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True,
                             env={**os.environ, "PYBAMM_DISABLE_TELEMETRY": "true"})
@@ -287,7 +287,7 @@ def _stored(store_path: Path) -> list[tuple]:
     with sqlite3.connect(store_path) as db:
         tables = {r[0] for r in db.execute("SELECT name FROM sqlite_master WHERE type='table'")}
         assert "imports" in tables
-    from collector.store import Store
+    from drawdown.collector.store import Store
 
     with Store(store_path) as st:
         df = st.read()
@@ -297,8 +297,8 @@ def _stored(store_path: Path) -> list[tuple]:
 @pytest.mark.parametrize("encoding,line_end", [("utf-16", "\n"), ("utf-16-le", "\r\n"), ("utf-16-be", "\n"),
                                                ("utf-8", "\r"), ("utf-16", "\r")])
 def test_utf16_and_cr_only_logs_import_like_their_utf8_lf_copy(tmp_path, encoding, line_end):
-    from collector.csv_file import import_file
-    from collector.store import Store
+    from drawdown.collector.csv_file import import_file
+    from drawdown.collector.store import Store
 
     rows = _log_lines(40)
     rows[7] = rows[7] + ",surplus"  # one damaged line: its line number must survive the conversion
@@ -333,7 +333,7 @@ def test_a_killed_conversion_leaves_no_lasting_scratch_copy(tmp_path):
     big = tmp_path / "big-utf16.csv"
     big.write_bytes(("\r\n".join(_log_lines(200_000)) + "\r\n").encode("utf-16"))
     store = tmp_path / "s.sqlite"
-    proc = subprocess.Popen([sys.executable, "-m", "dashboard.cli", "--store", str(store), "import", str(big)],
+    proc = subprocess.Popen([sys.executable, "-m", "drawdown", "--store", str(store), "import", str(big)],
                             cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     try:
         for _ in range(600):  # the scratch folder lives from the conversion to the end of the import
@@ -358,7 +358,7 @@ def test_a_killed_conversion_leaves_no_lasting_scratch_copy(tmp_path):
 
 
 def test_the_dashboard_reads_a_utf16_system_toml(tmp_path):
-    from dashboard.data import DataSource
+    from drawdown.dashboard.data import DataSource
 
     sysp = tmp_path / "system.toml"
     sysp.write_bytes(SYSTEM.encode("utf-16"))
@@ -393,7 +393,7 @@ peak_power_W = 300
     ("rated_capacity_Ah = 200", "rated_capacity_Ah = inf", "battery.rated_capacity_Ah = inf", "finite number"),
 ])
 def test_system_toml_numbers_are_strict_and_finite(old, new, key, says):
-    from analysis.system import SystemError_, parse_system
+    from drawdown.analysis.system import SystemError_, parse_system
 
     with pytest.raises(SystemError_) as err:
         parse_system(SYSTEM.replace(old, new))
@@ -402,7 +402,7 @@ def test_system_toml_numbers_are_strict_and_finite(old, new, key, says):
 
 
 def test_an_integer_is_still_a_valid_number_in_system_toml():
-    from analysis.system import parse_system
+    from drawdown.analysis.system import parse_system
 
     assert parse_system(SYSTEM).solar[0].peak_power_W == 300.0
 
@@ -494,7 +494,7 @@ def test_this_computers_own_names_are_admitted(served, host):
 
 
 def test_host_check_unit():
-    from dashboard.security import allowed_host, same_origin
+    from drawdown.dashboard.security import allowed_host, same_origin
 
     assert allowed_host("[::1]:8050", "127.0.0.1") and allowed_host("127.3.4.5", "127.0.0.1")
     assert not allowed_host("evil.example.com:8050", "127.0.0.1")

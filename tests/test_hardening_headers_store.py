@@ -133,8 +133,8 @@ def test_pages_load_and_run_their_callbacks_under_the_content_security_policy(se
 # -- 12. the upload limit: one figure, the page's own words, no server paths -------------------
 
 def test_the_upload_limit_is_one_figure_said_the_same_way_everywhere():
-    from dashboard import data
-    from dashboard.security import MAX_UPLOAD_BYTES, UPLOAD_LIMIT_TEXT, upload_refusal
+    from drawdown.dashboard import data
+    from drawdown.dashboard.security import MAX_UPLOAD_BYTES, UPLOAD_LIMIT_TEXT, upload_refusal
 
     assert MAX_UPLOAD_BYTES == 50_000_000 and UPLOAD_LIMIT_TEXT == "50 MB"
     assert data.MAX_UPLOAD_BYTES == MAX_UPLOAD_BYTES
@@ -147,7 +147,7 @@ def test_the_upload_limit_is_one_figure_said_the_same_way_everywhere():
 
 
 def test_a_body_over_the_limit_is_refused_in_the_pages_own_words_not_a_bare_413(served):
-    from dashboard.security import MAX_CALLBACK_BODY
+    from drawdown.dashboard.security import MAX_CALLBACK_BODY
 
     body = b'{"output":"..setup-upload-result.children...setup-store-table.children..","contents":"' + \
         b"A" * (MAX_CALLBACK_BODY + 1000) + b'"}'
@@ -163,7 +163,7 @@ def test_a_body_over_the_limit_is_refused_in_the_pages_own_words_not_a_bare_413(
 def test_the_plain_refusal_of_a_too_big_body_says_the_limit_not_a_generic_page():
     import flask
 
-    from dashboard.security import MAX_CALLBACK_BODY, install_body_limit
+    from drawdown.dashboard.security import MAX_CALLBACK_BODY, install_body_limit
 
     app = flask.Flask("t")
     app.add_url_rule("/echo", "echo", lambda: str(len(flask.request.get_data())), methods=["POST"])
@@ -206,8 +206,8 @@ def _data_url(raw: bytes) -> str:
 @pytest.fixture()
 def upload_page(demo, tmp_path):
     """The System setup page's functions on a private copy of the store, inside an app."""
-    from dashboard.app import create_app
-    from dashboard.data import clear_caches, current
+    from drawdown.dashboard.app import create_app
+    from drawdown.dashboard.data import clear_caches, current
 
     clear_caches()
     ns = SimpleNamespace(store_path=tmp_path / "readings.sqlite", system_path=tmp_path / "system.toml")
@@ -215,7 +215,7 @@ def upload_page(demo, tmp_path):
     shutil.copy(demo.system_path, ns.system_path)
     app = create_app(ns)
     with app.server.test_request_context():
-        from dashboard.pages.setup import render_upload
+        from drawdown.dashboard.pages.setup import render_upload
 
         yield current(), render_upload
 
@@ -240,8 +240,8 @@ def test_upload_messages_show_no_server_path_and_advise_no_flag(upload_page, tmp
 
 
 def test_the_importer_says_flags_only_to_the_command_line(tmp_path):
-    from collector.csv_file import UnusableInput, import_file
-    from collector.store import Store
+    from drawdown.collector.csv_file import UnusableInput, import_file
+    from drawdown.collector.store import Store
 
     log = tmp_path / "nameless.csv"
     log.write_text("when,current_A\nyesterday,1.0\n", encoding="utf-8")
@@ -286,8 +286,8 @@ def test_reimporting_the_same_readings_from_a_file_differing_in_trailing_newline
 
 
 def test_an_overlapping_log_adds_only_the_readings_not_yet_held(tmp_path):
-    from collector.csv_file import import_file
-    from collector.store import Store
+    from drawdown.collector.csv_file import import_file
+    from drawdown.collector.store import Store
 
     rows = _log_lines(60)
     a, b = tmp_path / "a.csv", tmp_path / "b.csv"
@@ -340,7 +340,7 @@ def _namespaces_work() -> str | None:
 
 
 def test_a_read_only_store_opens_for_reading_and_refuses_writes_itself(tmp_path):
-    from collector.store import Store
+    from drawdown.collector.store import Store
 
     store = _store_with_readings(tmp_path / "ro")
     before = store.read_bytes()
@@ -358,7 +358,7 @@ def test_status_on_a_read_only_file_system_works_and_says_read_only(tmp_path):
     folder = tmp_path / "ro"
     store = _store_with_readings(folder)
     exe = drawdown.__globals__["_ENTRY"]
-    cmd = f"'{exe}'" if exe.exists() else "python -m dashboard.cli"
+    cmd = f"'{exe}'" if exe.exists() else "python -m drawdown.cli"
     r = _in_private_mounts(
         f"mount --bind '{folder}' '{folder}'; mount -o remount,bind,ro '{folder}'; "
         f"touch '{folder}/probe' 2>/dev/null && echo WRITABLE; "
@@ -387,7 +387,7 @@ def test_import_onto_a_full_disk_says_disk_full_and_status_says_so_too(tmp_path)
     small = tmp_path / "small.csv"
     small.write_text("\n".join(_log_lines(30)) + "\n", encoding="utf-8")
     exe = drawdown.__globals__["_ENTRY"]
-    cmd = f"'{exe}'" if exe.exists() else "python -m dashboard.cli"
+    cmd = f"'{exe}'" if exe.exists() else "python -m drawdown.cli"
     r = _in_private_mounts(
         f"mount -t tmpfs -o size=400k tmpfs '{disk}'; "
         f"{cmd} --store '{disk}/s.sqlite' import '{small}' > /dev/null; "

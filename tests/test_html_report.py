@@ -22,17 +22,17 @@ import pandas as pd
 import pytest
 from plotly.offline import get_plotlyjs
 
-from analysis.report import build_report
-from dashboard import figures
-from dashboard.data import _report_days
-from dashboard.html_report import (
+from drawdown.analysis.report import build_report
+from drawdown.dashboard import figures
+from drawdown.dashboard.data import _report_days
+from drawdown.dashboard.html_report import (
     SAFETY_CAUTION,
     render_html,
     report_figures,
     write_html,
 )
 
-import collector.simulated as sim_mod  # noqa: E402
+import drawdown.collector.simulated as sim_mod  # noqa: E402
 
 DAYS = 4
 
@@ -48,7 +48,7 @@ def readings_and_system():
 def scenario(readings_and_system):
     readings, system = readings_and_system
     report = build_report(readings, system)
-    from analysis.solar import analyse_solar
+    from drawdown.analysis.solar import analyse_solar
 
     return report, system, analyse_solar(readings, system)
 

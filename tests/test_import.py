@@ -17,10 +17,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from collector.columns import parse_map_option
-from collector.csv_file import UnusableInput, import_file
-from collector.store import Store
-from dashboard.cli import main
+from drawdown.collector.columns import parse_map_option
+from drawdown.collector.csv_file import UnusableInput, import_file
+from drawdown.collector.store import Store
+from drawdown.cli import main
 
 LOGS = Path(__file__).resolve().parent.parent / "fixtures" / "logs"
 

@@ -9,8 +9,8 @@ import pandas as pd
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from collector.csv_file import UnusableInput, import_file
-from collector.store import Store
+from drawdown.collector.csv_file import UnusableInput, import_file
+from drawdown.collector.store import Store
 
 HEADER = "time,voltage_V,current_A"
 SETTINGS = settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])

@@ -61,11 +61,11 @@ def test_a_full_bank_resting_with_the_array_off_is_a_rest_not_a_charger_hold(tmp
     import numpy as np
     import pandas as pd
 
-    from analysis.readings import split_channels
-    from analysis.single_shunt import _hidden_masks
-    from analysis.system import parse_system
-    from collector.csv_file import import_file
-    from collector.store import Store
+    from drawdown.analysis.readings import split_channels
+    from drawdown.analysis.single_shunt import _hidden_masks
+    from drawdown.analysis.system import parse_system
+    from drawdown.collector.csv_file import import_file
+    from drawdown.collector.store import Store
 
     case = make_case("lfp-rest", seed=1, days=6, out_dir=tmp_path / "rest")
     system = parse_system(Path(case.system_toml).read_text())

@@ -13,8 +13,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis.ledger import LEDGER_COLUMNS, daily_ledger
-from analysis.system import system_from_mapping
+from drawdown.analysis.ledger import LEDGER_COLUMNS, daily_ledger
+from drawdown.analysis.system import system_from_mapping
 
 FIX = Path(__file__).resolve().parents[1] / "fixtures" / "scenarios"
 
@@ -118,7 +118,7 @@ def test_local_days_follow_the_site_timezone_across_dst():
 
 def test_single_shunt_recovers_a_steady_load_under_solar_and_labels_solar():
     # 3 A steady load + a sun-shaped solar current; only the battery shunt is logged.
-    from analysis.single_shunt import sun_elevation_deg
+    from drawdown.analysis.single_shunt import sun_elevation_deg
     start = pd.Timestamp("2026-06-08", tz="Europe/Oslo").tz_convert("UTC")
     t = pd.date_range(start, start + pd.Timedelta(days=4), freq="60s", inclusive="left")
     elev = sun_elevation_deg(t.as_unit("us").asi8, 60.4, 5.3)
@@ -190,7 +190,7 @@ def _truth(path: Path) -> dict:
 
 @pytest.mark.parametrize("scenario", ["autumn-van", "spring-truck"])
 def test_multichannel_fixture_consumed_Ah_within_2_percent_of_simulator_truth(scenario):
-    from analysis.system import parse_system
+    from drawdown.analysis.system import parse_system
     csv = FIX / scenario / "sample.csv"
     assert csv.exists(), f"{csv}: regenerate with python fixtures/make_scenario_fixtures.py"
     system = parse_system((FIX / scenario / "system.toml").read_text())
@@ -208,7 +208,7 @@ def test_multichannel_fixture_consumed_Ah_within_2_percent_of_simulator_truth(sc
     "spring-truck",  # all 5 fixture days within ±8 % (worst -6.9 %)
 ])
 def test_single_shunt_fixture_consumed_Ah_within_8_percent_of_simulator_truth(scenario):
-    from analysis.system import parse_system
+    from drawdown.analysis.system import parse_system
     csv = FIX / scenario / "sample_single_shunt.csv"
     assert csv.exists(), f"{csv}: regenerate with python fixtures/make_scenario_fixtures.py"
     system = parse_system((FIX / scenario / "system.toml").read_text())
@@ -220,7 +220,7 @@ def test_single_shunt_fixture_consumed_Ah_within_8_percent_of_simulator_truth(sc
 
 def test_balance_in_day_chunks_gives_the_same_ledger_as_one_pass(monkeypatch):
     # The multi-channel balance runs in chunks of whole local days (memory on a year at 1 Hz).
-    import analysis.ledger as ledger_mod
+    import drawdown.analysis.ledger as ledger_mod
     t = pd.date_range(pd.Timestamp("2026-06-10", tz="Europe/Oslo").tz_convert("UTC"), periods=5 * 1440, freq="60s")
     n = len(t)
     rng = np.random.default_rng(5)
@@ -235,7 +235,7 @@ def test_balance_in_day_chunks_gives_the_same_ledger_as_one_pass(monkeypatch):
 
 def test_bank_voltage_at_matches_numpy_interp():
     # Reference: numpy.interp run in the test (the helper only avoids its whole-record copies).
-    from analysis.ledger import _bank_voltage_at
+    from drawdown.analysis.ledger import _bank_voltage_at
 
     rng = np.random.default_rng(7)
     bank_t = np.unique(rng.integers(0, 10**9, 2000)).astype(np.int64)

@@ -11,8 +11,8 @@ import math
 
 import pytest
 
-from collector.columns import ColumnSpec
-from collector.lines import (AutoParser, DelimitedParser, JsonLinesParser, KeyValueParser, NmeaParser,
+from drawdown.collector.columns import ColumnSpec
+from drawdown.collector.lines import (AutoParser, DelimitedParser, JsonLinesParser, KeyValueParser, NmeaParser,
                              first_line_is_whole, guess_format, parse_columns_option, parse_time)
 
 T0 = 1_767_225_600.0  # 2026-01-01T00:00:00Z

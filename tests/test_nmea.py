@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import pytest
 
-from collector import nmea
+from drawdown.collector import nmea
 
 # FIELDREF.md §8 check sentences
 BATTERY = "$IIXDR,U,12.85,V,BATT1,I,-4.2,A,BATT1,C,18.5,C,BATT1*40"

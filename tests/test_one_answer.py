@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from dashboard.cli import main
+from drawdown.cli import main
 from test_dashboard_figures import build_demo_store
 
 TARGETS = [(1.5, 90.0), (3.0, 90.0), (6.0, 75.0)]
@@ -35,8 +35,8 @@ def demo(tmp_path_factory):
 
 @pytest.fixture()
 def app_ctx(demo):
-    from dashboard.app import create_app
-    from dashboard.data import clear_caches, current
+    from drawdown.dashboard.app import create_app
+    from drawdown.dashboard.data import clear_caches, current
 
     clear_caches()
     app = create_app(demo)
@@ -109,8 +109,8 @@ def _table_rows(component) -> list[list[str]]:
 
 @pytest.mark.parametrize("days,percentile", TARGETS)
 def test_planner_and_size_json_give_the_same_sizes_and_runs(app_ctx, demo, capsys, days, percentile):
-    from dashboard import labels
-    from dashboard.pages import planner
+    from drawdown.dashboard import labels
+    from drawdown.dashboard.pages import planner
 
     rc, out, _err = _cli(capsys, demo, "size", "--json", "--autonomy-days", f"{days:g}",
                          "--percentile", f"{percentile:g}")
@@ -137,7 +137,7 @@ def test_planner_and_size_json_give_the_same_sizes_and_runs(app_ctx, demo, capsy
 
 
 def test_planner_sizes_from_the_same_days_as_size_not_the_trip_range(app_ctx):
-    from dashboard.pages import planner
+    from drawdown.dashboard.pages import planner
 
     src = app_ctx.source
     full = src.full_range()
@@ -150,8 +150,8 @@ def test_planner_sizes_from_the_same_days_as_size_not_the_trip_range(app_ctx):
 def test_sizing_inputs_are_gathered_by_one_function_for_both_faces():
     import inspect
 
-    from dashboard import data
-    from dashboard.commands import size
+    from drawdown.dashboard import data
+    from drawdown.cli.commands import size
 
     # Both faces call analysis.answers: no face gathers the temperature or the peak load itself.
     assert "size_answer" in inspect.getsource(size.run)
@@ -229,7 +229,7 @@ def test_size_with_only_an_inventory_sizes_an_array_and_a_battery(tmp_path, caps
 
 
 def test_cross_check_never_says_agree_without_two_answers():
-    from analysis.sizing import _explain_difference
+    from drawdown.analysis.sizing import _explain_difference
 
     out = _explain_difference(1.0, None, None, None, 3.0, 0.0, 0.75)
     # The battery answers agree; for the array there is only one answer, so no overall "agree".
@@ -276,8 +276,8 @@ def test_report_period_is_local_time_with_its_zone(demo, capsys):
 
 
 def test_every_face_shows_the_same_use_per_day_and_runs(app_ctx, demo, capsys, tmp_path):
-    from dashboard import labels
-    from dashboard.pages import trip
+    from drawdown.dashboard import labels
+    from drawdown.dashboard.pages import trip
 
     rc, out, _ = _cli(capsys, demo, "report", "--json", "--html", str(tmp_path / "r.html"))
     assert rc == 0
@@ -318,9 +318,9 @@ def test_html_report_opens_with_the_headline_figures(demo, capsys, tmp_path):
 # -- battery health: typed results ----------------------------------------------------------------
 
 def _report(demo):
-    from analysis.report import build_report
-    from analysis.system import parse_system
-    from collector.store import Store
+    from drawdown.analysis.report import build_report
+    from drawdown.analysis.system import parse_system
+    from drawdown.collector.store import Store
 
     system = parse_system(demo.system_path.read_text(encoding="utf-8"))
     with Store(demo.store_path) as store:
@@ -329,9 +329,9 @@ def _report(demo):
 
 
 def test_report_carries_typed_results_for_every_face(demo):
-    from analysis.capacity import CapacityEstimate, PeukertEstimate, ResistanceEstimate
-    from analysis.ledger import LedgerResult
-    from analysis.runtime import RuntimeEstimate
+    from drawdown.analysis.capacity import CapacityEstimate, PeukertEstimate, ResistanceEstimate
+    from drawdown.analysis.ledger import LedgerResult
+    from drawdown.analysis.runtime import RuntimeEstimate
 
     report, _system = _report(demo)
     assert isinstance(report.capacity, CapacityEstimate)
@@ -345,12 +345,12 @@ def test_report_carries_typed_results_for_every_face(demo):
 def test_health_draws_each_discharge_with_its_95_percent_interval(demo):
     import dataclasses
 
-    from analysis.answers import pair_ci95_Ah
-    from dashboard import figures
-    from dashboard.data import _health_of
+    from drawdown.analysis.answers import pair_ci95_Ah
+    from drawdown.dashboard import figures
+    from drawdown.dashboard.data import _health_of
 
-    from analysis.capacity import AnchorPair, CapacityEstimate
-    from analysis.charge import Anchor
+    from drawdown.analysis.capacity import AnchorPair, CapacityEstimate
+    from drawdown.analysis.charge import Anchor
 
     report, system = _report(demo)
     if not report.capacity.pairs:
@@ -378,7 +378,7 @@ def test_health_draws_each_discharge_with_its_95_percent_interval(demo):
 def test_health_of_reads_no_result_by_class_name():
     import inspect
 
-    from dashboard import data
+    from drawdown.dashboard import data
 
     src = inspect.getsource(data)
     assert "_find_part" not in src and "SimpleNamespace" not in src and "__name__ ==" not in src
@@ -386,8 +386,8 @@ def test_health_of_reads_no_result_by_class_name():
 
 
 def test_peukert_plot_shows_no_measured_points_when_the_exponent_is_not_fitted(demo):
-    from dashboard import figures
-    from dashboard.data import _health_of
+    from drawdown.dashboard import figures
+    from drawdown.dashboard.data import _health_of
 
     report, system = _report(demo)
     h = _health_of(report, system)
@@ -401,7 +401,7 @@ def test_peukert_plot_shows_no_measured_points_when_the_exponent_is_not_fitted(d
 
 
 def test_peukert_axis_ticks_are_one_two_five_steps():
-    from dashboard import figures
+    from drawdown.dashboard import figures
 
     fig = figures.peukert_figure([], [], k=1.1, capacity_Ah=200, rated_hours=20)
     ticks = list(fig.layout.xaxis.tickvals)
@@ -409,7 +409,7 @@ def test_peukert_axis_ticks_are_one_two_five_steps():
 
 
 def test_capacity_time_axis_spans_days_in_local_time():
-    from dashboard import figures
+    from drawdown.dashboard import figures
 
     pts = pd.DataFrame({"t": pd.to_datetime(["2026-10-01 07:00", "2026-10-02 01:00"]).tz_localize("UTC"),
                         "usable_Ah": [183.0, 184.0], "lo_Ah": [115.0, 116.0], "hi_Ah": [251.0, 252.0]})
@@ -423,7 +423,7 @@ def test_capacity_time_axis_spans_days_in_local_time():
 # -- the Now page ---------------------------------------------------------------------------------
 
 def test_now_page_says_both_runtime_figures_with_their_qualifiers(app_ctx):
-    from dashboard.pages import live
+    from drawdown.dashboard.pages import live
 
     src = app_ctx.source
     now = src.time_span()[1] + pd.Timedelta(minutes=1)
@@ -440,7 +440,7 @@ def test_now_page_says_both_runtime_figures_with_their_qualifiers(app_ctx):
 
 
 def test_now_page_has_a_state_of_its_own_for_old_data(app_ctx):
-    from dashboard.pages import live
+    from drawdown.dashboard.pages import live
 
     src = app_ctx.source
     old = src.time_span()[1] + pd.Timedelta(days=51)
@@ -456,7 +456,7 @@ def test_now_page_has_a_state_of_its_own_for_old_data(app_ctx):
 # -- the Solar page, Setup and the tables -----------------------------------------------------------
 
 def test_solar_diagnostics_are_written_for_a_person(app_ctx):
-    from dashboard.pages import solar
+    from drawdown.dashboard.pages import solar
 
     src = app_ctx.source
     *_rest, diag = solar.render_solar(src, None)
@@ -470,7 +470,7 @@ def test_solar_diagnostics_are_written_for_a_person(app_ctx):
 
 
 def test_setup_shows_local_times_with_their_zone(app_ctx):
-    from dashboard.pages import setup
+    from drawdown.dashboard.pages import setup
 
     text = " ".join(_texts(setup.store_view(app_ctx.source)))
     assert "UTC" not in text and "Europe/Oslo" in text
@@ -478,7 +478,7 @@ def test_setup_shows_local_times_with_their_zone(app_ctx):
 
 
 def test_every_table_cell_carries_its_column_name_for_phone_cards():
-    from dashboard.pages._parts import table
+    from drawdown.dashboard.pages._parts import table
 
     view = table([{"a": "x", "b": "1"}], [("a", "Run"), ("b", "Fuse [A]")], numeric=["b"])
     tds = view.children.children[1].children[0].children
@@ -489,7 +489,7 @@ def test_every_table_cell_carries_its_column_name_for_phone_cards():
 
 
 def test_labels_spell_units_and_names_for_people():
-    from dashboard import labels
+    from drawdown.dashboard import labels
 
     assert labels.chemistry("lifepo4") == "LiFePO4"
     assert labels.for_people("below 0 degC; 4 mm2; 3 file(s); 1 gap(s)") == "below 0 °C; 4 mm²; 3 files; 1 gap"
@@ -499,7 +499,7 @@ def test_labels_spell_units_and_names_for_people():
 
 def test_notes_read_as_sentences_with_thousands_separated():
     # Common practice in written English: a sentence starts with a capital; 1,500 W groups its thousands.
-    from dashboard import labels
+    from drawdown.dashboard import labels
 
     said = labels.sentence("the measured consumption already includes any inverter; a new 1500 W inverter "
                            "left on adds about 360 Wh/day from 2026-09-21, 12000 Wh over 2026 days")

@@ -15,8 +15,8 @@ import re
 
 import pytest
 
-from dashboard import labels
-from dashboard.cli import main
+from drawdown.dashboard import labels
+from drawdown.cli import main
 from test_dashboard_browser import CHROMIUM, browser, demo, server, watched  # noqa: F401 (fixtures)
 
 pytestmark = [

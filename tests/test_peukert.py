@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from analysis.peukert import (
+from drawdown.analysis.peukert import (
     capacity_at_current,
     effective_current,
     fit_exponent,

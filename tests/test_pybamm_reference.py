@@ -17,8 +17,8 @@ import pytest
 os.environ.setdefault("PYBAMM_DISABLE_TELEMETRY", "true")
 pybamm = pytest.importorskip("pybamm")
 
-from analysis.charge import coulomb_count_Ah, state_of_charge
-from analysis.system import system_from_mapping
+from drawdown.analysis.charge import coulomb_count_Ah, state_of_charge
+from drawdown.analysis.system import system_from_mapping
 
 
 def _solve(current_function, t_end_s: float, n_points: int):

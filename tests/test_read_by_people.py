@@ -13,7 +13,7 @@ import re
 
 import pytest
 
-from dashboard.cli import main
+from drawdown.cli import main
 from test_dashboard_figures import build_demo_store
 
 OSLO_SYSTEM = """
@@ -110,10 +110,10 @@ def test_report_text_spells_units_plurals_and_chemistry_for_people(demo, capsys)
 def test_html_report_says_no_machine_words_and_local_gap_times(demo, capsys, tmp_path):
     import pandas as pd
 
-    from analysis.report import build_report
-    from analysis.system import parse_system
-    from collector.store import Store
-    from dashboard.html_report import render_html
+    from drawdown.analysis.report import build_report
+    from drawdown.analysis.system import parse_system
+    from drawdown.collector.store import Store
+    from drawdown.dashboard.html_report import render_html
 
     store, system_path = demo
     system = parse_system(system_path.read_text(encoding="utf-8"))
@@ -134,7 +134,7 @@ def test_html_report_says_no_machine_words_and_local_gap_times(demo, capsys, tmp
 
 
 def test_for_people_makes_one_singular_but_not_a_tenth_or_other_words():
-    from dashboard import labels
+    from drawdown.dashboard import labels
 
     assert labels.for_people("1 gap(s), 21 gap(s), 0 file(s)") == "1 gap, 21 gaps, 0 files"
     # '0.1 days' and '1 class T fuse' are not plurals to undo.
@@ -142,8 +142,8 @@ def test_for_people_makes_one_singular_but_not_a_tenth_or_other_words():
 
 
 def test_analysis_sentences_spell_degrees_and_cite_no_internal_documents():
-    from analysis.cautions import build_cautions
-    from analysis.wiring import size_run
+    from drawdown.analysis.cautions import build_cautions
+    from drawdown.analysis.wiring import size_run
 
     cautions = " ".join(build_cautions(chemistry="lifepo4", min_temperature_C=-3.0))
     assert "-3.0 °C" in cautions and "below 0 °C" in cautions and "degC" not in cautions

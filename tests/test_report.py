@@ -15,10 +15,10 @@ import pytest
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from test_ledger import long_frame
 
-from analysis.report import build_report
-from analysis.system import system_from_mapping
-from collector.store import Store
-from dashboard.cli import main
+from drawdown.analysis.report import build_report
+from drawdown.analysis.system import system_from_mapping
+from drawdown.collector.store import Store
+from drawdown.cli import main
 
 SYSTEM_TOML = """
 [site]
@@ -132,7 +132,7 @@ def test_report_html_is_self_contained_and_offline(store_dir, capsys):
 def test_report_html_command_draws_the_dashboard_figures_with_plotly_inline_once(store_dir, capsys):
     from plotly.offline import get_plotlyjs
 
-    from dashboard.html_report import SAFETY_CAUTION
+    from drawdown.dashboard.html_report import SAFETY_CAUTION
 
     with Store(store_dir / "r.sqlite") as st:
         st.append(_frame())
@@ -157,7 +157,7 @@ def test_bad_date_is_a_usage_error_naming_the_option(store_dir, capsys):
 # -- against the simulator's truth ----------------------------------------------------------
 
 def _sim_report(name: str, days: int, *, single_shunt: bool = False):
-    import collector.simulated as sim_mod
+    import drawdown.collector.simulated as sim_mod
     sim = sim_mod.simulate(name, days=days)
     df = sim_mod.to_canonical(sim, interval_s=60, single_shunt=single_shunt)
     return build_report(df, sim.scenario.system).to_json(), sim.truth
@@ -204,8 +204,8 @@ def test_multichannel_simulation_consumed_Ah_within_2_percent_every_day():
 def test_lithium_charged_below_freezing_is_a_report_caution():
     # Common practice (FIELDREF §2 / DESIGN.md Safety): LiFePO4 must not be charged below 0 degC;
     # a log that shows it must say so in the report, not only in the sizing advice.
-    from analysis.report import build_report
-    from analysis.system import system_from_mapping
+    from drawdown.analysis.report import build_report
+    from drawdown.analysis.system import system_from_mapping
 
     system = system_from_mapping({"site": {"latitude_deg": 61.2, "longitude_deg": 7.1, "timezone": "Europe/Oslo"},
                                   "battery": {"chemistry": "lifepo4", "nominal_voltage_V": 12.8,
@@ -220,8 +220,8 @@ def test_lithium_charged_below_freezing_is_a_report_caution():
 
 
 def test_no_cold_caution_for_a_warm_lithium_bank():
-    from analysis.report import build_report
-    from analysis.system import system_from_mapping
+    from drawdown.analysis.report import build_report
+    from drawdown.analysis.system import system_from_mapping
 
     system = system_from_mapping({"site": {"latitude_deg": 61.2, "longitude_deg": 7.1, "timezone": "Europe/Oslo"},
                                   "battery": {"chemistry": "lifepo4", "nominal_voltage_V": 12.8,
@@ -233,10 +233,10 @@ def test_no_cold_caution_for_a_warm_lithium_bank():
 
 
 def test_report_text_shows_the_95_percent_range_of_use_and_says_what_it_rests_on():
-    # The plain-text summary (dashboard.commands.report.describe) names the range the
+    # The plain-text summary (drawdown.cli.commands.report.describe) names the range the
     # report JSON carries as consumed_Ah_pi95: on one shunt the hidden load, with a shunt
     # per source only the instruments' own errors (no "unseen" columns then).
-    from dashboard.commands.report import describe
+    from drawdown.cli.commands.report import describe
 
     day = {"date": "2026-09-21", "complete": True, "consumed_Ah": 48.2, "consumed_Wh": 644.0,
            "charged_Ah": {"solar": 19.3, "alternator": 35.4, "shore": 0.0, "other": 0.9},
@@ -261,7 +261,7 @@ def test_report_text_shows_the_95_percent_range_of_use_and_says_what_it_rests_on
 
 def test_json_rounding_gives_null_for_missing_and_non_finite_values():
     # JSON (RFC 8259) has no NaN or infinity: an unknown value is null in the report.
-    from analysis.json_values import rounded
+    from drawdown.analysis.json_values import rounded
 
     assert rounded(1.23456, 3) == 1.235
     assert rounded(np.float32(2.5), 0) == 2.0

@@ -35,7 +35,7 @@ def demo(tmp_path_factory):
 
 @pytest.fixture()
 def client(demo):
-    from dashboard.app import create_app
+    from drawdown.dashboard.app import create_app
 
     return create_app(demo, token=TOKEN).server.test_client()
 
@@ -53,20 +53,20 @@ _CALLBACK_BODY = json.dumps({
 
 @pytest.mark.parametrize("host", ["127.0.0.1", "127.8.9.10", "::1", "[::1]", "localhost"])
 def test_loopback_hosts_are_recognised(host):
-    from dashboard.security import is_loopback
+    from drawdown.dashboard.security import is_loopback
 
     assert is_loopback(host)
 
 
 @pytest.mark.parametrize("host", ["0.0.0.0", "192.168.1.20", "::", "van.local", "10.0.0.1"])
 def test_other_hosts_are_not_loopback(host):
-    from dashboard.security import is_loopback
+    from drawdown.dashboard.security import is_loopback
 
     assert not is_loopback(host)
 
 
 def test_a_token_is_generated_off_loopback_and_none_on_loopback():
-    from dashboard.app import resolve_token
+    from drawdown.dashboard.app import resolve_token
 
     assert resolve_token("127.0.0.1", None) is None
     generated = resolve_token("0.0.0.0", None)
@@ -78,14 +78,14 @@ def test_a_token_is_generated_off_loopback_and_none_on_loopback():
 def test_a_short_token_is_refused():
     import flask
 
-    from dashboard.security import install_token_guard
+    from drawdown.dashboard.security import install_token_guard
 
     with pytest.raises(ValueError, match="at least 16 characters"):
         install_token_guard(flask.Flask("t"), "short")
 
 
 def test_serve_command_refuses_a_short_token(demo, capsys):
-    from dashboard.cli import main
+    from drawdown.cli import main
 
     code = main(["--store", str(demo.store_path), "--system", str(demo.system_path), "serve", "--token", "abc"])
     assert code == 2
@@ -118,7 +118,7 @@ def test_wrong_token_is_refused_with_403(client):
 
 
 def test_token_in_the_address_sets_a_cookie_that_admits_callbacks(client):
-    from dashboard.security import COOKIE
+    from drawdown.dashboard.security import COOKIE
 
     r = client.get(f"/?token={TOKEN}")
     assert r.status_code == 200
@@ -135,7 +135,7 @@ def test_bearer_header_admits_a_request(client):
 
 
 def test_app_without_token_serves_loopback_requests(demo):
-    from dashboard.app import create_app
+    from drawdown.dashboard.app import create_app
 
     assert create_app(demo).server.test_client().get("/").status_code == 200
 
@@ -151,7 +151,7 @@ def _free_port() -> int:
 def start_server(store_path: Path, system_path: Path, *, token: str | None = None) -> tuple[subprocess.Popen, str]:
     """`drawdown serve` on a free loopback port in a subprocess; returns (process, base URL) once it answers."""
     port = _free_port()
-    cmd = [sys.executable, "-m", "dashboard.cli", "--store", str(store_path), "--system", str(system_path),
+    cmd = [sys.executable, "-m", "drawdown", "--store", str(store_path), "--system", str(system_path),
            "serve", "--host", "127.0.0.1", "--port", str(port)]
     if token:
         cmd += ["--token", token]

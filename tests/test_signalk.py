@@ -11,7 +11,7 @@ import math
 
 import pytest
 
-from collector.signalk import SignalKError, channel_for, delta_to_readings
+from drawdown.collector.signalk import SignalKError, channel_for, delta_to_readings
 
 # FIELDREF.md §8 delta example
 DELTA = {"context": "vessels.self", "updates": [{"source": {"label": "x"}, "timestamp": "2024-06-21T12:00:00Z",

@@ -17,12 +17,12 @@ import pandas as pd
 import pvlib
 import pytest
 
-from analysis.system import parse_system
-from collector.sim_physics import BankModel, open_circuit_voltage_V, run_bank
-from collector.sim_solar import pwm_current_A
-from collector.simulated import (MULTI_CHANNEL_COLUMNS, SINGLE_SHUNT_COLUMNS, available_scenarios,
+from drawdown.analysis.system import parse_system
+from drawdown.collector.sim_physics import BankModel, open_circuit_voltage_V, run_bank
+from drawdown.collector.sim_solar import pwm_current_A
+from drawdown.collector.simulated import (MULTI_CHANNEL_COLUMNS, SINGLE_SHUNT_COLUMNS, available_scenarios,
                                  load_scenario, simulate, write_log)
-from dashboard.cli import main as cli_main
+from drawdown.cli import main as cli_main
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -344,7 +344,7 @@ def test_scenario_toml_files_have_no_unknown_keys():
 
 
 def test_old_scenario_key_is_an_error_naming_the_new_one():
-    from collector.sim_scenario import ScenarioError, parse_scenario
+    from drawdown.collector.sim_scenario import ScenarioError, parse_scenario
 
     text = (REPO / "collector" / "scenarios" / "autumn-van.scenario.toml").read_text()
     old = text.replace("absorption_end_current_pct =", "tail_current_pct =")
@@ -356,7 +356,7 @@ def test_old_scenario_key_is_an_error_naming_the_new_one():
 # --- The collector interface and the demo
 
 def test_to_canonical_follows_the_sign_convention_and_matches_the_log(van3):
-    from collector.simulated import to_canonical
+    from drawdown.collector.simulated import to_canonical
 
     sim, out, _ = van3
     frame = to_canonical(sim, interval_s=60)
@@ -371,7 +371,7 @@ def test_to_canonical_follows_the_sign_convention_and_matches_the_log(van3):
 
 
 def test_demo_twice_does_not_double_the_data(tmp_path, capsys):
-    from collector.store import Store
+    from drawdown.collector.store import Store
 
     store = tmp_path / "s.sqlite"
     args = ["--store", str(store), "demo", "--no-serve", "--days", "2"]

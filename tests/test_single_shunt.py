@@ -12,9 +12,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis.ledger import daily_ledger
-from analysis.single_shunt import _load_step_events
-from analysis.system import system_from_mapping
+from drawdown.analysis.ledger import daily_ledger
+from drawdown.analysis.single_shunt import _load_step_events
+from drawdown.analysis.system import system_from_mapping
 from tests.test_ledger import long_frame
 
 
@@ -182,9 +182,9 @@ def test_simulated_single_shunt_consumed_Ah_mean_error_is_within_8_percent(scena
     # is -26 %).
     # The per-day ±8 % target is checked on the fixtures in tests/test_ledger.py; day-by-day
     # figures over seeds and intervals: benchmarks/single_shunt_accuracy.py.
-    from analysis.ledger import compute_ledger
-    from analysis.readings import split_channels
-    from collector.simulated import simulate, to_canonical
+    from drawdown.analysis.ledger import compute_ledger
+    from drawdown.analysis.readings import split_channels
+    from drawdown.collector.simulated import simulate, to_canonical
 
     sim = simulate(scenario, days=10)
     frame = to_canonical(sim, interval_s=60, single_shunt=True)
@@ -201,9 +201,9 @@ def test_bundled_scenario_single_shunt_consumed_Ah_within_8_percent_on_every_day
     # really happened): the bundled scenarios at their own length and seed (21 and 14
     # days), logged as one shunt at the default 10 s and at 60 s, every day within ±8 %.
     # Other seeds are not all there (benchmarks/single_shunt_accuracy.py: 263/280 days).
-    from analysis.ledger import compute_ledger
-    from analysis.readings import split_channels
-    from collector.simulated import simulate, to_canonical
+    from drawdown.analysis.ledger import compute_ledger
+    from drawdown.analysis.readings import split_channels
+    from drawdown.collector.simulated import simulate, to_canonical
 
     sim = simulate(scenario)
     frame = to_canonical(sim, interval_s=interval_s, single_shunt=True)
@@ -217,7 +217,7 @@ def test_bundled_scenario_single_shunt_consumed_Ah_within_8_percent_on_every_day
 def test_hourly_error_sd_is_the_rms_of_hour_block_means():
     # Closed form: hour blocks with mean errors +1 A and -3 A give RMS sqrt((1 + 9) / 2) A;
     # a block covered for less than half an hour is left out.
-    from analysis.single_shunt import _hourly_error_sd
+    from drawdown.analysis.single_shunt import _hourly_error_sd
 
     bin_us = 60 * 1_000_000
     t_mid = np.arange(180) * bin_us + bin_us // 2  # three hours of 1-minute bins
@@ -237,9 +237,9 @@ def test_simulated_single_shunt_95_percent_interval_covers_truth_on_most_days(sc
     # (benchmarks/single_shunt_accuracy.py) it covered 280 of 280 days at a median
     # half-width of 15 % (10-day runs 160/160 at 14 %, 5-day runs 73/80 at 13 %; the
     # night-model interval it replaced: ~40 %).
-    from analysis.ledger import compute_ledger
-    from analysis.readings import split_channels
-    from collector.simulated import simulate, to_canonical
+    from drawdown.analysis.ledger import compute_ledger
+    from drawdown.analysis.readings import split_channels
+    from drawdown.collector.simulated import simulate, to_canonical
 
     sim = simulate(scenario, days=10)
     frame = to_canonical(sim, interval_s=60, single_shunt=True)
@@ -264,7 +264,7 @@ def test_charge_beyond_the_clear_sky_solar_limit_goes_to_the_last_plateau_source
     # A 30 A alternator plateau (bins 100-200), then the bank keeps taking 8 A after the
     # drive while the arrays can give at most 2 A (clear-sky bound): 6 A of it is not solar.
     # Kirchhoff: the parts add up to the gross charge in every bin.
-    from analysis.single_shunt import _attribute
+    from drawdown.analysis.single_shunt import _attribute
 
     n = 400
     gross = np.zeros(n)
@@ -282,7 +282,7 @@ def test_charge_beyond_the_clear_sky_solar_limit_goes_to_the_last_plateau_source
 def test_a_rise_far_below_every_charger_rating_is_not_a_charger_plateau():
     # The only charger is a 30 A alternator; a 5 A rise lasting an hour at noon with no
     # hold nearby is the sun coming out (or a load switching off), not the alternator.
-    from analysis.single_shunt import _attribute
+    from drawdown.analysis.single_shunt import _attribute
 
     n = 300
     gross = np.full(n, 2.0)
@@ -296,8 +296,8 @@ def test_a_rise_far_below_every_charger_rating_is_not_a_charger_plateau():
 def test_single_shunt_in_sample_chunks_gives_the_same_ledger_as_one_pass(monkeypatch):
     # The single-shunt path sums samples into bins in chunks (memory on a year at 1 Hz);
     # the chunk size must not change any figure.
-    import analysis.single_shunt as single_shunt_mod
-    from collector.simulated import simulate, to_canonical
+    import drawdown.analysis.single_shunt as single_shunt_mod
+    from drawdown.collector.simulated import simulate, to_canonical
 
     sim = simulate("autumn-van", days=3)
     frame = to_canonical(sim, interval_s=60, single_shunt=True)
@@ -312,7 +312,7 @@ def test_hour_top_up_counts_the_load_the_hours_visible_minutes_already_carry():
     # Minutes 0-9 are read (a kettle: 12 A, 2 Ah); minutes 10-59 are hidden, 1 A seen.
     # The hour already carries 2 + 50/60 Ah, so the hidden minutes get (3 - 2.8333) Ah
     # spread over 50/60 h: +0.2 A. Without the read minutes they would get +2 A.
-    from analysis.single_shunt import _hour_topped_up
+    from drawdown.analysis.single_shunt import _hour_topped_up
 
     bin_us = 60 * 1_000_000
     t_mid = np.arange(60) * bin_us + bin_us // 2

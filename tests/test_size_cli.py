@@ -1,4 +1,4 @@
-"""``drawdown size`` through dashboard.cli.main: a real SQLite store, a real system.toml."""
+"""``drawdown size`` through drawdown.cli.main: a real SQLite store, a real system.toml."""
 
 from __future__ import annotations
 
@@ -8,7 +8,7 @@ from pathlib import Path
 
 import pytest
 
-from dashboard.cli import main
+from drawdown.cli import main
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "collector" / "scenarios"
 
@@ -101,8 +101,8 @@ def test_size_human_output_explains_the_recommendation(tmp_path, capsys):
 def test_size_on_the_bundled_scenario_meets_its_target(tmp_path, capsys):
     # Scenario test: the bundled invented 'autumn-van' scenario, simulated, stored in a real SQLite store,
     # ledger built by analysis.ledger; the recommendation's simulated autonomy meets the target.
-    from collector.simulated import simulate, to_canonical
-    from collector.store import Store
+    from drawdown.collector.simulated import simulate, to_canonical
+    from drawdown.collector.store import Store
 
     sim = simulate("autumn-van", days=21)
     store = tmp_path / "readings.sqlite"
@@ -127,7 +127,7 @@ def test_size_on_the_bundled_scenario_meets_its_target(tmp_path, capsys):
 
 def _parked_wet_spell(capacity_Ah: float, array_W: float, days: int):
     """The bundled scenario's physics with the recommended bank and array, parked through overcast days."""
-    from collector.simulated import load_scenario, simulate
+    from drawdown.collector.simulated import load_scenario, simulate
 
     sc = load_scenario("autumn-van")
     p = sc.params
@@ -146,8 +146,8 @@ def test_recommended_set_survives_the_scenarios_wet_spell_in_its_own_physics(tmp
     # Outside check of the recommendation: the scenario simulator's bank physics (collector/simulated.py,
     # written independently of the sizing code), parked from full through the scenario's overcast spell for
     # the target days, never takes the recommended bank below its reserve.
-    from collector.simulated import simulate, to_canonical
-    from collector.store import Store
+    from drawdown.collector.simulated import simulate, to_canonical
+    from drawdown.collector.store import Store
 
     store = tmp_path / "readings.sqlite"
     with Store(store) as st:

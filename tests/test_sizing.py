@@ -13,9 +13,9 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from analysis import design_method as dm
-from analysis import sizing as sz
-from analysis.system import system_from_mapping
+from drawdown.analysis import design_method as dm
+from drawdown.analysis import sizing as sz
+from drawdown.analysis.system import system_from_mapping
 
 
 def make_system(*, chemistry="lifepo4", voltage=12.8, capacity=100, solar_W=200, loads=(), alternator=None,
@@ -263,7 +263,7 @@ def test_recommended_bank_is_the_smallest_in_the_catalogue_that_meets_the_target
 def test_simulated_autonomy_of_the_pick_is_reproduced_by_the_bootstrap_directly():
     # Independent re-run of the documented model with analysis.autonomy: parked days, Ah x V basis,
     # LFP usable = Ah x V x 0.8, same seed -> same p90 days.
-    from analysis import autonomy as au
+    from drawdown.analysis import autonomy as au
 
     s = make_system(capacity=100, solar_W=200)
     days = make_days(120, base_Wh=900)

@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from analysis.soc_band import UNKNOWN_HEALTH_RANGE, capacity_range_Ah, soc_band_pct
+from drawdown.analysis.soc_band import UNKNOWN_HEALTH_RANGE, capacity_range_Ah, soc_band_pct
 
 ROOT = Path(__file__).resolve().parents[1]
 

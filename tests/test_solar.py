@@ -18,10 +18,10 @@ import pytest
 from pvlib import clearsky, irradiance, pvsystem, temperature
 from pvlib.location import Location
 
-import analysis.solar_model as solar_model
-from analysis.solar import analyse_solar, expected_clear_sky
-from analysis.solar_model import pwm_fraction
-from analysis.system import system_from_mapping
+import drawdown.analysis.solar_model as solar_model
+from drawdown.analysis.solar import analyse_solar, expected_clear_sky
+from drawdown.analysis.solar_model import pwm_fraction
+from drawdown.analysis.system import system_from_mapping
 
 TZ = "Europe/Oslo"
 
@@ -376,7 +376,7 @@ def test_to_json_has_the_report_contract_keys():
 
 @pytest.fixture(scope="module")
 def scenario_runs():
-    from collector.simulated import simulate, to_canonical
+    from drawdown.collector.simulated import simulate, to_canonical
 
     runs = {}
     for name in ("autumn-van", "spring-truck"):
@@ -447,7 +447,7 @@ def test_scenario_sky_classes_match_truth(scenario_runs, name):
 def test_scenario_csv_log_melted_to_long_frame_gives_same_daily_yield(tmp_path):
     # The simulator's CSV (rounded as a logger writes it), read with pandas and melted
     # into the canonical long frame without the importer.
-    from collector.simulated import simulate, write_log
+    from drawdown.collector.simulated import simulate, write_log
 
     sim = simulate("autumn-van", days=3)
     path = tmp_path / "van.csv"
@@ -477,9 +477,9 @@ def test_scenario_csv_log_melted_to_long_frame_gives_same_daily_yield(tmp_path):
 def test_scenario_single_shunt_attribution_within_fifteen_percent():
     # Issue 4 "must show": measured solar Ah per day within ±15 % when attributed from a
     # single shunt (the ledger's attribution, analysis.ledger).
-    from analysis.ledger import compute_ledger
-    from analysis.readings import split_channels
-    from collector.simulated import simulate, to_canonical
+    from drawdown.analysis.ledger import compute_ledger
+    from drawdown.analysis.readings import split_channels
+    from drawdown.collector.simulated import simulate, to_canonical
 
     sim = simulate("autumn-van", days=10)
     frame = to_canonical(sim, interval_s=60, single_shunt=True)

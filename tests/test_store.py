@@ -12,8 +12,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from collector.csv_file import import_file
-from collector.store import Store
+from drawdown.collector.csv_file import import_file
+from drawdown.collector.store import Store
 
 ROOT = Path(__file__).resolve().parent.parent
 LOGS = ROOT / "fixtures" / "logs"
@@ -30,7 +30,7 @@ def _count_in_other_process(path: Path) -> int:
     code = textwrap.dedent(f"""
         import sys
         sys.path.insert(0, {str(ROOT)!r})
-        from collector.store import Store
+        from drawdown.collector.store import Store
         with Store({str(path)!r}, timeout_s=2.0) as st:
             print(len(st.read()))
     """)

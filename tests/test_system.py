@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import pytest
 
-from analysis.system import SystemError_, parse_system
+from drawdown.analysis.system import SystemError_, parse_system
 
 # The example from DESIGN.md, verbatim: it must always validate.
 DESIGN_EXAMPLE = """
@@ -102,7 +102,7 @@ def test_every_chemistry_default_names_its_source():
     # Each value in CHEMISTRY_DEFAULTS carries its source on its own line (issue 13).
     import inspect
 
-    import analysis.system as system_module
+    import drawdown.analysis.system as system_module
 
     src = inspect.getsource(system_module)
     block = src[src.index("CHEMISTRY_DEFAULTS: dict"):src.index("FULL_HOLD_S_DEFAULT =")]
@@ -148,7 +148,7 @@ def test_overrides_win_over_chemistry_defaults():
                                           ("tail_current_pct", "full_current_pct"),
                                           ("detection_time_s", "full_hold_s")])
 def test_cli_exits_2_naming_the_new_key(tmp_path, capsys, old, new):
-    from dashboard.cli import main
+    from drawdown.cli import main
 
     bad = tmp_path / "BAD.toml"
     bad.write_text(DESIGN_EXAMPLE.replace("rated_hours = 20", f"rated_hours = 20\n{old} = 3"))

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import pytest
 
-from dashboard.cli import main
+from drawdown.cli import main
 from test_dashboard_browser import CHROMIUM, browser, demo, server, watched  # noqa: F401 (fixtures)
 
 pytestmark = [

@@ -1,4 +1,4 @@
-"""``drawdown wire`` through dashboard.cli.main, stdout captured."""
+"""``drawdown wire`` through drawdown.cli.main, stdout captured."""
 
 from __future__ import annotations
 
@@ -6,7 +6,7 @@ import json
 
 import pytest
 
-from dashboard.cli import main
+from drawdown.cli import main
 
 
 def run_json(capsys, *argv):

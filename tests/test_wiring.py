@@ -11,7 +11,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from analysis import wiring as w
+from drawdown.analysis import wiring as w
 
 # ---- ASTM B258 ---------------------------------------------------------------
 
@@ -187,7 +187,7 @@ def test_fuse_is_the_smallest_standard_rating_at_125_percent():
 
 def test_inverter_check_1000W_at_12V_is_92_6A_and_108_2A_at_cutoff():
     # FIELDREF §7 [C]: I_dc = P / (V eta): 1000 W, 12 V, 0.90 -> 92.6 A; 10.5 V, 0.88 -> 108.2 A.
-    from analysis.sizing import inverter_dc_current_A
+    from drawdown.analysis.sizing import inverter_dc_current_A
 
     assert inverter_dc_current_A(1000, 12, 0.90) == pytest.approx(92.6, abs=0.05)
     assert inverter_dc_current_A(1000, 10.5, 0.88) == pytest.approx(108.2, abs=0.05)
@@ -208,7 +208,7 @@ def test_inverter_run_gets_150A_fuse_and_4AWG_at_105C():
 
 def test_dc_dc_input_current_checks():
     # FIELDREF §7 [C]: I_in = I_out V_out / (V_in eta): 30 A at 14.4 V, 0.9: 13.2 V -> 36.4 A, 12.5 V -> 38.4 A.
-    from analysis.charging import dc_dc_input_current_A
+    from drawdown.analysis.charging import dc_dc_input_current_A
 
     assert dc_dc_input_current_A(30, 14.4, 13.2, efficiency=0.9) == pytest.approx(36.4, abs=0.05)
     assert dc_dc_input_current_A(30, 14.4, 12.5, efficiency=0.9) == pytest.approx(38.4, abs=0.05)

@@ -12,9 +12,9 @@ from typing import Any
 import dash
 from dash import Input, Output, callback, html
 
-from dashboard import figures, ids, labels
-from dashboard.data import HEALTH_DAYS, DataSource, current
-from dashboard.pages._parts import card, fmt, graph, missing, page_head
+from drawdown.dashboard import figures, ids, labels
+from drawdown.dashboard.data import HEALTH_DAYS, DataSource, current
+from drawdown.dashboard.pages._parts import card, fmt, graph, missing, page_head
 
 dash.register_page(__name__, path="/health", name="Battery health", title="drawdown - battery health", order=2)
 

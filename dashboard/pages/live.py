@@ -13,9 +13,9 @@ import dash
 import pandas as pd
 from dash import Input, Output, callback, dcc, html
 
-from dashboard import figures, ids, labels
-from dashboard.data import DataSource, LiveSnapshot, current
-from dashboard.pages._parts import card, fmt, graph, notice, page_head
+from drawdown.dashboard import figures, ids, labels
+from drawdown.dashboard.data import DataSource, LiveSnapshot, current
+from drawdown.dashboard.pages._parts import card, fmt, graph, notice, page_head
 
 dash.register_page(__name__, path="/", name="Now", title="drawdown - now", order=0)
 

@@ -15,10 +15,10 @@ from typing import Any
 import dash
 from dash import Input, Output, State, callback, dcc, html
 
-from analysis.answers import DEFAULT_AUTONOMY_DAYS, DEFAULT_PERCENTILE
-from dashboard import figures, ids, labels
-from dashboard.data import DataSource, as_json, current
-from dashboard.pages._parts import card, fmt, graph, missing, notice, page_head, table
+from drawdown.analysis.answers import DEFAULT_AUTONOMY_DAYS, DEFAULT_PERCENTILE
+from drawdown.dashboard import figures, ids, labels
+from drawdown.dashboard.data import DataSource, as_json, current
+from drawdown.dashboard.pages._parts import card, fmt, graph, missing, notice, page_head, table
 
 dash.register_page(__name__, path="/planner", name="Upgrade planner", title="drawdown - upgrade planner", order=4)
 

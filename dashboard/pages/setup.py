@@ -12,10 +12,10 @@ from typing import Any
 import dash
 from dash import Input, Output, State, callback, dcc, html, no_update
 
-from dashboard import ids, labels
-from dashboard.data import DataSource, current, imports_table
-from dashboard.security import UPLOAD_LIMIT_TEXT
-from dashboard.pages._parts import fmt, notice, page_head, table
+from drawdown.dashboard import ids, labels
+from drawdown.dashboard.data import DataSource, current, imports_table
+from drawdown.dashboard.security import UPLOAD_LIMIT_TEXT
+from drawdown.dashboard.pages._parts import fmt, notice, page_head, table
 
 dash.register_page(__name__, path="/setup", name="System setup", title="drawdown - system setup", order=5)
 

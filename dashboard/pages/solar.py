@@ -13,9 +13,9 @@ import numpy as np
 import pandas as pd
 from dash import Input, Output, State, callback, html
 
-from dashboard import figures, ids, labels
-from dashboard.data import DataSource, as_json, current
-from dashboard.pages._parts import card, fmt, graph, missing, page_head
+from drawdown.dashboard import figures, ids, labels
+from drawdown.dashboard.data import DataSource, as_json, current
+from drawdown.dashboard.pages._parts import card, fmt, graph, missing, page_head
 
 dash.register_page(__name__, path="/solar", name="Solar", title="drawdown - solar", order=3)
 

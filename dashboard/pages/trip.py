@@ -16,10 +16,10 @@ import dash
 import pandas as pd
 from dash import Input, Output, callback, dcc, html, no_update
 
-from analysis.report import HIDDEN_NOTE_H, hidden_load_note
-from dashboard import figures, ids, labels
-from dashboard.data import DataSource, current
-from dashboard.pages._parts import card, fmt, graph, missing, page_head, table
+from drawdown.analysis.report import HIDDEN_NOTE_H, hidden_load_note
+from drawdown.dashboard import figures, ids, labels
+from drawdown.dashboard.data import DataSource, current
+from drawdown.dashboard.pages._parts import card, fmt, graph, missing, page_head, table
 
 dash.register_page(__name__, path="/trip", name="Trip review", title="drawdown - trip review", order=1)
 

@@ -8,12 +8,28 @@ overwritten, and the command says so).
 
 from __future__ import annotations
 
+import argparse
 import sys
 import time
 from pathlib import Path
 from typing import Any
 
-from dashboard.context import Context, UsageError, print_json
+from drawdown.cli.context import Context, UsageError, print_json
+
+
+NAME = "simulate"
+HELP = "write a simulated log with its truth beside it"
+
+
+def add_arguments(s: argparse.ArgumentParser) -> None:
+    """This command's options."""
+    s.add_argument("--scenario", required=True, metavar="NAME")
+    s.add_argument("--days", type=int, required=True, metavar="N")
+    s.add_argument("--out", required=True, metavar="FILE")
+    s.add_argument("--interval", type=float, default=None, metavar="S", help="sample interval [s]")
+    s.add_argument("--single-shunt", action="store_true", help="log only the battery shunt")
+    s.add_argument("--seed", type=int, default=None)
+    s.add_argument("--json", action="store_true")
 
 
 def _write_system(folder: Path, text: str) -> tuple[Path, bool]:
@@ -26,7 +42,7 @@ def _write_system(folder: Path, text: str) -> tuple[Path, bool]:
 
 
 def run(args: Any, ctx: Context) -> int:
-    from collector.simulated import UnknownScenarioError, load_scenario, simulate, write_log
+    from drawdown.collector.simulated import UnknownScenarioError, load_scenario, simulate, write_log
 
     try:
         scenario = load_scenario(args.scenario)

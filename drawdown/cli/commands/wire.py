@@ -13,10 +13,29 @@ current, zero length, ...) exits 2 naming the option.
 
 from __future__ import annotations
 
+import argparse
 import math
 
-from dashboard import labels
-from dashboard.context import UsageError, print_json
+from drawdown.dashboard import labels
+from drawdown.cli.context import UsageError, print_json
+
+NAME = "wire"
+HELP = "size one cable run: cross-section, voltage drop, fuse"
+
+
+def add_arguments(s: argparse.ArgumentParser) -> None:
+    """This command's options."""
+    s.add_argument("--current", type=float, required=True, metavar="A", help="continuous current [A]")
+    s.add_argument("--length", type=float, required=True, metavar="M", help="one-way run [m]")
+    s.add_argument("--voltage", type=float, required=True, metavar="V", help="nominal system voltage [V]")
+    s.add_argument("--max-drop", type=float, default=3.0, metavar="PCT", help="voltage-drop limit [%%] (default 3)")
+    s.add_argument("--insulation", type=int, default=105, choices=[60, 75, 90, 105, 125],
+                   help="insulation temperature rating [degC] (default 105)")
+    s.add_argument("--ambient", type=float, default=30.0, metavar="C", help="conductor temperature assumed [degC]")
+    s.add_argument("--bundled", type=int, default=1, metavar="N", help="current-carrying conductors bundled together")
+    s.add_argument("--engine-space", action="store_true", help="run passes through an engine space")
+    s.add_argument("--json", action="store_true")
+
 
 #: The bank voltages this sizes [V]: 6 V (two-cell lead-acid, golf-cart banks) up to 60 V, the
 #: top of a 48 V bank while charging and the limit of extra-low-voltage DC work (the same
@@ -35,7 +54,7 @@ def _check(option: str, value: float, *, low: float = 0.0, high: float = math.in
 
 
 def run(args, ctx) -> int:
-    from analysis.wiring import size_run
+    from drawdown.analysis.wiring import size_run
 
     _check("--current", args.current, high=5000)
     _check("--length", args.length, high=1000)

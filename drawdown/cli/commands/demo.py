@@ -13,16 +13,27 @@ byte-identical every time and the importer's sha256 check stores it only once.
 
 from __future__ import annotations
 
+import argparse
 import json
 import sys
 from typing import Any
 
-import pandas as pd
+from drawdown.dashboard import labels
+from drawdown.cli.context import Context, UsageError
 
-from analysis.report import build_report
-from collector.csv_file import import_file
-from dashboard import labels
-from dashboard.context import Context, UsageError
+
+NAME = "demo"
+HELP = "simulate the bundled scenario, import, analyse, serve the dashboard"
+
+
+def add_arguments(s: argparse.ArgumentParser) -> None:
+    """This command's options."""
+    s.add_argument("--no-serve", action="store_true", help="print the summary and stop")
+    s.add_argument("--scenario", default=None, help="bundled scenario name (default: the first)")
+    s.add_argument("--days", type=int, default=None, help="days to simulate (default: the scenario's)")
+    s.add_argument("--host", default="127.0.0.1")
+    s.add_argument("--port", type=int, default=8050)
+    s.add_argument("--json", action="store_true", help="print the summary as one JSON object")
 
 
 def _fmt(x: Any, spec: str = ".0f", unit: str = "") -> str:
@@ -95,7 +106,11 @@ def _summary_from_report(report: dict) -> list[str]:
 
 
 def run(args: Any, ctx: Context) -> int:
-    from collector.simulated import (DEFAULT_SCENARIO, UnknownScenarioError, available_scenarios,
+    import pandas as pd
+
+    from drawdown.analysis.report import build_report
+    from drawdown.collector.csv_file import import_file
+    from drawdown.collector.simulated import (DEFAULT_SCENARIO, UnknownScenarioError, available_scenarios,
                                      load_scenario, simulate, write_log)
 
     name = args.scenario or (DEFAULT_SCENARIO if DEFAULT_SCENARIO in available_scenarios()
@@ -172,6 +187,6 @@ def run(args: Any, ctx: Context) -> int:
 
     if args.no_serve:
         return 0
-    from dashboard.app import serve  # the web stack loads only when serving
+    from drawdown.dashboard.app import serve  # the web stack loads only when serving
 
     return int(serve(ctx, args.host, args.port) or 0)

@@ -7,6 +7,7 @@ stored; the other files are still imported and say so).
 
 from __future__ import annotations
 
+import argparse
 import errno
 import sqlite3
 import sys
@@ -15,11 +16,27 @@ from pathlib import Path
 from typing import Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
-from collector.columns import ColumnSpec, normalise_channel, parse_map_option
-from collector.csv_file import ImportResult, NothingStored, UnusableInput, import_file
-from collector.store import _is_full, _is_read_only, describe_store_error
-from dashboard.context import Context, UsageError, print_json, warn
-from dashboard.labels import local_time, plural
+from drawdown.collector.columns import ColumnSpec, normalise_channel, parse_map_option
+from drawdown.collector.csv_file import ImportResult, NothingStored, UnusableInput, import_file
+from drawdown.collector.store import _is_full, _is_read_only, describe_store_error
+from drawdown.cli.context import Context, UsageError, print_json, warn
+from drawdown.dashboard.labels import local_time, plural
+
+NAME = "import"
+HELP = "ingest log files; prints a data-quality summary"
+
+
+def add_arguments(s: argparse.ArgumentParser) -> None:
+    """This command's options."""
+    s.add_argument("files", nargs="+", metavar="FILE")
+    s.add_argument("--tz", metavar="ZONE", help="timezone of local timestamps (default: the system's)")
+    s.add_argument("--channel", metavar="NAME", help="channel name for a file whose columns carry none")
+    s.add_argument("--map", action="append", default=[], metavar="COLUMN=QUANTITY",
+                   help="force a column's meaning, e.g. 'Amps=current_A' or 'I_sol=solar.current_mA'")
+    s.add_argument("--invert", action="append", default=[], metavar="CHANNEL",
+                   help="flip the sign of a channel's current")
+    s.add_argument("--json", action="store_true")
+
 
 PROGRESS_MIN_BYTES = 16 << 20
 

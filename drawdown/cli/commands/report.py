@@ -7,6 +7,7 @@ writes a self-contained, offline HTML report (plotly.js inline).
 
 from __future__ import annotations
 
+import argparse
 import datetime as dt
 import os
 from pathlib import Path
@@ -14,8 +15,20 @@ from typing import Any
 
 import pandas as pd
 
-from dashboard.context import Context, UsageError, print_json, warn
-from dashboard.labels import chemistry, for_people, local_time, plural
+from drawdown.cli.context import Context, UsageError, print_json, warn
+from drawdown.dashboard.labels import chemistry, for_people, local_time, plural
+
+
+NAME = "report"
+HELP = "the analysis of what is stored"
+
+
+def add_arguments(s: argparse.ArgumentParser) -> None:
+    """This command's options."""
+    s.add_argument("--from", dest="date_from", metavar="DATE")
+    s.add_argument("--to", dest="date_to", metavar="DATE")
+    s.add_argument("--json", action="store_true")
+    s.add_argument("--html", metavar="FILE", help="also write a self-contained HTML report")
 
 
 def _local_bound(text: str | None, tz: str, *, end: bool, option: str) -> pd.Timestamp | None:
@@ -51,7 +64,7 @@ def html_target(text: str) -> Path:
 
 
 def _write_html_report(report: Any, path: Path, system: Any, sizing: Any = None) -> Path:
-    from dashboard.html_report import write_html
+    from drawdown.dashboard.html_report import write_html
 
     try:
         return write_html(report, path, system=system, solar=report.solar_analysis, sizing=sizing)
@@ -61,8 +74,8 @@ def _write_html_report(report: Any, path: Path, system: Any, sizing: Any = None)
 
 def _html_sizing(readings: Any, system: Any) -> Any:
     """The sizing the HTML report opens with: ``drawdown size``'s answer at its default targets, or None."""
-    from analysis.answers import DEFAULT_AUTONOMY_DAYS, DEFAULT_PERCENTILE, size_answer
-    from analysis.sizing import SizingInputError
+    from drawdown.analysis.answers import DEFAULT_AUTONOMY_DAYS, DEFAULT_PERCENTILE, size_answer
+    from drawdown.analysis.sizing import SizingInputError
 
     try:
         return size_answer(readings, system, autonomy_days=DEFAULT_AUTONOMY_DAYS, percentile=DEFAULT_PERCENTILE)
@@ -83,7 +96,7 @@ def _no_readings_message(store_path: Path, span: Any, tz: str, args: Any) -> str
 
 
 def run(args: Any, ctx: Context) -> int:
-    from analysis.report import build_report
+    from drawdown.analysis.report import build_report
 
     html_path = html_target(args.html) if args.html else None
     system = ctx.load_system()

@@ -11,7 +11,7 @@ from typing import Any
 
 from platformdirs import user_data_dir
 
-from analysis.system import System, SystemError_, decode_system_bytes, parse_system
+from drawdown.analysis.system import System, SystemError_, decode_system_bytes, parse_system
 
 
 class UsageError(Exception):
@@ -37,7 +37,7 @@ class Context:
         return cls(store_path=store, system_path=system)
 
     def open_store(self, **kw: Any):
-        from collector.store import Store, StoreError
+        from drawdown.collector.store import Store, StoreError
 
         try:
             return Store(self.store_path, **kw)

@@ -8,26 +8,52 @@ computer cannot use (e.g. no Bluetooth stack).
 
 from __future__ import annotations
 
+import argparse
 import logging
 import signal
 import sys
 import threading
 from typing import Any
 
-from dashboard.context import Context, UsageError, print_json
+from drawdown.cli.context import Context, UsageError, print_json
+
+
+NAME = "collect"
+HELP = "live collection into the store"
+
+
+def add_arguments(s: argparse.ArgumentParser) -> None:
+    """This command's options."""
+    g = s.add_mutually_exclusive_group(required=True)
+    g.add_argument("--serial", metavar="PORT")
+    g.add_argument("--ble", metavar="ADDRESS")
+    g.add_argument("--mqtt", metavar="URL")
+    s.add_argument("--baud", type=int, default=9600)
+    s.add_argument("--format", choices=["csv", "keyvalue", "jsonl", "nmea"], default=None,
+                   help="line format (default: detected from the first lines)")
+    s.add_argument("--channel", default="battery", help="channel name for readings that carry none")
+    s.add_argument("--topic", action="append", default=[], help="MQTT topic filter (default '#')")
+    s.add_argument("--columns", default=None,
+                   help="fixed column order for headerless csv lines, e.g. 'voltage_V,current_A'")
+    s.add_argument("--duration", type=float, default=None, help="stop after this many seconds")
+    s.add_argument("--line-ending", choices=["any", "lf", "crlf", "cr"], default="any",
+                   help="serial line terminator (default: any of CR, LF, CR LF)")
+    s.add_argument("--keep-full-days", type=float, default=None, metavar="N",
+                   help="keep N days at full resolution; older live readings become 1-minute summaries")
+    s.add_argument("--json", action="store_true", help="print the collection summary as one JSON object")
 
 
 def build_source(args: Any, ctx: Context, clock: Any) -> Any:
     """The source the options ask for; UsageError naming the bad option."""
-    from collector.columns import normalise_channel
-    from collector.lines import AutoParser, make_parser, parse_columns_option
+    from drawdown.collector.columns import normalise_channel
+    from drawdown.collector.lines import AutoParser, make_parser, parse_columns_option
 
     try:
         channel = normalise_channel(args.channel)
     except ValueError as exc:
         raise UsageError(f"--channel: {exc}") from None
     if args.serial:
-        from collector.serial_port import SerialSource
+        from drawdown.collector.serial_port import SerialSource
 
         columns = None
         if args.columns:
@@ -46,14 +72,14 @@ def build_source(args: Any, ctx: Context, clock: Any) -> Any:
         return SerialSource(args.serial, parser, baud=args.baud, clock=clock,
                             line_ending=_line_ending(getattr(args, "line_ending", None)))
     if args.mqtt:
-        from collector.mqtt import MqttSource
+        from drawdown.collector.mqtt import MqttSource
 
         try:
             return MqttSource(args.mqtt, topics=args.topic or ["#"], channel=channel, clock=clock)
         except ValueError as exc:
             raise UsageError(str(exc)) from None
-    from collector.ble import BleSource
-    from collector.gatt import GattError, layouts_from_system
+    from drawdown.collector.ble import BleSource
+    from drawdown.collector.gatt import GattError, layouts_from_system
 
     layouts = {}
     if ctx.has_system():
@@ -69,10 +95,10 @@ def _line_ending(name: str | None) -> bytes | None:
 
 
 def run(args: Any, ctx: Context) -> int:
-    from collector.clock import HostClock
-    from collector.collect import run_collector
-    from collector.source import SourceUnavailable
-    from collector.writer import BatchWriter
+    from drawdown.collector.clock import HostClock
+    from drawdown.collector.collect import run_collector
+    from drawdown.collector.source import SourceUnavailable
+    from drawdown.collector.writer import BatchWriter
 
     logging.basicConfig(level=logging.WARNING, stream=sys.stderr, format="drawdown collect: %(message)s")
     if args.duration is not None and args.duration <= 0:

@@ -11,12 +11,25 @@ of this computer is bad input (exit 2), named with what to do.
 
 from __future__ import annotations
 
+import argparse
 import errno
 import socket
 import sys
 from typing import Any
 
-from dashboard.context import Context, UsageError, print_json, warn
+from drawdown.cli.context import Context, UsageError, print_json, warn
+
+
+NAME = "serve"
+HELP = "the dashboard"
+
+
+def add_arguments(s: argparse.ArgumentParser) -> None:
+    """This command's options."""
+    s.add_argument("--host", default="127.0.0.1")
+    s.add_argument("--port", type=int, default=8050)
+    s.add_argument("--token", default=None, help="access token (required off loopback; generated if absent)")
+    s.add_argument("--json", action="store_true", help="print the address as one JSON object once listening")
 
 
 def check_can_listen(host: str, port: int) -> None:
@@ -50,8 +63,8 @@ def check_can_listen(host: str, port: int) -> None:
 
 
 def run(args: Any, ctx: Context) -> int:
-    from dashboard.app import serve
-    from dashboard.security import is_loopback
+    from drawdown.dashboard.app import serve
+    from drawdown.dashboard.security import is_loopback
 
     token = getattr(args, "token", None)
     if token is not None and len(token) < 16:

@@ -11,13 +11,23 @@ command exits 2, rather than the first analysis failing later.
 
 from __future__ import annotations
 
+import argparse
 import os
 import shutil
 from pathlib import Path
 from typing import Any
 
-from dashboard.context import Context, print_json
-from dashboard.labels import local_time, plural
+from drawdown.cli.context import Context, print_json
+from drawdown.dashboard.labels import local_time, plural
+
+NAME = "status"
+HELP = "what the store holds"
+
+
+def add_arguments(s: argparse.ArgumentParser) -> None:
+    """This command's options."""
+    s.add_argument("--json", action="store_true")
+
 
 #: Less free space than this on the store's disk [bytes] is "full": an import or the collector's
 #: next commit cannot be written.

@@ -10,18 +10,32 @@ saying what is missing.
 
 from __future__ import annotations
 
+import argparse
 import math
 import sys
 
-from dashboard import labels
-from dashboard.context import UsageError, print_json, warn
+from drawdown.dashboard import labels
+from drawdown.cli.context import UsageError, print_json, warn
+
+
+NAME = "size"
+HELP = "right-sizing recommendation"
+
+
+def add_arguments(s: argparse.ArgumentParser) -> None:
+    """This command's options."""
+    s.add_argument("--autonomy-days", type=float, default=None, metavar="N",
+                   help="days parked without charging before the bank reaches its reserve, the lowest "
+                        "planned state of charge (1 - max_dod) (default 3)")
+    s.add_argument("--percentile", type=float, default=90.0, help="design-day percentile (default 90)")
+    s.add_argument("--json", action="store_true")
 
 
 def run(args, ctx) -> int:
-    from analysis.answers import size_answer
-    from analysis.sizing import SizingInputError
+    from drawdown.analysis.answers import size_answer
+    from drawdown.analysis.sizing import SizingInputError
 
-    from analysis.answers import DEFAULT_AUTONOMY_DAYS
+    from drawdown.analysis.answers import DEFAULT_AUTONOMY_DAYS
 
     n = DEFAULT_AUTONOMY_DAYS if args.autonomy_days is None else args.autonomy_days
     if not math.isfinite(n) or not 0 < n <= 60:

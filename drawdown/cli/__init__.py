@@ -1,0 +1,95 @@
+"""The ``drawdown`` command line (a contract: docs/contracts.md).
+
+``drawdown [--version] [--store PATH] [--system PATH] COMMAND ...``
+
+Each command lives in ``drawdown/cli/commands/<module>.py`` with its ``NAME``, ``HELP``,
+``add_arguments(parser)`` (its options) and ``run(args, ctx) -> int``; a module imports
+its heavy parts inside ``run`` so that ``drawdown --help`` and ``collect`` start fast.
+stdout belongs to the command's result (one JSON object with ``--json``);
+progress, warnings and errors go to stderr. Exit codes: 0 success, 1 internal
+error, 2 bad input or usage.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import traceback
+
+from drawdown import __version__
+from drawdown.cli.commands import collect, demo, import_logs, report, serve, simulate, size, status, wire
+from drawdown.cli.context import Context, UsageError
+
+#: The commands in the order ``--help`` lists them.
+COMMANDS = (demo, import_logs, status, report, size, wire, collect, serve, simulate)
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="drawdown",
+        description="Battery-bank logs in; energy ledger, battery health, solar yield and sizing advice out.",
+    )
+    p.add_argument("--version", action="version", version=f"drawdown {__version__}")
+    p.add_argument("--store", metavar="PATH", help="reading store (default: a file in the user data folder)")
+    p.add_argument("--system", metavar="PATH", help="system description (default: system.toml beside the store)")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+    sub.required = True
+    for module in COMMANDS:  # each command owns its name, help line, options and run()
+        s = sub.add_parser(module.NAME, help=module.HELP)
+        module.add_arguments(s)
+        s.set_defaults(run=module.run)
+    p.set_defaults(subcommands=sub.choices)  # name -> subparser, for errors in the subcommand's own usage
+    return p
+
+
+#: Commands that write the system description at --system when it is missing.
+_WRITES_SYSTEM = {"demo", "serve"}
+
+
+def _parse(parser: argparse.ArgumentParser, argv: list[str] | None) -> argparse.Namespace:
+    """Parse; an unknown option after the command is reported with that command's usage."""
+    args, extras = parser.parse_known_args(argv)
+    if extras:
+        sub = args.subcommands.get(args.command) if getattr(args, "command", None) else None
+        (sub or parser).error(f"unrecognized arguments: {' '.join(extras)}")
+    return args
+
+
+def _missing_system(args: argparse.Namespace, ctx: Context) -> str | None:
+    """The message for an explicitly named --system file that does not exist, else None."""
+    if not getattr(args, "system", None) or ctx.system_path.is_file():
+        return None
+    if ctx.system_path.is_dir():
+        return f"--system {ctx.system_path}: is a folder; give the system.toml file itself"
+    if args.command in _WRITES_SYSTEM:
+        return None  # demo writes it there; serve's System setup page can
+    return (f"--system {ctx.system_path}: no such file. Check the path, or leave --system out to use "
+            f"{ctx.store_path.parent / 'system.toml'} (beside the store)")
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = _parser()
+    args = _parse(parser, argv)
+    ctx = Context.from_args(args)
+    missing = _missing_system(args, ctx)
+    if missing:
+        print(f"drawdown {args.command}: {missing}", file=sys.stderr)
+        return 2
+    try:
+        return int(args.run(args, ctx) or 0)
+    except UsageError as exc:
+        print(f"drawdown {args.command}: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("interrupted", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        return 0
+    except Exception:  # noqa: BLE001 - the last line of defence: say it is our fault
+        traceback.print_exc()
+        print(f"drawdown {args.command}: internal error (please report it with the trace above)", file=sys.stderr)
+        return 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())
