@@ -13,7 +13,7 @@ $(VENV)/bin/activate:
 	$(PIP) install --quiet --upgrade pip
 
 $(VENV)/.installed: $(VENV)/bin/activate pyproject.toml
-	$(PIP) install --quiet -e .
+	$(PIP) install --quiet -e '.[all]'
 	touch $@
 
 $(VENV)/.installed-test: $(VENV)/.installed pyproject.toml

@@ -42,6 +42,22 @@ def _parser() -> argparse.ArgumentParser:
     return p
 
 
+#: Third-party packages of each optional part (pyproject.toml extras) -> the extra that brings them.
+EXTRA_OF: dict[str, str] = {"scipy": "analysis", "statsmodels": "analysis", "pvlib": "analysis",
+                            "tsdownsample": "analysis", "dash": "dashboard", "plotly": "dashboard",
+                            "flask": "dashboard", "bleak": "ble"}
+
+
+def missing_extra_message(command: str, exc: ModuleNotFoundError) -> str | None:
+    """What to install when ``command`` needs an optional part this install lacks, else None."""
+    top = (exc.name or "").split(".")[0]
+    extra = EXTRA_OF.get(top)
+    if extra is None:
+        return None
+    return (f"drawdown {command}: needs the {extra} part, which this install leaves out ({top} is not "
+            f"installed). Install it with: pip install 'drawdown[{extra}]'")
+
+
 #: Commands that write the system description at --system when it is missing.
 _WRITES_SYSTEM = {"demo", "serve"}
 
@@ -85,7 +101,11 @@ def main(argv: list[str] | None = None) -> int:
         return 130
     except BrokenPipeError:
         return 0
-    except Exception:  # noqa: BLE001 - the last line of defence: say it is our fault
+    except Exception as exc:  # noqa: BLE001 - the last line of defence: say it is our fault
+        message = missing_extra_message(args.command, exc) if isinstance(exc, ModuleNotFoundError) else None
+        if message is not None:  # an optional part this install leaves out: say which extra to add
+            print(message, file=sys.stderr)
+            return 2
         traceback.print_exc()
         print(f"drawdown {args.command}: internal error (please report it with the trace above)", file=sys.stderr)
         return 1
