@@ -6,7 +6,7 @@ PY     := $(VENV)/bin/python
 PIP    := $(VENV)/bin/pip
 export PYBAMM_DISABLE_TELEMETRY := true
 
-.PHONY: install install-test demo test test-fast bench clean
+.PHONY: install install-test demo test test-fast lint bench clean
 
 $(VENV)/bin/activate:
 	$(PYTHON) -m venv $(VENV)
@@ -27,8 +27,18 @@ install-test: $(VENV)/.installed-test
 demo: $(VENV)/.installed             ## simulate the bundled scenario, analyse, serve the dashboard
 	$(VENV)/bin/drawdown --store demo-data/readings.sqlite demo
 
-test: $(VENV)/.installed-test        ## every test (browser and broker tests need chromium and mosquitto)
+test: $(VENV)/.installed-test lint   ## lint, types, then every test (browser and broker tests need chromium and mosquitto)
 	$(PY) -m pytest -q -p no:cacheprovider
+
+# mypy reads files by path, so it sees the folders under the names they install as
+# (drawdown.analysis, ...) through a tree of links in build/typecheck/.
+lint: $(VENV)/.installed-test        ## ruff and mypy
+	$(PY) -m ruff check --quiet .
+	rm -rf build/typecheck && mkdir -p build/typecheck/drawdown
+	for f in __init__.py __main__.py py.typed cli; do ln -s "$(CURDIR)/drawdown/$$f" build/typecheck/drawdown/$$f; done
+	for d in analysis collector dashboard; do ln -s "$(CURDIR)/$$d" build/typecheck/drawdown/$$d; done
+	cd build/typecheck && $(abspath $(PY)) -m mypy --config-file "$(CURDIR)/pyproject.toml" \
+	    --cache-dir "$(CURDIR)/build/mypy-cache" --no-error-summary -p drawdown
 
 test-fast: $(VENV)/.installed-test   ## skip the slow, browser and broker tests
 	$(PY) -m pytest -q -p no:cacheprovider -m "not slow and not browser and not mqtt"

@@ -357,7 +357,8 @@ def _assemble(channels, system: System, rows_rejected: int, soc: SocResult | Non
                                             for r in ir.per_day.itertuples(index=False)] if len(ir.per_day) else []}
     battery["charge_efficiency"] = _v(b.effective_charge_efficiency)
     if eta is not None and eta.cycles and eta.eta is not None:
-        battery["charge_efficiency_source"] = (f"measured over {eta.cycles} full-to-full cycle{'' if eta.cycles == 1 else 's'}, weighed "
+        cycles = f"{eta.cycles} full-to-full cycle{'' if eta.cycles == 1 else 's'}"
+        battery["charge_efficiency_source"] = (f"measured over {cycles}, weighed "
                                                "against the chemistry default")
         battery["charge_efficiency_sigma"] = _v(eta.sigma)
     elif b.charge_efficiency is not None and (eta is None or not eta.cycles):

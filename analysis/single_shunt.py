@@ -448,12 +448,11 @@ def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: n
     cols["consumed_Wh"] += np.bincount(d_bin, weights=load_a * hrs * np.nan_to_num(v_bin, nan=0.0),
                                        minlength=n_days)[:n_days]
     # Prediction interval per day from the rebuild's own errors. On the nights the load is
-    # seen whole, so both ways of filling hidden hours (base + paired steps, and the
-    # hour-of-day median) can be checked against it hour by hour. Each hidden hour carries
-    # the larger of the two RMS errors, independent from hour to hour.
+    # seen whole, so the rebuild from base + paired steps can be checked against it hour by
+    # hour: each hour rebuilt that way carries that RMS error, independent from hour to hour.
+    # Hours filled from other days take the donor-day interval below.
     finite = np.isfinite(net)
     sd_read = _hourly_error_sd(base_level + events - load_obs, hrs, t_mid, train)
-    sd_prof = _hourly_error_sd(np.where(np.isfinite(profile), profile, pred) - load_obs, hrs, t_mid, train)
     read_h = np.bincount(d_bin, weights=np.where(readable & ~observed & finite, hrs, 0.0), minlength=n_days)[:n_days]
     fall_h = np.bincount(d_bin, weights=np.where(fall_use & finite, hrs, 0.0), minlength=n_days)[:n_days]
     # Hours rebuilt from steps carry the steps' night error; hours filled from the
@@ -651,7 +650,6 @@ def _day_effects(mean_W: np.ndarray, seen: np.ndarray) -> _DayEffects:
     mean of its residuals; the within-day variance is what is left. An hour seen on
     no day takes the largest between-hour spread as its own uncertainty.
     """
-    n_days = mean_W.shape[0]
     mu = _column_median(np.where(seen, mean_W, np.nan))
     r = np.where(seen, mean_W - mu, np.nan)
     n_d = seen.sum(axis=1)

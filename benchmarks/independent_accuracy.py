@@ -183,7 +183,8 @@ def summarise(scores: list[Score]) -> list[str]:
         seen = hid < 1.0
         off = np.abs(e) > SINGLE_TOL
         lines.append(f"single-shunt 95 % interval holds the truth: {cov.sum()}/{len(cov)} days "
-                     f"({100 * cov.mean() if len(cov) else 0:.0f} %), median half-width {100 * np.median(hw) if len(hw) else 0:.0f} %")
+                     f"({100 * cov.mean() if len(cov) else 0:.0f} %), "
+                     f"median half-width {100 * np.median(hw) if len(hw) else 0:.0f} %")
         lines.append(f"single-shunt within +-8 %: {(~off).sum()}/{len(e)} days; days with < 1 h not seen: "
                      f"{(~off & seen).sum()}/{seen.sum()} within 8 %; days > 8 % off without >= 1 h not seen: "
                      f"{(off & seen).sum()}")

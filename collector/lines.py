@@ -361,7 +361,7 @@ def _split_value_unit(raw: str, spec: ColumnSpec | None, key: str) -> tuple[Colu
         elif spec.quantity != hit[0]:
             raise LineError(f"{key}={raw}: the unit contradicts the key")
         else:
-            spec = ColumnSpec(spec.channel, spec.quantity, hit[1])  # type: ignore[arg-type]
+            spec = ColumnSpec(spec.channel, spec.quantity, hit[1])
     if spec is None:
         raise LineError(f"key {key!r} not understood")
     return spec, x

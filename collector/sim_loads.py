@@ -52,7 +52,8 @@ def _wrap(h: float) -> float:
 
 
 def build_load_events(p: Loads, *, day_start_s: np.ndarray, step_t_s: np.ndarray,
-                      ambient_C: np.ndarray, seed: int, days: int | None = None) -> tuple[EventSchedule, np.ndarray, dict[str, float]]:
+                      ambient_C: np.ndarray, seed: int, days: int | None = None
+                      ) -> tuple[EventSchedule, np.ndarray, dict[str, float]]:
     """Draw every load's events for the whole simulation.
 
     Parameters

@@ -286,8 +286,6 @@ def simulate(scenario: str | Scenario, *, days: int | None = None, seed: int | N
     n = int(day_start_s[-1] // dt)
     step_t = np.arange(n) * dt
     mid_times = t0 + pd.to_timedelta(step_t + dt / 2, unit="s")
-    local = mid_times.tz_convert(ZoneInfo(tz))
-    local_hour = (local.hour + local.minute / 60.0 + local.second / 3600.0).to_numpy(dtype=float)
     day_idx = np.searchsorted(day_start_s, step_t, side="right") - 1
 
     # Weather is drawn one day further than simulated, so that the last evening
@@ -582,7 +580,6 @@ def write_log(sim: Simulation, out: str | Path, *, interval_s: float | None = No
     columns = SINGLE_SHUNT_COLUMNS if single_shunt else MULTI_CHANNEL_COLUMNS
     unit = "s" if float(interval_s).is_integer() else "ms"
     t0_us = int((sim.t0 - pd.Timestamp(0, tz="UTC")) // pd.Timedelta(microseconds=1))
-    total_s = float(sim.day_start_s[-1])
     schema = pa.schema([(c, pa.string() if c == "time" else pa.float64()) for c in columns])
     # Day chunks: local day d covers rows k0..k1 (the last one ends at the last midnight).
     bounds = [int(math.ceil(s / interval_s - 1e-9)) for s in sim.day_start_s]

@@ -10,8 +10,6 @@ from __future__ import annotations
 import re
 from typing import Any
 
-import pandas as pd
-
 #: Chemistry names as the trade writes them.
 CHEMISTRY: dict[str, str] = {"lifepo4": "LiFePO4", "agm": "AGM", "gel": "gel", "flooded": "flooded lead-acid"}
 
@@ -63,6 +61,8 @@ def local_time(t: Any, tz: str, *, seconds: bool = False) -> str:
     """A UTC time (ISO text or Timestamp) in the site's zone with its abbreviation: '2026-10-11 23:59 CEST'."""
     if t is None or (isinstance(t, float) and t != t):
         return "-"
+    import pandas as pd  # here, not at the top: the command line imports this module to build --help
+
     try:
         ts = pd.Timestamp(t)
     except (TypeError, ValueError):

@@ -7,11 +7,12 @@ import os
 import sys
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from platformdirs import user_data_dir
 
-from drawdown.analysis.system import System, SystemError_, decode_system_bytes, parse_system
+if TYPE_CHECKING:  # pydantic loads with the first command that reads system.toml, not with --help
+    from drawdown.analysis.system import System
 
 
 class UsageError(Exception):
@@ -49,6 +50,8 @@ class Context:
 
     def load_system(self) -> System:
         """Read and validate system.toml; UsageError naming the file and key otherwise."""
+        from drawdown.analysis.system import SystemError_, decode_system_bytes, parse_system
+
         try:
             raw = self.system_path.read_bytes()
         except FileNotFoundError:

@@ -175,7 +175,7 @@ def run(args: Any, ctx: Context) -> int:
         }
         print(json.dumps(out_json, indent=2), flush=True)
     else:
-        if report is not None:
+        if report_json is not None:
             print("analysis of the stored log:")
             lines = _summary_from_report(report_json)
         else:

@@ -11,12 +11,13 @@ import argparse
 import datetime as dt
 import os
 from pathlib import Path
-from typing import Any
-
-import pandas as pd
+from typing import TYPE_CHECKING, Any
 
 from drawdown.cli.context import Context, UsageError, print_json, warn
 from drawdown.dashboard.labels import chemistry, for_people, local_time, plural
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 
 NAME = "report"
@@ -40,6 +41,8 @@ def _local_bound(text: str | None, tz: str, *, end: bool, option: str) -> pd.Tim
         raise UsageError(f"{option} {text!r}: expected a date as YYYY-MM-DD (local, site timezone {tz})") from None
     if end:
         day = day + dt.timedelta(days=1)  # --to is inclusive: up to the next local midnight
+    import pandas as pd
+
     return pd.Timestamp(day).tz_localize(tz, nonexistent="shift_forward", ambiguous=True).tz_convert("UTC")
 
 

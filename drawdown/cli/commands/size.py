@@ -15,7 +15,7 @@ import math
 import sys
 
 from drawdown.dashboard import labels
-from drawdown.cli.context import UsageError, print_json, warn
+from drawdown.cli.context import UsageError, print_json
 
 
 NAME = "size"

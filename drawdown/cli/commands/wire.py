@@ -15,9 +15,13 @@ from __future__ import annotations
 
 import argparse
 import math
+from typing import TYPE_CHECKING
 
 from drawdown.dashboard import labels
 from drawdown.cli.context import UsageError, print_json
+
+if TYPE_CHECKING:
+    from drawdown.analysis.wiring import CircuitKind
 
 NAME = "wire"
 HELP = "size one cable run: cross-section, voltage drop, fuse"
@@ -69,6 +73,8 @@ def run(args, ctx) -> int:
     if args.ambient >= args.insulation:
         raise UsageError(f"--ambient {args.ambient:g}: must be below the insulation rating "
                          f"(--insulation {args.insulation}); choose a higher-rated insulation")
+    circuit: CircuitKind
+    drop: float | None
     if args.max_drop == 3.0:
         circuit, drop = "critical", None
     elif args.max_drop == 10.0:
