@@ -1,6 +1,6 @@
 """Usable capacity, state of health, Peukert exponent and internal resistance from field data.
 
-Capacity from partial cycles (FIELDREF §3, anchor method): between two anchors
+Capacity from partial cycles (docs/capacity.md#anchor-pairs, anchor method): between two anchors
 of known SoC (analysis.charge), ``Q = (Peukert/efficiency-corrected Ah moved) /
 delta SoC``. All accepted anchor pairs (``|delta SoC| >= 0.4``, common
 practice) are combined with the weighted least-squares form of Plett (2011),

@@ -1,6 +1,6 @@
 """Coulomb counting and state of charge, re-run over the whole history.
 
-The SoC update (FIELDREF §2) is::
+The SoC update (docs/soc.md#the-update) is::
 
     SoC_k = SoC_{k-1} + dt_h * (eta_c * I+ - I_eff-) / C_ref
 
@@ -51,7 +51,7 @@ FULL_SIGMA: float = 0.03
 #: Discharge (fraction of rated capacity) that re-arms the full-charge detector.
 REARM_FRACTION: float = 0.02
 #: LiFePO4 quasi-OCV anchors only below this SoC [%]: the lower knee, where the OCV
-#: slope is steep enough (FIELDREF §2: 20 % = 13.0 V, 10 % = 12.8 V per 4S, common practice).
+#: slope is steep enough (docs/ocv.md: 20 % = 13.0 V, 10 % = 12.8 V per 4S, common practice).
 LFP_QUASI_MAX_SOC_PCT: float = 20.0
 #: One-sigma uncertainty of a quasi-OCV (low-current night) anchor [fraction].
 QUASI_SIGMA: float = 0.06

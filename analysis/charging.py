@@ -11,9 +11,9 @@ alternator lowering its voltage), and on/off cycling inside one drive (a
 voltage-triggered charger on a smart alternator). Totals: Ah per hour of
 driving (alternator) or per hour on hook-up (shore), plateau against
 ``[[charger]] max_current_A``, and the alternator-side current the DC-DC
-charger draws (FIELDREF §7) against ``alternator_rating_A``.
+charger draws (docs/chargers.md#dc-dc-charger-input-current) against ``alternator_rating_A``.
 
-Lithium charging below 0 degC is flagged for every source (safety, DESIGN.md).
+Lithium charging below 0 degC is flagged for every source (safety, docs/chargers.md#safety).
 UTC inside; session times are given in the site's timezone.
 """
 
@@ -54,14 +54,14 @@ SAG_MIN_MINUTES: int = 10
 #: Plateau below this fraction of the rating is a finding.
 UNDER_RATING: float = 0.8
 #: DC-DC conversion efficiency assumed when estimating alternator-side current
-#: (FIELDREF §7 check values use 0.9).
+#: (docs/chargers.md check values use 0.9).
 DC_DC_EFFICIENCY: float = 0.9
 #: Alternator-side voltage assumed when the alternator channel logs none, per
-#: 12 V block [V] (FIELDREF §7 example: 13.2 V).
+#: 12 V block [V] (docs/chargers.md example: 13.2 V).
 DEFAULT_ALTERNATOR_V_PER_12V: float = 13.2
 #: Continuous draw above this fraction of the alternator's (cold) rating is a
 #: finding: hot output is ~60-70 % of rating, keep continuous draw <= 50-70 %
-#: (common practice, FIELDREF §7).
+#: (common practice, docs/chargers.md#alternators).
 ALTERNATOR_CONTINUOUS_MAX: float = 0.5
 
 
@@ -83,7 +83,7 @@ def dc_dc_input_current_A(output_A: float | np.ndarray, output_V: float | np.nda
 
     Notes
     -----
-    Power balance, FIELDREF §7: I_in = I_out·V_out / (V_in·η).
+    Power balance, docs/chargers.md: I_in = I_out·V_out / (V_in·η).
     """
     if not 0 < efficiency <= 1:
         raise ValueError(f"efficiency must be in (0, 1], got {efficiency}")
@@ -335,7 +335,7 @@ def analyse_charging(readings: pd.DataFrame, system: System) -> ChargingAnalysis
             findings.append(
                 f"alternator charging stopped and restarted {cycles} times within drives while the bank was "
                 f"not full: typical of a voltage-triggered charger on a smart (variable-voltage) alternator; "
-                f"use the ignition or D+ trigger (FIELDREF §7)")
+                f"use the ignition or D+ trigger (docs/chargers.md#alternators)")
         if source == "alternator" and plateau_all is not None:
             alt_V_bins, alt_Vn = binner.mean("alternator", "voltage_V")
             charging_pos = pos[~full_p]
@@ -347,10 +347,10 @@ def analyse_charging(readings: pd.DataFrame, system: System) -> ChargingAnalysis
             summary["alternator_side_A"] = _r(i_in, 1)
             summary["alternator_side_from"] = (
                 "alternator channel voltage, efficiency 0.9" if has_in else
-                f"assumed {in_V:.1f} V input, efficiency {DC_DC_EFFICIENCY} (FIELDREF §7)")
+                f"assumed {in_V:.1f} V input, efficiency {DC_DC_EFFICIENCY} (docs/chargers.md)")
             if has_in and in_V < 12.8 * blocks:
                 findings.append(f"the alternator side sits at {in_V:.1f} V while charging: a smart alternator "
-                                f"(12.2-12.8 V per 12 V is typical, FIELDREF §7)")
+                                f"(12.2-12.8 V per 12 V is typical, docs/chargers.md#alternators)")
             alt_ratings = [ch.alternator_rating_A for ch in system.charger
                            if ch.source == "alternator" and ch.alternator_rating_A]
             if alt_ratings:
@@ -363,7 +363,7 @@ def analyse_charging(readings: pd.DataFrame, system: System) -> ChargingAnalysis
                         f"50-70 % (common practice)")
         sources[source] = summary
 
-    # Lithium charging below 0 degC (safety; DESIGN.md), from every charge source
+    # Lithium charging below 0 degC (safety; docs/chargers.md#safety), from every charge source
     # including solar and the net battery current.
     cold = None
     if bat.chemistry == "lifepo4" and temp_n.sum() > 0:

@@ -4,7 +4,7 @@ Sandia SAND87-7023, *Stand-Alone Photovoltaic Systems: Handbook of Recommended
 Design Practices* (1988, updated 1995), with the IEEE 1013 (battery) and
 IEEE 1562 (array and battery) approach: design month, days of autonomy,
 maximum depth of discharge and derates. Formulas as summarised in
-../shared/FIELDREF.md §4 (worksheet steps (1)-(2) verified there; battery and
+docs/solar.md#stand-alone-sizing (worksheet steps (1)-(2) verified there; battery and
 module steps from memory).
 
 * Corrected load = load / (wire efficiency 0.98 * battery efficiency 0.90) [Ah/day].
@@ -73,7 +73,7 @@ def array_energy_W(load_Wh_per_day: float, peak_sun_hours: float, *, oversize: f
                                          * controller_efficiency * module_derate)
 
 
-#: Round-trip (Ah) battery efficiency used by the worksheet by chemistry (FIELDREF §4 example).
+#: Round-trip (Ah) battery efficiency used by the worksheet by chemistry (docs/solar.md#worked-example).
 WORKSHEET_BATTERY_EFFICIENCY: dict[str, float] = {"lifepo4": 0.99, "agm": 0.90, "gel": 0.90, "flooded": 0.90}
 
 

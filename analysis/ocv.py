@@ -3,7 +3,7 @@
 A rested battery's terminal voltage tells its state of charge: well for
 lead-acid (about 0.8 V from empty to full per 12 V block), poorly for LiFePO4,
 whose plateau between ~80 % and ~40 % spans only ~0.23 V per 4-cell pack and
-shows 5-25 mV per cell of hysteresis (FIELDREF §2). So lead-acid OCV anchors
+shows 5-25 mV per cell of hysteresis (docs/ocv.md). So lead-acid OCV anchors
 are used across the range, LiFePO4 anchors only near its knees.
 
 Tables are per 12 V block (12 V lead-acid; 4S LiFePO4 = 12.8 V nominal) at
@@ -11,11 +11,11 @@ about 25 degC; a 24 V or 48 V bank is scaled by its number of blocks.
 
 Sources
 -------
-Lead-acid (flooded, AGM/gel): common practice tables as given in FIELDREF §2
+Lead-acid (flooded, AGM/gel): common practice tables as given in docs/ocv.md
 (from memory of trade tables; flooded also agrees with Linden's rule
 V_cell ~ SG + 0.84 within ~0.03 V).
-LiFePO4 4S: common-practice typical table, FIELDREF §2 (from memory). The same
-section lists a PyBaMM Prada2013 model table that differs by ~0.1 V, which is
+LiFePO4 4S: common-practice typical table, docs/ocv.md (from memory). The same
+page lists a PyBaMM Prada2013 model table that differs by ~0.1 V, which is
 ~20 % SoC on the plateau; hence the knee-only use.
 """
 

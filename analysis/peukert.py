@@ -1,6 +1,6 @@
 """Peukert's law: how a lead-acid (and, weakly, a lithium) bank loses capacity at high current.
 
-Rated form (Peukert 1897; FIELDREF §1), for a bank rated ``C_H`` ampere-hours over
+Rated form (Peukert 1897; docs/peukert.md), for a bank rated ``C_H`` ampere-hours over
 ``H`` hours, i.e. at the rated current ``I_H = C_H / H``::
 
     t = H * (C_H / (I * H)) ** k          runtime at a constant current I [h]
@@ -93,7 +93,7 @@ def effective_current(I_A: ArrayLike, I_H_A: float, k: float, *, clamp: bool = T
 def fit_exponent(currents_A: ArrayLike, runtimes_h: ArrayLike) -> tuple[float, float]:
     """Fit Peukert's exponent from discharges at different constant currents.
 
-    Ordinary least squares of ``ln t = ln C_p - k ln I`` (FIELDREF §1); with
+    Ordinary least squares of ``ln t = ln C_p - k ln I`` (docs/peukert.md#fitting-the-exponent); with
     two points this is exactly ``k = ln(t1/t2) / ln(I2/I1)``.
 
     Parameters

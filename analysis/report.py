@@ -1,4 +1,4 @@
-"""The analysis of a stored history, as the report object (DESIGN.md report JSON: a contract).
+"""The analysis of a stored history, as the report object (docs/contracts.md#report-json: a contract).
 
 :func:`build_report` runs the whole chain on a canonical long frame:
 
@@ -250,7 +250,7 @@ def build_report(readings: pd.DataFrame, system: System, *, rows_rejected: int =
 def _with_charging(report: Report, readings: pd.DataFrame, system: System) -> Report:
     """Alternator/DC-DC and shore diagnostics, and the cautions a person must see.
 
-    Lithium charged below 0 degC is a safety finding (DESIGN.md): it goes to the
+    Lithium charged below 0 degC is a safety finding (docs/chargers.md#safety): it goes to the
     report's top-level ``cautions`` as well as to ``charging.findings``.
     """
     analysis = analyse_charging(readings, system)

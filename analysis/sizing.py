@@ -78,10 +78,10 @@ DEFAULT_DESIGN_TEMPERATURE_C: float = 10.0
 CHARGE_ACCEPTANCE_C: dict[str, float] = {"lifepo4": 0.5, "agm": 0.25, "gel": 0.2, "flooded": 0.2}
 #: Continuous discharge a bank is usually allowed, as a C-rate (LFP BMS ~1C; common practice).
 MAX_DISCHARGE_C: dict[str, float] = {"lifepo4": 1.0, "agm": 0.5, "gel": 0.3, "flooded": 0.3}
-#: Inverter efficiency at nominal voltage and at the low-voltage cut-off (FIELDREF §7 example).
+#: Inverter efficiency at nominal voltage and at the low-voltage cut-off (docs/chargers.md#check-values example).
 INVERTER_EFFICIENCY: float = 0.90
 INVERTER_EFFICIENCY_AT_CUTOFF: float = 0.88
-#: Low-voltage cut-off per 12 V block [V] (FIELDREF §7 example).
+#: Low-voltage cut-off per 12 V block [V] (docs/chargers.md#check-values example).
 LOW_VOLTAGE_CUTOFF_PER_12V: float = 10.5
 
 
@@ -89,16 +89,16 @@ def inverter_dc_current_A(ac_power_W: float, voltage_V: float, efficiency: float
     """DC input current of an inverter [A]: I_dc = P_ac / (V · η).
 
     Size the cable and fuse at the low-voltage cut-off, where the current is highest
-    (FIELDREF §7).
+    (docs/chargers.md#inverter-input-current).
     """
     if voltage_V <= 0 or not 0 < efficiency <= 1:
         raise ValueError(f"need voltage_V > 0 and 0 < efficiency <= 1, got {voltage_V} V and {efficiency}")
     return ac_power_W / (voltage_V * efficiency)
-#: Inverter idle draw as a fraction of its rating (FIELDREF §7: 0.5-1.5 %, common practice).
+#: Inverter idle draw as a fraction of its rating (docs/chargers.md: 0.5-1.5 %, common practice).
 INVERTER_IDLE_FRACTION: float = 0.01
 #: Continuous-rating margin over the AC loads that run together (common practice).
 INVERTER_MARGIN: float = 1.25
-#: DC-DC charger efficiency and voltages (FIELDREF §7; smart alternators sag to 12.2-12.8 V).
+#: DC-DC charger efficiency and voltages (docs/chargers.md; smart alternators sag to 12.2-12.8 V).
 DC_DC_EFFICIENCY: float = 0.90
 DC_DC_INPUT_V: float = 12.5
 DC_DC_OUTPUT_PER_12V: float = 14.4
@@ -337,7 +337,7 @@ def temperature_capacity_factor(chemistry: str, design_temperature_C: float) -> 
 
     Lead-acid: IEC 60896-11 ``1 + lambda (T - 25)``, lambda = 0.006 /degC for
     discharges longer than 3 h (from memory). LiFePO4: 1 above 0 degC (small
-    effect; FIELDREF §2); below 0 degC the same slope is used as a stated,
+    effect; docs/soc.md#temperature); below 0 degC the same slope is used as a stated,
     rough assumption.
     """
     if chemistry == "lifepo4":
@@ -349,7 +349,7 @@ def rate_capacity_factor(capacity_Ah: float, rated_hours: float, current_A: floa
     """Peukert capacity at a discharge current relative to rated, ``(I_H/I)^(k-1)``, clamped <= 1 [-].
 
     Below the rated current the formula credits more than the rated capacity;
-    real capacity saturates (FIELDREF §1), so no credit is taken.
+    real capacity saturates (docs/peukert.md#corrected-current), so no credit is taken.
     """
     i_h = capacity_Ah / rated_hours
     if current_A <= i_h:
@@ -361,7 +361,7 @@ def rate_capacity_factor(capacity_Ah: float, rated_hours: float, current_A: floa
 
 @dataclass(frozen=True)
 class SizingResult:
-    """Everything :func:`recommend` found; :meth:`to_json` gives the DESIGN.md ``size`` object."""
+    """Everything :func:`recommend` found; :meth:`to_json` gives the ``size`` object of docs/contracts.md#size."""
 
     battery: dict
     solar: dict

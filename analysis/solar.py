@@ -80,7 +80,7 @@ PLAUSIBLE_MIN_DERATE: float = 0.45
 DEFAULT_CLEAR_RATIO: float = 0.8
 #: Best clear hours below this fraction of the temperature-corrected rating
 #: point to more than the usual losses (PVWatts' default losses are 14 %,
-#: FIELDREF §5; with a 0.96 controller the usual ratio is ~0.8-0.85).
+#: docs/solar.md; with a 0.96 controller the usual ratio is ~0.8-0.85).
 SHORTFALL_RATIO: float = 0.7
 #: Morning/afternoon difference worth a finding [fraction].
 ASYMMETRY_FINDING: float = 0.15
@@ -126,7 +126,7 @@ class SolarAnalysis:
     hourly_profile: list[dict[str, Any]] = field(default_factory=list)
 
     def to_json(self) -> dict[str, Any]:
-        """The report's ``solar`` object (DESIGN.md contract keys plus more).
+        """The report's ``solar`` object (docs/contracts.md#report contract keys plus more).
 
         Keys: ``performance_ratio`` (+ ``performance_ratio_why`` when null),
         ``performance_ratio_spread`` (n_days, min, p25, p75, max, std, method),
@@ -148,7 +148,7 @@ class SolarAnalysis:
             out["performance_ratio_why"] = self.performance_ratio_why
         out["performance_ratio_spread"] = self.performance_ratio_spread
         out["derate_vs_dc"] = _r(self.derate_vs_dc, 3)
-        # Null never stands without its reason (DESIGN.md): these follow the ratio's.
+        # Null never stands without its reason (docs/contracts.md#report-json): these follow the ratio's.
         for key in ("performance_ratio_spread", "derate_vs_dc"):
             if out[key] is None:
                 out[f"{key}_why"] = self.performance_ratio_why or "no clear, unsaturated day to measure it on"

@@ -13,7 +13,7 @@ The chain, per array (pvlib function in brackets):
    sky, ground albedo 0.25);
 4. cell temperature (``temperature.sapm_cell`` with the
    ``insulated_back_glass_polymer`` parameters -- the closest of pvlib's
-   mounting classes to a panel flush on a van roof, FIELDREF §5 -- air
+   mounting classes to a panel flush on a van roof, docs/solar.md -- air
    temperature from the log where present, else :data:`DEFAULT_TEMP_AIR_C`,
    wind :data:`DEFAULT_WIND_SPEED_MS`);
 5. DC power (``pvsystem.pvwatts_dc``, PVWatts, Dobos 2014) with the array's
@@ -36,29 +36,29 @@ from pvlib.location import Location
 
 from drawdown.analysis.system import SolarArray, System
 
-#: Air temperature used when the log has none [degC] (FIELDREF §5's daily-energy
+#: Air temperature used when the log has none [degC] (the docs/solar.md daily-energy
 #: check also uses 20 degC).
 DEFAULT_TEMP_AIR_C: float = 20.0
 #: Wind speed for the cell-temperature model [m/s]; a parked vehicle sees
 #: little, and pvlib's own temperature-model examples use 1 m/s.
 DEFAULT_WIND_SPEED_MS: float = 1.0
-#: Conversion efficiency of an MPPT controller (FIELDREF §5 sketch: eta 0.96).
+#: Conversion efficiency of an MPPT controller (docs/solar.md#mppt-and-pwm sketch: eta 0.96).
 MPPT_EFFICIENCY: float = 0.96
 #: Module voltage at maximum power per 12 V block for a 36-cell module [V]
-#: (FIELDREF §5 sketch: Vmp 18.0 V).
+#: (docs/solar.md#mppt-and-pwm sketch: Vmp 18.0 V).
 VMP_PER_12V_BLOCK_V: float = 18.0
-#: Temperature coefficient of Vmp [1/degC] (FIELDREF §5 sketch: -0.45 %/degC).
+#: Temperature coefficient of Vmp [1/degC] (docs/solar.md#mppt-and-pwm sketch: -0.45 %/degC).
 VMP_TEMP_COEFF_PER_C: float = -0.0045
 #: Module current at battery voltage (on the flat part of the I-V curve) over
-#: Imp. FIELDREF §5 sketch: 73.7 W at 13.0 V from a 5.56 A-Imp module, i.e.
+#: Imp. docs/solar.md#mppt-and-pwm sketch: 73.7 W at 13.0 V from a 5.56 A-Imp module, i.e.
 #: 5.67 A = 1.02 x Imp.
 PWM_CURRENT_OVER_IMP: float = 1.02
 #: Open-circuit over maximum-power voltage of a c-Si module (36-cell: 22 V / 18 V).
 VOC_OVER_VMP: float = 1.22
 #: Battery voltage assumed for a PWM controller when none is logged, per
-#: 12 V block [V] (FIELDREF §5 sketch uses 13.0 V).
+#: 12 V block [V] (docs/solar.md#mppt-and-pwm sketch uses 13.0 V).
 DEFAULT_PWM_BATTERY_V_PER_12V: float = 13.0
-#: sapm_cell parameters used (FIELDREF §5).
+#: sapm_cell parameters used (docs/solar.md#solar-yield-with-pvlib).
 TEMPERATURE_MOUNT: str = "insulated_back_glass_polymer"
 
 
@@ -73,7 +73,7 @@ def module_vmp_V(array: SolarArray, system: System) -> float:
 
     The array's ``module_vmp_V`` when given, else a 36-cell module per 12 V
     block of the bank (18 V on 12 V, 36 V on 24 V), which is what a PWM
-    controller needs to work at all (FIELDREF §5).
+    controller needs to work at all (docs/solar.md#mppt-and-pwm).
     """
     if array.module_vmp_V is not None:
         return float(array.module_vmp_V)
@@ -103,7 +103,7 @@ def pwm_fraction(battery_voltage_V: np.ndarray | float, cell_temperature_C: np.n
 
     Notes
     -----
-    FIELDREF §5 physics sketch: a PWM controller connects the module straight
+    docs/solar.md#mppt-and-pwm physics sketch: a PWM controller connects the module straight
     to the battery, so P = I(V_b)·V_b. Below Vmp the module is a near-constant
     current source, I(V_b) ≈ 1.02·Imp(T), so P_pwm/P_mp = 1.02·V_b/Vmp(T),
     with Vmp(T) = Vmp_ref·(1 + β(T − 25)). Above Vmp (a hot module on a bank
@@ -162,7 +162,7 @@ def expected_clear_sky(times: pd.DatetimeIndex, system: System, *,
     temperature_model : {"sapm", "faiman"}
         ``sapm``: ``sapm_cell`` with the insulated-back parameters (default,
         the van-roof proxy); ``faiman``: pvlib's Faiman model with its default
-        u0 = 25, u1 = 6.84 (for FIELDREF §5's daily-energy check).
+        u0 = 25, u1 = 6.84 (for the daily-energy check of docs/solar.md#check-values).
     wind_speed_ms : float
         Wind speed for the temperature model [m/s].
 

@@ -20,8 +20,8 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_valida
 Chemistry = Literal["lifepo4", "agm", "gel", "flooded"]
 
 #: Defaults by chemistry, each with its source. "From memory" marks a figure
-#: recalled from the named source rather than re-read from it; ../shared/FIELDREF.md
-#: §1-§4 holds the formulas and check values. Per-cell voltages are multiplied by
+#: recalled from the named source rather than re-read from it; docs/peukert.md,
+#: docs/soc.md and docs/solar.md hold the formulas and check values. Per-cell voltages are multiplied by
 #: 6 cells (lead-acid, per 12 V block) or 4 cells (LiFePO4, per 12.8 V block).
 #:
 #: peukert_k -- there is no standard value: the exponent is a fit to one battery's
@@ -32,16 +32,16 @@ Chemistry = Literal["lifepo4", "agm", "gel", "flooded"]
 #:   flooded 1.20-1.60, about 1.25 when new -> 1.25.
 #: charge_efficiency -- charge (Ah) efficiency, used only until the log holds two
 #:   full charges to measure it from (analysis.capacity). Lead-acid: 0.90, the
-#:   battery efficiency of the Sandia SAND87-7023 stand-alone PV worksheet (FIELDREF
-#:   §4, checked; analysis.design_method uses the same figure), for every lead-acid
+#:   battery efficiency of the Sandia SAND87-7023 stand-alone PV worksheet (docs/solar.md,
+#:   checked; analysis.design_method uses the same figure), for every lead-acid
 #:   type -- within the 0.85-0.97 usually quoted for flooded and VRLA batteries,
-#:   lower during absorption (FIELDREF §2, from memory). LiFePO4: coulombic
-#:   efficiency 0.99-0.999 (FIELDREF §2, from memory) -> 0.99, the cautious end.
+#:   lower during absorption (docs/soc.md#charge-efficiency, from memory). LiFePO4: coulombic
+#:   efficiency 0.99-0.999 (docs/soc.md#charge-efficiency, from memory) -> 0.99, the cautious end.
 #: full_voltage_per_12V -- the bank is full only while a charger holds it at a
 #:   charge voltage; the threshold must sit above a rested full battery and at or
 #:   below every usual charge setting. Lead-acid: 2.20 V/cell = 13.2 V. A rested
 #:   full cell reads 2.10-2.15 V (OCV ~ SG + 0.84, Linden's Handbook of Batteries,
-#:   from memory; FIELDREF §2 tables); float settings run 2.20-2.25 V/cell for vented
+#:   from memory; docs/ocv.md tables); float settings run 2.20-2.25 V/cell for vented
 #:   cells (IEC 60896-11 float test: 2.14-2.25 V/cell as the maker sets it, from
 #:   memory) and 2.25-2.30 V/cell for VRLA (IEEE 1188 practice, from memory); the
 #:   EN 50272-2 / IEC 62485-2 ventilation table takes 2.23 V (vented) and 2.27 V
@@ -62,41 +62,41 @@ Chemistry = Literal["lifepo4", "agm", "gel", "flooded"]
 #:   absorption voltage is within a few per cent of full.
 #: max_dod -- the deepest planned discharge; the reserve (lowest planned state of
 #:   charge) is 1 - max_dod. Common practice, as in sizing under IEEE 1013 and the
-#:   Sandia worksheet (FIELDREF §4): 0.5 for cycled lead-acid, 0.8 (of 0.8-0.9) for
+#:   Sandia worksheet (docs/solar.md#stand-alone-sizing): 0.5 for cycled lead-acid, 0.8 (of 0.8-0.9) for
 #:   LiFePO4.
 CHEMISTRY_DEFAULTS: dict[str, dict[str, float]] = {
     "lifepo4": {
         "peukert_k": 1.03,             # common practice 1.00-1.05 (no primary source)
-        "charge_efficiency": 0.99,     # 0.99-0.999, cautious end (FIELDREF §2, from memory)
+        "charge_efficiency": 0.99,     # 0.99-0.999, cautious end (docs/soc.md, from memory)
         "full_voltage_per_12V": 14.0,  # 3.50 V/cell: 3.45-3.55 V/cell end of charge (common practice)
         "full_current_pct": 5.0,       # 0.05 It: IEC 61960-3 standard-charge termination (from memory)
-        "max_dod": 0.8,                # common practice 0.8-0.9 (FIELDREF §4)
+        "max_dod": 0.8,                # common practice 0.8-0.9 (docs/solar.md)
     },
     "agm": {
         "peukert_k": 1.10,             # common practice 1.05-1.15 (no primary source)
         "charge_efficiency": 0.90,     # Sandia SAND87-7023 worksheet battery efficiency
         "full_voltage_per_12V": 13.2,  # 2.20 V/cell: at or below every float (IEEE 1188 practice, from memory)
         "full_current_pct": 2.0,       # 1-3 % of C in common use; full VRLA takes 0.8 % (EN 50272-2)
-        "max_dod": 0.5,                # cycled lead-acid, common practice (FIELDREF §4, IEEE 1013 sizing)
+        "max_dod": 0.5,                # cycled lead-acid, common practice (docs/solar.md, IEEE 1013 sizing)
     },
     "gel": {
         "peukert_k": 1.15,             # common practice 1.10-1.25 (no primary source)
         "charge_efficiency": 0.90,     # Sandia SAND87-7023 worksheet battery efficiency
         "full_voltage_per_12V": 13.2,  # 2.20 V/cell: at or below every float (IEEE 1188 practice, from memory)
         "full_current_pct": 2.0,       # 1-3 % of C in common use; full VRLA takes 0.8 % (EN 50272-2)
-        "max_dod": 0.5,                # cycled lead-acid, common practice (FIELDREF §4, IEEE 1013 sizing)
+        "max_dod": 0.5,                # cycled lead-acid, common practice (docs/solar.md, IEEE 1013 sizing)
     },
     "flooded": {
         "peukert_k": 1.25,             # common practice 1.20-1.60, ~1.25 new (no primary source)
         "charge_efficiency": 0.90,     # Sandia SAND87-7023 worksheet battery efficiency
         "full_voltage_per_12V": 13.2,  # 2.20 V/cell: lowest vented float (IEC 60896-11 range, from memory)
         "full_current_pct": 2.0,       # 1-3 % of C in common use; full vented takes 0.4 % (EN 50272-2)
-        "max_dod": 0.5,                # cycled lead-acid, common practice (FIELDREF §4, IEEE 1013 sizing)
+        "max_dod": 0.5,                # cycled lead-acid, common practice (docs/solar.md, IEEE 1013 sizing)
     },
 }
 
 #: How long the full conditions must hold before the bank counts as full [s]:
-#: 1-3 minutes is common practice (FIELDREF §2) -- long enough that a passing
+#: 1-3 minutes is common practice (docs/soc.md#full-charge-resync) -- long enough that a passing
 #: cloud or a load switching off does not qualify, short enough to catch a
 #: short absorption at the end of a drive.
 FULL_HOLD_S_DEFAULT = 120.0

@@ -11,7 +11,7 @@ satisfies both
   ``1.25 * I_continuous <= F <= ampacity`` (after derates), so the fuse
   protects the cable and does not blow at the continuous current.
 
-Sources (see ../shared/FIELDREF.md §6, §7):
+Sources (see docs/cables.md, docs/chargers.md):
 
 * ASTM B258 - AWG diameters, ``d_n = 0.127 mm * 92 ** ((36 - n) / 39)``.
 * IEC 60228 - nominal cross-sections and class 5 maximum resistance at 20 degC.
@@ -19,7 +19,7 @@ Sources (see ../shared/FIELDREF.md §6, §7):
   temperature coefficient ``alpha = 0.00393 /K`` (standard values, from memory).
 * 33 CFR 183.425 Table 5 - allowable amperage by AWG and insulation rating
   (60/75/90/105/125 degC columns, AWG 18 to 4/0: AWG 2-14 verified per
-  FIELDREF; all rows checked against a public copy of the CFR text,
+  docs/cables.md#ampacity; all rows checked against a public copy of the CFR text,
   federal.elaws.us, section 183.425). The table assumes 30 degC ambient and its
   note 1 engine-space factors 50 degC (a marine wire maker's appendix quoting
   the CFR). Engine-space factor for 105 degC: 0.85 (verified, same sources);
@@ -132,7 +132,7 @@ def awg_area_mm2(gauge: str | int) -> float:
 # --- IEC 60228 class 5 --------------------------------------------------------
 
 #: IEC 60228 nominal cross-sections [mm2] with class 5 (flexible) maximum
-#: resistance at 20 degC [ohm/km], plain and tinned copper (FIELDREF §6, verified).
+#: resistance at 20 degC [ohm/km], plain and tinned copper (docs/cables.md#conductor-sizes, verified).
 IEC60228_CLASS5_OHM_PER_KM: dict[float, tuple[float, float]] = {
     0.75: (26.0, 26.7), 1.0: (19.5, 20.0), 1.5: (13.3, 13.7), 2.5: (7.98, 8.21),
     4.0: (4.95, 5.09), 6.0: (3.30, 3.39), 10.0: (1.91, 1.95), 16.0: (1.21, 1.24),
@@ -168,7 +168,7 @@ INSULATION_RATINGS_C: tuple[int, ...] = (60, 75, 90, 105, 125)
 
 #: Allowable amperage outside engine spaces, 33 CFR 183.425 Table 5, by AWG and
 #: insulation rating 60/75/90/105/125 degC (the table's 80 and 200 degC columns
-#: are not used). AWG 2-14 verified (FIELDREF §6); every row checked against a
+#: are not used). AWG 2-14 verified (docs/cables.md#ampacity); every row checked against a
 #: public copy of the CFR text (federal.elaws.us, 33 CFR 183.425).
 CFR_TABLE5_A: dict[str, tuple[int, int, int, int, int]] = {
     "18": (10, 10, 20, 20, 25),
@@ -188,7 +188,7 @@ CFR_TABLE5_A: dict[str, tuple[int, int, int, int, int]] = {
 }
 
 #: Engine-space multipliers by insulation rating (33 CFR 183.425 Table 5
-#: note 1). 105 degC: 0.85 verified (FIELDREF §6 and a wire maker's CFR
+#: note 1). 105 degC: 0.85 verified (docs/cables.md#ampacity and a wire maker's CFR
 #: appendix); others from memory.
 ENGINE_SPACE_FACTOR: dict[int, float] = {60: 0.58, 75: 0.75, 90: 0.82, 105: 0.85, 125: 0.89}
 

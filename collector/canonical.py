@@ -1,4 +1,4 @@
-"""The canonical reading every source is normalised to (DESIGN.md, a contract).
+"""The canonical reading every source is normalised to (docs/contracts.md#canonical-reading, a contract).
 
 A canonical frame is a *long* pandas DataFrame with one row per (time, channel):
 

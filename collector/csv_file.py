@@ -14,7 +14,7 @@ What it copes with
 * a reversed current sign, detected from the data (see :func:`detect_sign_inversion`);
 * out-of-order rows (sorted), duplicates (rejected, see below), gaps (reported).
 
-Counting (DESIGN.md): ``rows_stored`` and ``rows_rejected`` count *data lines* of the file,
+Counting (docs/contracts.md#import): ``rows_stored`` and ``rows_rejected`` count *data lines* of the file,
 and ``rows_stored + rows_rejected == data_lines``. A data line is any line after the first
 header row that is not blank and not a repeat of the header. A duplicate line (same time as an
 earlier line: ``duplicate`` when its values are also equal, ``duplicate_time`` when they differ;
@@ -166,7 +166,7 @@ class FileFormat:
 
 @dataclass(frozen=True)
 class ImportResult:
-    """The data-quality summary of importing one file (``to_json`` gives DESIGN.md's keys)."""
+    """The data-quality summary of importing one file (``to_json`` gives the keys of docs/contracts.md#import)."""
 
     path: str
     rows_stored: int

@@ -21,7 +21,7 @@ A table of their own, created by this module through :meth:`Store.execute`
 
 ``t_start_us`` is the interval's start (UTC, multiple of ``interval_s``);
 ``n`` the readings in it; ``covered_s`` the seconds integrated; ``charge_Ah``
-the current integrated over the interval (trapezoid rule, FIELDREF.md §2; a
+the current integrated over the interval (trapezoid rule, docs/soc.md#the-update; a
 step between readings longer than ``max_gap_s`` is a gap and not integrated),
 split into ``charge_in_Ah`` (positive, into the bank) and ``charge_out_Ah``
 (negative). A step is credited to the interval its first reading lies in.

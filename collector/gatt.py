@@ -1,7 +1,7 @@
 """Pure decoding of Bluetooth LE GATT characteristic values.
 
 Standard characteristics, as the Bluetooth SIG *GATT Specification
-Supplement* (GSS) defines them (all little-endian; FIELDREF.md §8):
+Supplement* (GSS) defines them (all little-endian; docs/standards.md#bluetooth-gatt):
 
 ========  ==================  ========  ==============================================
 UUID      name                format    resolution, special values

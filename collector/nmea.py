@@ -8,7 +8,7 @@ value, unit, transducer name::
 Type codes used for a battery bank: ``U`` voltage (unit ``V``), ``I`` current
 (unit ``A``), ``C`` temperature (unit ``C``; ``F`` and ``K`` are converted).
 The checksum is the 8-bit XOR of every character between ``$`` and ``*``,
-written as two hexadecimal digits (FIELDREF.md §8; NMEA 0183, from secondary
+written as two hexadecimal digits (docs/standards.md#nmea-0183-xdr; NMEA 0183, from secondary
 descriptions). Other sentences (positions, depth, wind) are not battery data
 and are skipped without counting them as malformed.
 

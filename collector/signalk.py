@@ -1,7 +1,7 @@
 """Signal K delta messages -> canonical readings.
 
 Signal K (the open marine data standard; schemas/groups/electrical.json and
-data_model.md, FIELDREF.md §8) sends *delta* messages::
+data_model.md, docs/standards.md#signal-k) sends *delta* messages::
 
     {"context": "vessels.self",
      "updates": [{"source": {"label": "x"}, "timestamp": "2024-06-21T12:00:00Z",

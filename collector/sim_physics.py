@@ -7,7 +7,7 @@ tested against what this model did (the "truth" file):
 * **State of charge** is coulomb-counted against the TRUE capacity ``capacity_Ah``
   (the capacity from full to empty at the rated ``rated_hours`` discharge rate).
   Charge is multiplied by the charge (Ah) efficiency ``charge_efficiency``;
-  discharge current is Peukert-corrected (FIELDREF §1, common practice)::
+  discharge current is Peukert-corrected (docs/peukert.md#corrected-current, common practice)::
 
       I_eff = |I| * (|I| / I_H) ** (k - 1),   I_H = capacity_Ah / rated_hours,
       clamped so that I_eff >= |I| (real capacity saturates below I_H).
@@ -29,7 +29,7 @@ tested against what this model did (the "truth" file):
   knee that brings the voltage up to the absorption set-point near full. While a
   charger regulates (absorption or float) the terminal voltage is its set-point.
 
-OCV tables are FIELDREF §2 (common practice), rested, 25 degC, per 12 V block,
+OCV tables are docs/ocv.md (common practice), rested, 25 degC, per 12 V block,
 scaled by the number of 12 V blocks in series.
 """
 
@@ -40,12 +40,12 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-#: SoC [%] and rested OCV [V] per 12 V block, FIELDREF §2 (common practice).
+#: SoC [%] and rested OCV [V] per 12 V block, docs/ocv.md (common practice).
 #: Lead-acid tables are given at 0/25/50/75/100 %.
 OCV_SOC_PCT_LEAD: tuple[float, ...] = (0.0, 25.0, 50.0, 75.0, 100.0)
 OCV_FLOODED_12V: tuple[float, ...] = (11.89, 12.06, 12.24, 12.45, 12.65)
 OCV_AGM_12V: tuple[float, ...] = (11.80, 12.00, 12.30, 12.60, 12.85)
-#: LFP 4S: the FIELDREF "typical table" at 10..95 % (common practice). The end
+#: LFP 4S: the docs/ocv.md trade table at 10..95 % (common practice). The end
 #: points 0 % (12.0 V) and 100 % (13.6 V) are our extension from memory: the
 #: knees below 10 % and above 95 % are steep on every LFP curve.
 OCV_SOC_PCT_LFP: tuple[float, ...] = (0.0, 10.0, 20.0, 30.0, 40.0, 50.0, 70.0, 80.0, 90.0, 95.0, 100.0)
@@ -97,7 +97,7 @@ def peukert_effective_current_A(current_A: np.ndarray | float, *, rated_current_
                                 peukert_k: float) -> np.ndarray:
     """Peukert-corrected discharge current, clamped to at least the real current.
 
-    ``I_eff = |I| (|I|/I_H)^(k-1)``, ``I_eff >= |I|`` (FIELDREF §1, common practice).
+    ``I_eff = |I| (|I|/I_H)^(k-1)``, ``I_eff >= |I|`` (docs/peukert.md#corrected-current, common practice).
 
     Parameters
     ----------

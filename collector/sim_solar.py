@@ -5,13 +5,13 @@ The clear-sky DC power of one array is the pvlib chain (pvlib 0.16):
 ``Location.get_clearsky`` (Ineichen, Linke turbidity from pvlib's own table)
 -> ``irradiance.get_total_irradiance`` (isotropic sky, array tilt/azimuth)
 -> ``temperature.sapm_cell`` (``insulated_back_glass_polymer``: a module flush on
-a vehicle roof, FIELDREF §5) -> ``pvsystem.pvwatts_dc`` (Dobos 2014).
+a vehicle roof, docs/solar.md#solar-yield-with-pvlib) -> ``pvsystem.pvwatts_dc`` (Dobos 2014).
 
 The simulator multiplies it by a cloud factor (0-1, per step) and by the system
 derate (the truth the solar analysis must recover on clear days). An MPPT
 controller delivers that power at the battery voltage; a PWM controller
 connects the module to the battery, so it delivers about the module's
-maximum-power current at the battery voltage (FIELDREF §5 sketch).
+maximum-power current at the battery voltage (the sketch in docs/solar.md#mppt-and-pwm).
 """
 
 from __future__ import annotations
@@ -21,7 +21,7 @@ import pandas as pd
 import pvlib
 
 #: Module voltage temperature coefficient used by the PWM model [1/degC]
-#: (crystalline silicon, about -0.45 %/degC of Vmp; FIELDREF §5).
+#: (crystalline silicon, about -0.45 %/degC of Vmp; docs/solar.md#mppt-and-pwm).
 VMP_TEMP_COEFF_PER_C: float = -0.0045
 
 

@@ -33,7 +33,7 @@ NAN = math.nan
 
 @dataclass(slots=True)
 class Reading:
-    """One canonical reading of one channel (DESIGN.md: canonical reading).
+    """One canonical reading of one channel (docs/contracts.md#canonical-reading).
 
     Attributes
     ----------

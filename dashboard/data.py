@@ -75,7 +75,7 @@ STALE_AFTER = pd.Timedelta(minutes=15)
 TYPICAL_DAYS = pd.Timedelta(days=14)
 
 #: Low-voltage alarm per 12 V block [V] -- common practice: ~3.0 V/cell for LiFePO4 (12.0 V per 4S);
-#: for lead-acid 11.9 V per 12 V block is about empty even at rest (FIELDREF §2 OCV table: flooded
+#: for lead-acid 11.9 V per 12 V block is about empty even at rest (docs/ocv.md OCV table: flooded
 #: 0 % = 11.89 V, AGM 0 % = 11.80 V).
 LOW_VOLTAGE_PER_BLOCK_V: dict[str, float] = {"lifepo4": 12.0, "agm": 11.9, "gel": 11.9, "flooded": 11.9}
 #: Draw is "unusual" when the present draw exceeds this multiple of the 99th-percentile one-minute draw
@@ -350,7 +350,7 @@ def _ledger_days(days: pd.DataFrame) -> pd.DataFrame:
 
 
 def _report_days(report: Any) -> pd.DataFrame:
-    """The report's ``days`` (DESIGN.md contract keys) as a flat DataFrame.
+    """The report's ``days`` (docs/contracts.md#report contract keys) as a flat DataFrame.
 
     Columns: date, complete, consumed_Ah, consumed_Wh, charged_<source>_Ah for
     solar/alternator/shore/other, charged_Ah (total), soc_min_pct, soc_end_pct, and
@@ -395,7 +395,7 @@ class Health:
 
     Attributes
     ----------
-    battery : the report's ``battery`` JSON (DESIGN.md keys, plus ``..._why`` reasons)
+    battery : the report's ``battery`` JSON (docs/contracts.md#report keys, plus ``..._why`` reasons)
     capacity_points : per anchor pair: t and start (local), usable_Ah, lo_Ah, hi_Ah (its 95 % interval),
         delta_soc_pct, mean_discharge_A, start_kind, end_kind
     resistance_points : per day: t (local date), resistance_ohm, steps

@@ -108,7 +108,7 @@ def report_figures(report: Any, *, system: System | None = None, solar: Any = No
     ----------
     report
         An ``analysis.report.Report`` (or anything with ``to_json()`` giving the
-        DESIGN.md report keys).
+        docs/contracts.md#report keys).
     system
         The system description: gives the timezone of the time axes and the
         rated capacity/hours for the health plots. Without it the times are UTC

@@ -1,4 +1,4 @@
-"""Usable capacity, state of health, Peukert fit and internal resistance (FIELDREF §1, §3)."""
+"""Usable capacity, state of health, Peukert fit and internal resistance (docs/peukert.md, docs/capacity.md)."""
 
 from __future__ import annotations
 
@@ -32,16 +32,16 @@ def _ch(t_s, cur, volt):
                    np.asarray(volt, float), np.full(n, np.nan), np.full(n, np.nan))
 
 
-# Plett 2011 WLS/TLS check values: FIELDREF §3 [C], tolerance 1e-3.
+# Plett 2011 WLS/TLS check values: docs/capacity.md#check-values, tolerance 1e-3.
 X = np.array([0.60, 0.35, 0.80, 0.50])
 Y = np.array([61.0, 34.0, 79.0, 50.5])
 
 
-def test_plett_wls_matches_fieldref_check_value():
+def test_plett_wls_matches_docs_check_value():
     assert plett_wls(X, Y, 1.0) == pytest.approx(99.7814, abs=1e-3)
 
 
-def test_plett_tls_matches_fieldref_check_value():
+def test_plett_tls_matches_docs_check_value():
     assert plett_tls(X, Y, 1.0, m=0.01) == pytest.approx(99.7930, abs=1e-3)
 
 
@@ -51,7 +51,7 @@ def test_plett_tls_reduces_to_wls_as_m_goes_to_zero():
 
 def _full_then_discharge_then_rest(cap_true=100.0, amps=6.0, out_Ah=60.0):
     # Full (13.5 V, 1 A taper for 10 min), then out_Ah at amps, then a 6 h rest at the OCV of the
-    # true final SoC (AGM table, FIELDREF §2, common practice).
+    # true final SoC (AGM table, docs/ocv.md, common practice).
     from drawdown.analysis.ocv import ocv_from_soc
     t1 = np.arange(0, 600, 10.0)
     t2 = np.arange(600, 600 + out_Ah / amps * 3600 + 10, 10.0)
@@ -65,7 +65,7 @@ def _full_then_discharge_then_rest(cap_true=100.0, amps=6.0, out_Ah=60.0):
 
 
 def test_anchor_method_full_then_60Ah_then_rested_40_percent_gives_100Ah():
-    # FIELDREF §3 check: full resync, 60.0 Ah out, rested OCV reading 40 % -> Q = 100.0 Ah.
+    # docs/capacity.md#check-values: full resync, 60.0 Ah out, rested OCV reading 40 % -> Q = 100.0 Ah.
     t, cur, volt = _full_then_discharge_then_rest()
     sys_ = _system(peukert_k=1.0)
     ch = _ch(t, cur, volt)

@@ -1,4 +1,4 @@
-"""Coulomb counting and state of charge (FIELDREF §2 checks; OCV tables common practice)."""
+"""Coulomb counting and state of charge (docs/soc.md#check-values; OCV tables common practice, docs/ocv.md)."""
 
 from __future__ import annotations
 
@@ -26,8 +26,8 @@ def _channel(t_s, cur, volt=None):
                    np.full(n, np.nan), np.full(n, np.nan))
 
 
-def test_trapezoid_of_fieldref_three_samples_is_minus_12_5_Ah():
-    # FIELDREF §2 check: (0 s, -10 A), (1800 s, -10 A), (3600 s, -20 A), trapezoid -> -12.5 Ah.
+def test_trapezoid_of_docs_three_samples_is_minus_12_5_Ah():
+    # docs/soc.md#check-values: (0 s, -10 A), (1800 s, -10 A), (3600 s, -20 A), trapezoid -> -12.5 Ah.
     assert coulomb_count_Ah(np.array([0.0, 1800.0, 3600.0]), np.array([-10.0, -10.0, -20.0]),
                             max_gap_s=3600) == pytest.approx(-12.5)
 
@@ -40,14 +40,14 @@ def test_gap_longer_than_five_samples_is_not_integrated():
 
 
 def test_discharge_10A_for_2h_removes_20_percent_with_k_1():
-    # FIELDREF §2 check: -10 A for 2 h on 100 Ah, k = 1 -> -20.0 %.
+    # docs/soc.md#check-values: -10 A for 2 h on 100 Ah, k = 1 -> -20.0 %.
     t = np.arange(0, 7201, 60.0)
     res = state_of_charge(_channel(t, np.full(len(t), -10.0)), _system(peukert_k=1.0), use_ocv=False)
     assert res.soc[-1] - res.soc[0] == pytest.approx(-20.0, abs=0.01)
 
 
 def test_charge_10A_for_2h_adds_19_percent_at_efficiency_0_95():
-    # FIELDREF §2 check: +10 A for 2 h with eta_c = 0.95 -> +19.0 %. Start from the device SoC 50 %.
+    # docs/soc.md#check-values: +10 A for 2 h with eta_c = 0.95 -> +19.0 %. Start from the device SoC 50 %.
     t = np.arange(0, 7201, 60.0)
     ch = _channel(t, np.full(len(t), 10.0))
     ch = Channel(ch.name, ch.t_us, ch.current_A, ch.voltage_V, ch.temperature_C, np.full(len(t), 50.0))
@@ -57,7 +57,7 @@ def test_charge_10A_for_2h_adds_19_percent_at_efficiency_0_95():
 
 
 def test_peukert_correction_removes_28_28_percent_in_one_hour_at_20A():
-    # FIELDREF §1 check: I_eff(20 A) = 28.28 A on C20 = 100 Ah, k = 1.25.
+    # docs/peukert.md#check-values: I_eff(20 A) = 28.28 A on C20 = 100 Ah, k = 1.25.
     t = np.arange(0, 3601, 10.0)
     res = state_of_charge(_channel(t, np.full(len(t), -20.0)), _system(peukert_k=1.25), use_ocv=False)
     assert res.soc[0] - res.soc[-1] == pytest.approx(28.28, abs=0.01)
@@ -91,7 +91,7 @@ def test_soc_is_held_at_100_percent_while_charging_past_full():
 
 
 def test_rested_lead_acid_ocv_anchors_soc():
-    # AGM OCV table (FIELDREF §2, common practice): 12.30 V rested = 50 %.
+    # AGM OCV table (docs/ocv.md, common practice): 12.30 V rested = 50 %.
     t = np.arange(0, 6 * 3600, 60.0)
     res = state_of_charge(_channel(t, np.zeros(len(t)), np.full(len(t), 12.30)), _system())
     assert [a.kind for a in res.anchors] == ["ocv"]
@@ -99,7 +99,7 @@ def test_rested_lead_acid_ocv_anchors_soc():
 
 
 def test_lifepo4_plateau_voltage_is_not_used_as_an_anchor():
-    # FIELDREF §2: the LFP plateau (13.2 V ~ 50 %) hides SoC; only the knees anchor.
+    # docs/ocv.md: the LFP plateau (13.2 V ~ 50 %) hides SoC; only the knees anchor.
     t = np.arange(0, 6 * 3600, 60.0)
     res = state_of_charge(_channel(t, np.zeros(len(t)), np.full(len(t), 13.2)), _system("lifepo4"))
     assert res.anchors == ()
@@ -108,7 +108,7 @@ def test_lifepo4_plateau_voltage_is_not_used_as_an_anchor():
 @pytest.mark.parametrize("chem, volt, soc", [("flooded", 12.65, 100), ("flooded", 12.24, 50), ("flooded", 11.89, 0),
                                              ("agm", 12.60, 75), ("agm", 12.00, 25), ("lifepo4", 13.3, 80)])
 def test_ocv_tables_match_common_practice_values(chem, volt, soc):
-    # OCV tables: FIELDREF §2, common practice (from memory of trade tables).
+    # OCV tables: docs/ocv.md, common practice (from memory of trade tables).
     assert float(ocv.soc_from_ocv(volt, chem, 12.8 if chem == "lifepo4" else 12.0)) == pytest.approx(soc, abs=0.5)
 
 

@@ -1,7 +1,7 @@
 """Alternator/DC-DC and shore charging diagnostics.
 
-Outside references: FIELDREF §7 (DC-DC input current check values; alternator
-continuous-draw rule, common practice), DESIGN.md safety rule (no lithium
+Outside references: docs/chargers.md (DC-DC input current check values; alternator
+continuous-draw rule, common practice), the docs/chargers.md#safety rule (no lithium
 charging below 0 degC, common practice), and the bundled simulator's truth.
 Synthetic sessions are built here with known plateau, sag and taper.
 """
@@ -53,8 +53,8 @@ def pad(x: np.ndarray, before: int = 30, after: int = 30) -> np.ndarray:
 
 
 @pytest.mark.parametrize("input_V, expected_A", [(13.2, 36.4), (12.5, 38.4)])
-def test_dc_dc_input_current_matches_fieldref_check_values(input_V, expected_A):
-    # FIELDREF §7 [C]: 30 A out at 14.4 V, eta 0.9 -> 36.4 A at 13.2 V in, 38.4 A at 12.5 V in.
+def test_dc_dc_input_current_matches_docs_check_values(input_V, expected_A):
+    # docs/chargers.md#check-values: 30 A out at 14.4 V, eta 0.9 -> 36.4 A at 13.2 V in, 38.4 A at 12.5 V in.
     assert float(dc_dc_input_current_A(30.0, 14.4, input_V, efficiency=0.9)) == pytest.approx(expected_A, abs=0.05)
 
 
@@ -104,7 +104,7 @@ def test_charger_cycling_on_a_smart_alternator_is_reported():
 
 
 def test_heavy_dc_dc_load_on_a_small_alternator_is_a_finding():
-    # Common practice (FIELDREF §7): keep continuous draw <= 50-70 % of the alternator rating.
+    # Common practice (docs/chargers.md#alternators): keep continuous draw <= 50-70 % of the alternator rating.
     df = frame_from(pad(np.full(60, 60.0)))
     result = analyse_charging(df, make_system(dcdc_A=60.0, alternator_A=100.0))
     assert result.sources["alternator"]["alternator_load_fraction"] > 0.5
@@ -112,7 +112,7 @@ def test_heavy_dc_dc_load_on_a_small_alternator_is_a_finding():
 
 
 def test_lithium_charging_below_freezing_is_flagged():
-    # Safety (DESIGN.md; common practice): do not charge LiFePO4 below 0 degC.
+    # Safety (docs/chargers.md#safety; common practice): do not charge LiFePO4 below 0 degC.
     df = frame_from(pad(np.full(30, 20.0)), temp_C=-4.0)
     result = analyse_charging(df, make_system())
     assert result.cold_charging["minutes"] >= 29

@@ -31,7 +31,7 @@ pytestmark = [
     pytest.mark.skipif(MOSQUITTO is None, reason="mosquitto broker binary not installed (apt install mosquitto)"),
 ]
 
-# FIELDREF.md §8: the Signal K delta example (SignalK/specification data_model.md, electrical.json)
+# docs/standards.md#signal-k: the Signal K delta example (SignalK/specification data_model.md, electrical.json)
 SIGNALK_DELTA = {"context": "vessels.self", "updates": [{"source": {"label": "x"},
                  "timestamp": "2024-06-21T12:00:00Z", "values": [
                      {"path": "electrical.batteries.house.voltage", "value": 13.28},

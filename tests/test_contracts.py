@@ -1,7 +1,7 @@
-"""The DESIGN.md contracts, end to end through the real command line.
+"""The docs/contracts.md contracts, end to end through the real command line.
 
 One simulated trip goes through simulate -> import -> status -> report -> size, and a
-wire run, each with --json; every key DESIGN.md lists must be present, stdout must hold
+wire run, each with --json; every key docs/contracts.md lists must be present, stdout must hold
 exactly one JSON object, and the exit codes must be the contract's (0 ok, 2 bad input).
 """
 

@@ -151,10 +151,10 @@ def test_ledger_figure_stacks_charge_up_and_consumption_down():
     assert any(tr.name == "partial day" for tr in fig.data)
 
 
-def test_peukert_line_matches_the_fieldref_check_values():
+def test_peukert_line_matches_the_docs_check_values():
     from drawdown.dashboard.figures import peukert_figure
 
-    # FIELDREF §1 [C]: C20 = 100 Ah, H = 20 h, k = 1.25 -> t(10 A) = 8.409 h, t(20 A) = 3.536 h,
+    # docs/peukert.md#check-values: C20 = 100 Ah, H = 20 h, k = 1.25 -> t(10 A) = 8.409 h, t(20 A) = 3.536 h,
     # t(50 A) = 1.125 h (tolerance 0.01). The line is straight on log-log axes, so log interpolation is exact.
     fig = peukert_figure([], [], k=1.25, capacity_Ah=100, rated_hours=20)
     line = next(tr for tr in fig.data if tr.name.startswith("k = 1.250"))
@@ -488,7 +488,7 @@ def test_a_range_too_big_for_one_analysis_gets_a_message_not_a_crash(app_ctx, mo
 
 
 def test_day_adapters_carry_a_single_shunts_95_percent_range_and_nothing_otherwise():
-    # The report JSON's consumed_Ah_pi95 (DESIGN.md days keys) and the ledger's
+    # The report JSON's consumed_Ah_pi95 (docs/contracts.md#report days keys) and the ledger's
     # consumed_Ah_pi95_lo/hi reach the dashboard's flat day frame as consumed_Ah_lo/hi.
     from drawdown.dashboard.data import _ledger_days, _report_days
 

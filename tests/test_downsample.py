@@ -1,6 +1,6 @@
 """Long-term storage: summaries of old live readings, compaction of small live chunks.
 
-Integration reference: the trapezoid rule (FIELDREF.md §2 check: (0 s, -10 A),
+Integration reference: the trapezoid rule (docs/soc.md#check-values: (0 s, -10 A),
 (1800 s, -10 A), (3600 s, -20 A) -> -12.5 Ah) and numpy.trapezoid run in the
 test as an independent implementation.
 """
@@ -22,8 +22,8 @@ def _vals(i, v=None):
             "temperature_C": np.full(n, np.nan), "soc_pct": np.full(n, np.nan)}
 
 
-def test_summary_integrates_the_fieldref_trapezoid_check():
-    # FIELDREF.md §2: samples (0 s, -10 A), (1800 s, -10 A), (3600 s, -20 A) -> -12.5 Ah
+def test_summary_integrates_the_docs_trapezoid_check():
+    # docs/soc.md#check-values: samples (0 s, -10 A), (1800 s, -10 A), (3600 s, -20 A) -> -12.5 Ah
     t = T0_US + np.array([0, 1800, 3600], dtype=np.int64) * 1_000_000
     s = downsample.summarise(t, _vals([-10.0, -10.0, -20.0]), interval_s=3600, max_gap_s=3600)
     assert s["charge_Ah"].sum() == pytest.approx(-12.5)

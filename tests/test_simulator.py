@@ -1,7 +1,7 @@
 """Tests of the simulator (collector/simulated.py and its sim_* helpers).
 
-Outside references, named beside each test: Peukert 1897 (FIELDREF §1 check
-values), FIELDREF §2 coulomb-counting check and OCV tables (common practice),
+Outside references, named beside each test: Peukert 1897 (docs/peukert.md check
+values), the docs/soc.md coulomb-counting check and OCV tables (docs/ocv.md, common practice),
 pvlib's clear-sky chain run directly in the test, and plain energy bookkeeping
 (what the truth file says must be what the log integrates to).
 """
@@ -71,21 +71,21 @@ def _read_log(path: Path, tz: str) -> pd.DataFrame:
     return df
 
 
-# --- Peukert (Peukert 1897, t = H (C/(I H))^k; FIELDREF §1 check values, C20 = 100 Ah, k = 1.25)
+# --- Peukert (Peukert 1897, t = H (C/(I H))^k; docs/peukert.md check values, C20 = 100 Ah, k = 1.25)
 
 @pytest.mark.parametrize(("current_A", "hours"), [(10.0, 8.409), (20.0, 3.536), (50.0, 1.125)])
 def test_constant_current_discharge_lasts_peukert_time(current_A, hours):
-    # FIELDREF §1 [C]: t(10 A) = 8.409 h, t(20 A) = 3.536 h, t(50 A) = 1.125 h, tolerance +-0.01 h.
+    # docs/peukert.md#check-values: t(10 A) = 8.409 h, t(20 A) = 3.536 h, t(50 A) = 1.125 h, tolerance +-0.01 h.
     assert _hours_to_empty(_bank(), current_A) == pytest.approx(hours, abs=0.01)
 
 
 def test_discharge_below_rated_current_is_not_credited_extra_capacity():
-    # FIELDREF §1 (common practice): clamp I_eff >= |I|, so 2 A from 100 Ah lasts C/I = 50 h, not more.
+    # docs/peukert.md (common practice): clamp I_eff >= |I|, so 2 A from 100 Ah lasts C/I = 50 h, not more.
     assert _hours_to_empty(_bank(), 2.0, dt_s=30.0) == pytest.approx(50.0, abs=0.02)
 
 
 def test_charge_counts_with_charge_efficiency():
-    # FIELDREF §2 check [C]: +10 A for 2 h with eta_c = 0.95 on 100 Ah -> +19.0 %.
+    # docs/soc.md#check-values: +10 A for 2 h with eta_c = 0.95 on 100 Ah -> +19.0 %.
     n = 2 * 3600 // 10
     run = run_bank(_bank(charge_efficiency=0.95), dt_s=10.0, source_A=np.full(n, 10.0), load_W=np.zeros(n),
                    soc0=0.5)
@@ -109,7 +109,7 @@ def test_absorption_tapers_to_tail_current_then_floats():
     assert run.source_factor[i + 10] < 0.01                         # the charger is throttled
 
 
-# --- OCV tables (FIELDREF §2, rested batteries at 25 degC, common practice)
+# --- OCV tables (docs/ocv.md, rested batteries at 25 degC, common practice)
 
 @pytest.mark.parametrize(("chemistry", "soc", "volts"), [
     ("flooded", [100, 75, 50, 25, 0], [12.65, 12.45, 12.24, 12.06, 11.89]),
@@ -117,19 +117,19 @@ def test_absorption_tapers_to_tail_current_then_floats():
     ("gel", [100, 75, 50, 25, 0], [12.85, 12.60, 12.30, 12.00, 11.80]),
     ("lifepo4", [95, 90, 80, 70, 50, 40, 30, 20, 10], [13.4, 13.35, 13.3, 13.25, 13.2, 13.15, 13.1, 13.0, 12.8]),
 ])
-def test_rested_ocv_equals_fieldref_table(chemistry, soc, volts):
+def test_rested_ocv_equals_docs_table(chemistry, soc, volts):
     got = open_circuit_voltage_V(np.array(soc, float), chemistry=chemistry, blocks_12V=1)
     np.testing.assert_allclose(got, volts, atol=1e-9)
 
 
 def test_rested_ocv_of_a_24V_bank_is_two_12V_blocks():
-    # FIELDREF §2 tables are per 12 V; a 24 V lead-acid bank is two blocks in series (common practice).
+    # docs/ocv.md tables are per 12 V; a 24 V lead-acid bank is two blocks in series (common practice).
     got = open_circuit_voltage_V(np.array([100.0, 50.0]), chemistry="agm", blocks_12V=2)
     np.testing.assert_allclose(got, [25.70, 24.60], atol=1e-9)
 
 
 def test_simulated_terminal_voltage_rests_at_ocv_with_no_current():
-    # With no current and the relaxation branch settled, the terminal voltage is the FIELDREF OCV.
+    # With no current and the relaxation branch settled, the terminal voltage is the docs/ocv.md OCV.
     n = 6 * 3600 // 60
     run = run_bank(_bank(chemistry="agm", blocks_12V=2, polarisation_ohm=0.01, relaxation_s=1800.0),
                    dt_s=60.0, source_A=np.zeros(n), load_W=np.zeros(n), soc0=0.75)
@@ -163,8 +163,8 @@ def test_clear_day_potential_equals_pvlib_chain_times_derate(van3):
 
 
 @pytest.mark.parametrize(("cell_C", "pwm_W", "mppt_gain"), [(25.0, 73.7, 0.30), (60.0, None, 0.10)])
-def test_pwm_model_matches_fieldref_sketch(cell_C, pwm_W, mppt_gain):
-    # FIELDREF §5 sketch [C]: 100 W 36-cell module (Vmp 18.0 V, Imp 5.56 A), battery at 13.0 V:
+def test_pwm_model_matches_docs_sketch(cell_C, pwm_W, mppt_gain):
+    # docs/solar.md#mppt-and-pwm sketch (computed): 100 W 36-cell module (Vmp 18.0 V, Imp 5.56 A), battery at 13.0 V:
     # PWM 73.7 W vs MPPT (eta 0.96) 96.1 W at 25 degC (+30 %), +10 % at 60 degC (Vmp -0.45 %/degC).
     # Our PWM current is I_mp, a little below the true current at 13 V: tolerance 3 %.
     p_mp = 100.0 * (1 - 0.004 * (cell_C - 25.0))

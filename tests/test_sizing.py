@@ -1,7 +1,7 @@
 """Right-sizing: the worksheet method, derates, design loads and the recommender on ledger-shaped frames.
 
-Check values: ../shared/FIELDREF.md §1 (Peukert), §4 (stand-alone PV sizing), §5 (pvlib clear sky),
-§7 (inverters and DC-DC chargers).
+Check values: docs/peukert.md (Peukert), docs/solar.md (stand-alone PV sizing, pvlib clear sky),
+docs/chargers.md (inverters and DC-DC chargers).
 """
 
 from __future__ import annotations
@@ -48,24 +48,24 @@ def make_days(n=120, *, start="2025-05-01", voltage=12.8, base_Wh=700.0, temp_sl
         "soc_min_pct": 60.0, "soc_end_pct": 80.0, "mean_temperature_C": temp, "driving_h": drive})
 
 
-# ---- the worksheet method (FIELDREF §4 worked example, self-made, consistent with SAND87-7023) ----------
+# ---- the worksheet method (docs/solar.md#worked-example, self-made, consistent with SAND87-7023) ------
 
 def test_worksheet_agm_battery_is_428_6Ah():
-    # FIELDREF §4 worked example (a self-made example consistent with the Sandia SAND87-7023 / IEEE 1013
+    # docs/solar.md#worked-example (a self-made example consistent with the Sandia SAND87-7023 / IEEE 1013
     # method, not the handbook's own numbers): 60 Ah/day x 3 days / (0.5 DoD x 0.84 K_T) = 428.6 Ah, +-0.5 %.
     w = dm.worksheet(720, 12, 3.0, chemistry="agm", autonomy_days=3, max_dod=0.5, temperature_factor=0.84)
     assert w.battery_capacity_Ah == pytest.approx(428.6, rel=0.005)
 
 
 def test_worksheet_lfp_battery_is_225Ah():
-    # FIELDREF §4 worked example (self-made): DoD 0.8, K_T 1 -> 225 Ah.
+    # docs/solar.md#worked-example (self-made): DoD 0.8, K_T 1 -> 225 Ah.
     w = dm.worksheet(720, 12, 3.0, chemistry="lifepo4", autonomy_days=3, max_dod=0.8)
     assert w.battery_capacity_Ah == pytest.approx(225.0, rel=0.005)
 
 
 def test_worksheet_corrected_load_and_design_current():
-    # Sandia worksheets (1)-(2) [V in FIELDREF]: 60 / (0.98 x 0.90) = 68.03 Ah/day; / 3.0 PSH = 22.68 A;
-    # / 0.9 module derate = 25.20 A; 5.5 A-Imp modules -> 4.58 -> 5 in parallel (FIELDREF §4 example).
+    # Sandia worksheets (1)-(2) (checked, docs/solar.md): 60 / (0.98 x 0.90) = 68.03 Ah/day; / 3.0 PSH = 22.68 A;
+    # / 0.9 module derate = 25.20 A; 5.5 A-Imp modules -> 4.58 -> 5 in parallel (docs/solar.md#worked-example).
     w = dm.worksheet(720, 12, 3.0, chemistry="agm", autonomy_days=3, max_dod=0.5, temperature_factor=0.84)
     assert w.corrected_load_Ah_per_day == pytest.approx(68.03, rel=0.005)
     assert w.design_current_A == pytest.approx(22.68, rel=0.005)
@@ -74,7 +74,7 @@ def test_worksheet_corrected_load_and_design_current():
 
 
 def test_worksheet_array_energy_form_agm_400_2W_lfp_363_8W():
-    # FIELDREF §4 energy path (self-made example): P = E F_o / (PSH eta_w eta_b eta_c K): AGM 400.2 Wp, LFP 363.8 Wp.
+    # docs/solar.md energy path (self-made example): P = E F_o / (PSH eta_w eta_b eta_c K): AGM 400.2 Wp, LFP 363.8 Wp.
     agm = dm.worksheet(720, 12, 3.0, chemistry="agm", autonomy_days=3, max_dod=0.5, temperature_factor=0.84)
     lfp = dm.worksheet(720, 12, 3.0, chemistry="lifepo4", autonomy_days=3, max_dod=0.8)
     assert agm.array_W == pytest.approx(400.2, rel=0.005)
@@ -82,7 +82,7 @@ def test_worksheet_array_energy_form_agm_400_2W_lfp_363_8W():
 
 
 def test_ieee485_factor_at_10C_gives_0_84():
-    # IEEE 485 temperature correction 1.19 at 10 degC (FIELDREF §4, from memory) -> K_T = 1/1.19 = 0.84.
+    # IEEE 485 temperature correction 1.19 at 10 degC (docs/solar.md, from memory) -> K_T = 1/1.19 = 0.84.
     assert dm.ieee485_capacity_factor(10.0) == pytest.approx(0.84, abs=0.001)
     assert dm.ieee485_capacity_factor(30.0) == 1.0
 
@@ -91,11 +91,11 @@ def test_iec60896_temperature_factor_for_lead_acid():
     # IEC 60896-11 (from memory): C_T = C_25 (1 + 0.006 (T - 25)) for discharges > 3 h; 10 degC -> 0.91.
     assert sz.temperature_capacity_factor("agm", 10.0) == pytest.approx(0.91)
     assert sz.temperature_capacity_factor("agm", 35.0) == 1.0  # heat is not credited
-    assert sz.temperature_capacity_factor("lifepo4", 10.0) == 1.0  # FIELDREF §2: small effect above 0 degC
+    assert sz.temperature_capacity_factor("lifepo4", 10.0) == 1.0  # docs/soc.md#temperature: small effect above 0 degC
 
 
-def test_peukert_rate_factor_matches_fieldref_checks():
-    # FIELDREF §1 [C]: C20 = 100 Ah, k = 1.25: 20 A -> 70.71 Ah, 50 A -> 56.23 Ah; below I_H no credit.
+def test_peukert_rate_factor_matches_docs_checks():
+    # docs/peukert.md#check-values: C20 = 100 Ah, k = 1.25: 20 A -> 70.71 Ah, 50 A -> 56.23 Ah; below I_H no credit.
     assert 100 * sz.rate_capacity_factor(100, 20, 20, 1.25) == pytest.approx(70.71, abs=0.01)
     assert 100 * sz.rate_capacity_factor(100, 20, 50, 1.25) == pytest.approx(56.23, abs=0.01)
     assert sz.rate_capacity_factor(100, 20, 2, 1.25) == 1.0
@@ -104,7 +104,7 @@ def test_peukert_rate_factor_matches_fieldref_checks():
 # ---- clear-sky resource (pvlib) --------------------------------------------------------------------
 
 def test_clear_sky_sun_hours_match_pvlib_check_values():
-    # FIELDREF §5 [C], pvlib 0.16.1: 45N 0E, altitude 0, Ineichen, TL = 3, flat: daily GHI Jun 21 8.389,
+    # docs/solar.md#check-values, pvlib 0.16.1: 45N 0E, altitude 0, Ineichen, TL = 3, flat: daily GHI Jun 21 8.389,
     # Mar 20 5.130, Dec 21 1.653 kWh/m2 (+-1 %; ours samples hourly).
     s = make_system(lat=45.0, lon=0.0, solar_W=0)
     daily, monthly = sz.clear_sky_psh(s, tilt_deg=0, linke_turbidity=3.0)
@@ -171,7 +171,7 @@ def test_incomplete_days_are_left_out():
 # ---- inverter, DC-DC -------------------------------------------------------------------------------------
 
 def test_inverter_for_800W_of_ac_loads_is_1000W_drawing_92_6A_and_108_2A_at_cutoff():
-    # FIELDREF §7 [C]: 1000 W at 12 V, eta 0.9 -> 92.6 A; at 10.5 V, eta 0.88 -> 108.2 A -> 150 A fuse, 4 AWG.
+    # docs/chargers.md: 1000 W at 12 V, eta 0.9 -> 92.6 A; at 10.5 V, eta 0.88 -> 108.2 A -> 150 A fuse, 4 AWG.
     s = make_system(chemistry="agm", voltage=12.0, capacity=200,
                     loads=[{"name": "microwave", "power_W": 800, "hours_per_day": 0.2, "ac": True}])
     r = sz.recommend(s, None, n_sequences=100)
@@ -192,7 +192,7 @@ def test_inverter_surge_covers_a_motor_start():
 
 
 def test_inverter_idle_draw_is_added_to_the_planned_budget():
-    # FIELDREF §7: idle ~0.5-1.5 % of rating (common practice); 1 % of 1000 W for 24 h = 240 Wh/day.
+    # docs/chargers.md: idle ~0.5-1.5 % of rating (common practice); 1 % of 1000 W for 24 h = 240 Wh/day.
     s = make_system(loads=[{"name": "tv", "power_W": 90, "hours_per_day": 2, "ac": True},
                            {"name": "kettle", "power_W": 700, "hours_per_day": 0.1, "ac": True}])
     r = sz.recommend(s, None, n_sequences=100)
@@ -213,14 +213,14 @@ def test_dc_dc_charger_is_capped_by_battery_acceptance():
 
 
 def test_dc_dc_input_current_and_alternator_flag():
-    # FIELDREF §7 [C]: 30 A at 14.4 V from 12.5 V at eta 0.9 -> 38.4 A; > 50 % of a 70 A alternator is flagged
+    # docs/chargers.md: 30 A at 14.4 V from 12.5 V at eta 0.9 -> 38.4 A; > 50 % of a 70 A alternator is flagged
     # (hot output 60-70 % of rating, common practice).
     s = make_system(capacity=200, alternator=70)
     r = sz.recommend(s, make_days(60), n_sequences=200, driving_hours_per_day=3.0)
     dc = r.dc_dc_charger
     assert dc["input_A"] == pytest.approx(dc["current_A"] * 14.4 / (12.5 * 0.9))
     assert dc["current_A"] == 30
-    assert dc["input_A"] == pytest.approx(38.4, abs=0.05)  # FIELDREF §7: 30 A at 14.4 V from 12.5 V, eta 0.9
+    assert dc["input_A"] == pytest.approx(38.4, abs=0.05)  # docs/chargers.md: 30 A at 14.4 V from 12.5 V, eta 0.9
     assert dc["alternator_check"] == "too much for the alternator"
     assert any("alternator rating" in c for c in r.cautions)
 

@@ -1,7 +1,7 @@
 """Solar yield against pvlib's clear sky: the model chain, saturation, sky, diagnostics.
 
 Outside references: pvlib run directly in the test (the model chain, check
-values of FIELDREF §5 computed with pvlib 0.16.1), FIELDREF §5's MPPT/PWM
+values of docs/solar.md computed with pvlib 0.16.1), the docs/solar.md MPPT/PWM
 physics sketch, and "common practice" (MPPT harvests ~10-30 % more than PWM
 on a 36-cell module). Synthetic logs are built here from pvlib's clear sky
 times a known derate, so the truth is known exactly.
@@ -85,29 +85,29 @@ def synthetic_log(system, *, start: str = "2026-09-20", days: int = 4, step_s: i
     return frame, truth
 
 
-# ----------------------------------------------------------------- pvlib check values (FIELDREF §5)
+# ------------------------------------------------ pvlib check values (docs/solar.md#check-values)
 
-def test_haurwitz_clear_sky_matches_fieldref_check_values():
-    # FIELDREF §5 [C], pvlib 0.16.1: zenith 0 -> 1035.09, 60 -> 487.89 W/m2 (±0.01).
+def test_haurwitz_clear_sky_matches_docs_check_values():
+    # docs/solar.md#check-values, pvlib 0.16.1: zenith 0 -> 1035.09, 60 -> 487.89 W/m2 (±0.01).
     ghi = clearsky.haurwitz(pd.Series([0.0, 60.0]))["ghi"].to_numpy()
     assert ghi == pytest.approx([1035.09, 487.89], abs=0.01)
 
 
 def test_pvwatts_dc_matches_dobos_2014_check_value():
-    # PVWatts (Dobos 2014, NREL/TP-6A20-62641) via pvlib; FIELDREF §5: 147.20 W.
+    # PVWatts (Dobos 2014, NREL/TP-6A20-62641) via pvlib; docs/solar.md#check-values: 147.20 W.
     assert float(pvsystem.pvwatts_dc(800.0, 45.0, 200.0, -0.004)) == pytest.approx(147.20, abs=0.01)
 
 
 def test_flat_panel_poa_is_dni_cos_z_plus_dhi():
-    # FIELDREF §5: isotropic sky, tilt 0: POA = DNI cos z + DHI; DNI 900, DHI 70, z 30 -> 849.42.
+    # docs/solar.md#check-values: isotropic sky, tilt 0: POA = DNI cos z + DHI; DNI 900, DHI 70, z 30 -> 849.42.
     poa = irradiance.get_total_irradiance(0, 180, 30.0, 180.0, 900.0, 900 * np.cos(np.radians(30)) + 70,
                                           70.0)["poa_global"]
     assert float(poa) == pytest.approx(849.42, abs=0.01)
 
 
 @pytest.mark.parametrize("day, kwh_m2", [("2026-06-21", 8.389), ("2026-12-21", 1.653)])
-def test_daily_clear_sky_ghi_at_45n_matches_fieldref(day, kwh_m2):
-    # FIELDREF §5 [C]: 45N 0E, altitude 0, Ineichen, TL = 3 fixed, dni_extra from
+def test_daily_clear_sky_ghi_at_45n_matches_docs(day, kwh_m2):
+    # docs/solar.md#check-values: 45N 0E, altitude 0, Ineichen, TL = 3 fixed, dni_extra from
     # get_extra_radiation, 1-min steps over the UTC day: Jun 21 8.389, Dec 21 1.653 kWh/m2 (±1 %).
     system = make_system(lat=45.0, lon=0.0, tz="UTC", peak_W=200)
     t = pd.date_range(day, periods=1440, freq="1min", tz="UTC")
@@ -116,8 +116,8 @@ def test_daily_clear_sky_ghi_at_45n_matches_fieldref(day, kwh_m2):
 
 
 @pytest.mark.parametrize("day, wh", [("2026-06-21", 1557.7), ("2026-03-20", 974.0), ("2026-12-21", 326.6)])
-def test_daily_dc_energy_of_200W_flat_panel_matches_fieldref(day, wh):
-    # FIELDREF §5 [C]: 200 W flat panel, Faiman (u0 25, u1 6.84), air 20 degC, wind 1 m/s,
+def test_daily_dc_energy_of_200W_flat_panel_matches_docs(day, wh):
+    # docs/solar.md#check-values: 200 W flat panel, Faiman (u0 25, u1 6.84), air 20 degC, wind 1 m/s,
     # gamma -0.4 %/degC, TL 3, 45N 0E: Jun 21 1557.7, Mar 20 974.0, Dec 21 326.6 Wh DC (±1.5 %).
     system = make_system(lat=45.0, lon=0.0, tz="UTC", peak_W=200)
     t = pd.date_range(day, periods=1440, freq="1min", tz="UTC")
@@ -185,15 +185,15 @@ def test_analysis_expected_wh_per_day_equals_pvlib_daily_sum():
     dc = pvsystem.pvwatts_dc(poa, temperature.sapm_cell(poa, 10.0, 1.0, **p), 300.0, -0.004)
     row = result.days.set_index("date").loc["2026-09-20"]
     assert row["expected_Wh"] == pytest.approx(0.96 * dc.sum() / 60, rel=0.005)
-    # Peak sun hours = daily insolation in kWh/m2 (FIELDREF §5).
+    # Peak sun hours = daily insolation in kWh/m2 (docs/solar.md#peak-sun-hours).
     assert row["peak_sun_hours_clear_sky"] == pytest.approx(cs["ghi"].sum() / 60 / 1000, rel=0.005)
 
 
 # ----------------------------------------------------------------- controller model
 
 @pytest.mark.parametrize("cell_C, gain", [(25.0, 0.30), (60.0, 0.10)])
-def test_mppt_over_pwm_gain_reproduces_fieldref_sketch(cell_C, gain):
-    # FIELDREF §5 sketch: 100 W 36-cell module (Vmp 18.0 V, Imp 5.56 A) on a 13.0 V battery:
+def test_mppt_over_pwm_gain_reproduces_docs_sketch(cell_C, gain):
+    # docs/solar.md#mppt-and-pwm sketch: 100 W 36-cell module (Vmp 18.0 V, Imp 5.56 A) on a 13.0 V battery:
     # PWM 73.7 W vs MPPT (eta 0.96) 96.1 W at 25 degC (+30 %), +10 % at 60 degC;
     # the usual 10-30 % gain (common practice).
     frac = float(pwm_fraction(13.0, cell_C, 18.0))
@@ -205,7 +205,7 @@ def test_mppt_over_pwm_gain_reproduces_fieldref_sketch(cell_C, gain):
 
 
 def test_pwm_output_collapses_when_battery_voltage_exceeds_hot_module_vmp():
-    # Physics sketch (FIELDREF §5): above Vmp the module current falls towards Voc.
+    # Physics sketch (docs/solar.md#mppt-and-pwm): above Vmp the module current falls towards Voc.
     assert float(pwm_fraction(14.6, 75.0, 18.0)) < float(pwm_fraction(13.0, 75.0, 18.0))
 
 

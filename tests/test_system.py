@@ -1,4 +1,4 @@
-"""system.toml validation: the DESIGN.md schema is a contract."""
+"""system.toml validation: the docs/contracts.md#system-description schema is a contract."""
 
 from __future__ import annotations
 
@@ -6,7 +6,7 @@ import pytest
 
 from drawdown.analysis.system import SystemError_, parse_system
 
-# The example from DESIGN.md, verbatim: it must always validate.
+# The example from docs/contracts.md#system-description, verbatim: it must always validate.
 DESIGN_EXAMPLE = """
 [site]
 latitude_deg = 61.2

@@ -32,7 +32,7 @@ def test_wire_json_values_obey_the_fuse_and_drop_rules(capsys):
 
 
 def test_wire_inverter_example_gives_4awg_and_150A_fuse(capsys):
-    # FIELDREF §7 (self-made worked sizing): 108.2 A at cut-off -> 150 A fuse -> 4 AWG 105 degC (160 A).
+    # docs/chargers.md (self-made worked sizing): 108.2 A at cut-off -> 150 A fuse -> 4 AWG 105 degC (160 A).
     rc, j = run_json(capsys, "--current", "108.2", "--length", "1", "--voltage", "12", "--ambient", "20")
     assert j["fuse_A"] == 150
     assert j["awg"] == "4"

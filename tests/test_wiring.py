@@ -1,6 +1,6 @@
 """Cable and fuse sizing against published tables, formulas and worked examples.
 
-Check values: ../shared/FIELDREF.md §6 (cables and fuses) and §7 (inverters, DC-DC chargers).
+Check values: docs/cables.md (cables and fuses) and docs/chargers.md (inverters, DC-DC chargers).
 """
 
 from __future__ import annotations
@@ -15,13 +15,13 @@ from drawdown.analysis import wiring as w
 
 # ---- ASTM B258 ---------------------------------------------------------------
 
-# ASTM B258 formula d_n = 0.127 mm * 92^((36-n)/39); areas as tabulated in FIELDREF §6 [C], to 0.01 mm2.
+# ASTM B258 formula d_n = 0.127 mm * 92^((36-n)/39); areas as tabulated in docs/cables.md (computed), to 0.01 mm2.
 ASTM_B258_AREAS_MM2 = {"2": 33.63, "4": 21.15, "6": 13.30, "8": 8.37, "10": 5.26, "12": 3.31, "14": 2.08}
 
 
 @pytest.mark.parametrize("gauge,area", ASTM_B258_AREAS_MM2.items())
 def test_awg_area_matches_astm_b258_table(gauge, area):
-    # Source: ASTM B258 (formula) / FIELDREF §6 AWG table.
+    # Source: ASTM B258 (formula) / docs/cables.md#conductor-sizes AWG table.
     assert w.awg_area_mm2(gauge) == pytest.approx(area, abs=0.006)
 
 
@@ -37,8 +37,8 @@ def test_awg_4_0_is_0_46_inch():
 
 @pytest.mark.parametrize("gauge,mohm", {"2": 0.513, "4": 0.815, "6": 1.296, "8": 2.061, "10": 3.277,
                                         "12": 5.211, "14": 8.286}.items())
-def test_awg_resistance_at_20C_matches_fieldref(gauge, mohm):
-    # FIELDREF §6 mOhm/m at 20 degC [C] from IEC 60028 resistivity and ASTM B258 areas.
+def test_awg_resistance_at_20C_matches_docs(gauge, mohm):
+    # docs/cables.md#conductor-sizes mOhm/m at 20 degC (computed) from IEC 60028 resistivity and ASTM B258 areas.
     assert w.awg_resistance_ohm_per_m(gauge) * 1000 == pytest.approx(mohm, abs=0.001)
 
 
@@ -50,14 +50,14 @@ def test_unknown_awg_size_is_rejected_naming_it():
 # ---- IEC 60228 ---------------------------------------------------------------
 
 def test_iec60228_nominal_sizes_are_the_standard_series():
-    # IEC 60228 nominal cross-sections 0.75 ... 120 mm2 (FIELDREF §6, verified).
+    # IEC 60228 nominal cross-sections 0.75 ... 120 mm2 (docs/cables.md#conductor-sizes, verified).
     assert w.METRIC_SIZES_MM2 == (0.75, 1, 1.5, 2.5, 4, 6, 10, 16, 25, 35, 50, 70, 95, 120)
 
 
 @pytest.mark.parametrize("area,plain,tinned", [(0.75, 26.0, 26.7), (2.5, 7.98, 8.21), (10, 1.91, 1.95),
                                                (35, 0.554, 0.565), (120, 0.161, 0.164)])
 def test_iec60228_class5_resistance_at_20C(area, plain, tinned):
-    # IEC 60228 class 5 maximum resistance at 20 degC, ohm/km (FIELDREF §6 table, verified).
+    # IEC 60228 class 5 maximum resistance at 20 degC, ohm/km (docs/cables.md#conductor-sizes table, verified).
     assert w.iec60228_resistance_ohm_per_m(area) * 1000 == pytest.approx(plain)
     assert w.iec60228_resistance_ohm_per_m(area, tinned=True) * 1000 == pytest.approx(tinned)
 
@@ -81,26 +81,26 @@ def test_copper_resistivity_is_one_over_58_at_20C():
 
 
 def test_voltage_drop_5m_20A_4mm2_is_0_862V():
-    # FIELDREF §6 check [C]: 5 m, 20 A, 4 mm2 -> 0.862 V (7.2 % of 12 V).
+    # docs/cables.md#check-values (computed): 5 m, 20 A, 4 mm2 -> 0.862 V (7.2 % of 12 V).
     v = w.voltage_drop_V(20, 5, 4)
     assert v == pytest.approx(0.862, abs=0.001)
     assert v / 12 * 100 == pytest.approx(7.2, abs=0.05)
 
 
 def test_voltage_drop_at_60C_is_0_998V():
-    # FIELDREF §6 check [C]: same run at 60 degC conductor temperature -> 0.998 V (IEC 60028 alpha).
+    # docs/cables.md#check-values (computed): same run at 60 degC conductor temperature -> 0.998 V (IEC 60028 alpha).
     assert w.voltage_drop_V(20, 5, 4, temperature_C=60) == pytest.approx(0.998, abs=0.001)
 
 
 def test_voltage_drop_3m_10A_6mm2_is_0_172V():
-    # FIELDREF §6 check [C]: 3 m, 10 A, 6 mm2 -> 0.172 V (1.44 %).
+    # docs/cables.md#check-values (computed): 3 m, 10 A, 6 mm2 -> 0.172 V (1.44 %).
     v = w.voltage_drop_V(10, 3, 6)
     assert v == pytest.approx(0.172, abs=0.001)
     assert v / 12 * 100 == pytest.approx(1.44, abs=0.01)
 
 
 def test_three_percent_of_12V_at_5m_20A_needs_9_58mm2_so_10mm2():
-    # FIELDREF §6 check [C]: A = 2 L I rho / (f V) >= 9.58 mm2 -> 10 mm2 nominal.
+    # docs/cables.md#check-values (computed): A = 2 L I rho / (f V) >= 9.58 mm2 -> 10 mm2 nominal.
     need = w.minimum_area_mm2(20, 5, 12, 3)
     assert need == pytest.approx(9.58, abs=0.01)
     r = w.size_run(20, 5, 12, max_drop_pct=3, conductor_temperature_C=20, resistance_basis="resistivity")
@@ -130,7 +130,7 @@ def test_usual_metric_match_is_the_nearest_awg_by_area(mm2, awg):
                                        ("10", (40, 40, 55, 60, 70)), ("12", (25, 25, 40, 45, 50)),
                                        ("14", (20, 20, 30, 35, 40))])
 def test_ampacity_matches_33cfr183_425_table5(gauge, row):
-    # 33 CFR 183.425 Table 5, 60/75/90/105/125 degC insulation, outside engine spaces (FIELDREF §6, verified).
+    # 33 CFR 183.425 Table 5, 60/75/90/105/125 degC insulation, outside engine spaces (docs/cables.md, verified).
     assert tuple(w.awg_ampacity_A(gauge, t) for t in w.INSULATION_RATINGS_C) == row
 
 
@@ -151,7 +151,7 @@ def test_engine_space_ampacity_of_105C_wire_matches_the_published_column():
 
 
 def test_engine_space_derates_105C_insulation_by_0_85():
-    # 33 CFR 183.425 Table 5 footnote, 105 degC: 0.85 (FIELDREF §6 [V, derived]); 4 AWG 160 A -> 136 A.
+    # 33 CFR 183.425 Table 5 footnote, 105 degC: 0.85 (docs/cables.md: verified, derived); 4 AWG 160 A -> 136 A.
     r = w.size_run(100, 1, 12, engine_space=True, conductor_temperature_C=50)
     assert r.assumptions["derate_factors"]["engine_space"] == 0.85
     assert r.awg_choice.ampacity_A == pytest.approx(r.awg_choice.ampacity_table_A * 0.85)
@@ -159,7 +159,7 @@ def test_engine_space_derates_105C_insulation_by_0_85():
 
 @pytest.mark.parametrize("n,f", [(1, 1.0), (2, 1.0), (3, 0.70), (5, 0.60), (10, 0.50), (30, 0.40)])
 def test_bundling_factors(n, f):
-    # 33 CFR 183.425 bundling derates 0.70 / 0.60 / 0.50 (FIELDREF §6, from memory).
+    # 33 CFR 183.425 bundling derates 0.70 / 0.60 / 0.50 (docs/cables.md#ampacity, from memory).
     assert w.bundling_factor(n) == f
 
 
@@ -186,7 +186,7 @@ def test_fuse_is_the_smallest_standard_rating_at_125_percent():
 
 
 def test_inverter_check_1000W_at_12V_is_92_6A_and_108_2A_at_cutoff():
-    # FIELDREF §7 [C]: I_dc = P / (V eta): 1000 W, 12 V, 0.90 -> 92.6 A; 10.5 V, 0.88 -> 108.2 A.
+    # docs/chargers.md#check-values: I_dc = P / (V eta): 1000 W, 12 V, 0.90 -> 92.6 A; 10.5 V, 0.88 -> 108.2 A.
     from drawdown.analysis.sizing import inverter_dc_current_A
 
     assert inverter_dc_current_A(1000, 12, 0.90) == pytest.approx(92.6, abs=0.05)
@@ -194,7 +194,7 @@ def test_inverter_check_1000W_at_12V_is_92_6A_and_108_2A_at_cutoff():
 
 
 def test_inverter_run_gets_150A_fuse_and_4AWG_at_105C():
-    # FIELDREF §7 worked sizing (self-made): 1.25 x 108.2 = 135 A -> 150 A fuse -> 4 AWG 105 degC (160 A).
+    # docs/chargers.md worked sizing (self-made): 1.25 x 108.2 = 135 A -> 150 A fuse -> 4 AWG 105 degC (160 A).
     # Over 2 m at 92.6 A: 4 AWG drops 0.302 V (2.5 %), 25 mm2 class 5 drops 0.289 V (2.4 %) at 20 degC.
     r = w.size_run(92.6, 2, 12, protect_current_A=1000 / (10.5 * 0.88), conductor_temperature_C=20)
     assert r.fuse_A == 150
@@ -207,7 +207,7 @@ def test_inverter_run_gets_150A_fuse_and_4AWG_at_105C():
 
 
 def test_dc_dc_input_current_checks():
-    # FIELDREF §7 [C]: I_in = I_out V_out / (V_in eta): 30 A at 14.4 V, 0.9: 13.2 V -> 36.4 A, 12.5 V -> 38.4 A.
+    # docs/chargers.md: I_in = I_out V_out / (V_in eta): 30 A at 14.4 V, 0.9: 13.2 V -> 36.4 A, 12.5 V -> 38.4 A.
     from drawdown.analysis.charging import dc_dc_input_current_A
 
     assert dc_dc_input_current_A(30, 14.4, 13.2, efficiency=0.9) == pytest.approx(36.4, abs=0.05)

@@ -19,7 +19,7 @@ from drawdown.dashboard.pages._parts import fmt, notice, page_head, table
 
 dash.register_page(__name__, path="/setup", name="System setup", title="drawdown - system setup", order=5)
 
-#: Shown when no system.toml exists yet: the DESIGN.md example, to edit.
+#: Shown when no system.toml exists yet: the docs/contracts.md#system-description example, to edit.
 EXAMPLE_SYSTEM = """\
 [site]       # where the vehicle mostly is
 latitude_deg = 61.2

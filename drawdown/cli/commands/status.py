@@ -48,7 +48,7 @@ def _free_bytes(path: Path) -> int | None:
 
 
 def status_dict(ctx: Context) -> dict[str, Any]:
-    """The status object (DESIGN.md ``status`` keys plus import totals); never creates a store."""
+    """The status object (docs/contracts.md#status keys plus import totals); never creates a store."""
     out: dict[str, Any] = {"store": str(ctx.store_path), "exists": ctx.store_path.exists(), "channels": {},
                            "imports": 0, "rows_stored": 0, "rows_rejected": 0, "quarantine": None,
                            "system": None, "writable": None, "disk_free_bytes": None, "disk_full": None}
