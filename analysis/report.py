@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field, replace
+from collections.abc import Callable
 from typing import Any
 
 import numpy as np
@@ -167,8 +168,13 @@ def _solar_section(readings: pd.DataFrame, system: System, solar_current: pd.Ser
     return out, res
 
 
+#: The steps :func:`build_report` announces through its ``progress`` callback, in order.
+REPORT_STEPS: tuple[str, ...] = ("state of charge", "capacity", "ledger", "solar", "charging")
+
+
 def build_report(readings: pd.DataFrame, system: System, *, rows_rejected: int = 0,
-                 start: Any = None, end: Any = None) -> Report:
+                 start: Any = None, end: Any = None,
+                 progress: Callable[[str], None] | None = None) -> Report:
     """Analyse a canonical long frame into a :class:`Report`.
 
     Parameters
@@ -177,6 +183,7 @@ def build_report(readings: pd.DataFrame, system: System, *, rows_rejected: int =
     system : system description
     rows_rejected : input lines rejected at import (from the store's import log)
     start, end : optional UTC bounds (``start <= t < end``); anything pandas.Timestamp accepts
+    progress : called with each name of :data:`REPORT_STEPS` as that step starts (a progress bar)
 
     Raises
     ------
@@ -197,6 +204,7 @@ def build_report(readings: pd.DataFrame, system: System, *, rows_rejected: int =
     channels = split_channels(readings)
     if not channels:
         raise ValueError("no readings in the selected period; import a log first or widen --from/--to")
+    step = progress or (lambda name: None)
     b = system.battery
     bat = channels.get("battery")
     soc: SocResult | None = None
@@ -204,6 +212,7 @@ def build_report(readings: pd.DataFrame, system: System, *, rows_rejected: int =
     peuk = PeukertEstimate(b.effective_peukert_k, "system.toml" if b.peukert_k is not None else "chemistry default",
                            "no battery channel")
     eta = EfficiencyEstimate(b.charge_efficiency, 0.0, 0, None) if b.charge_efficiency is not None else None
+    step("state of charge")
     if bat is not None and len(bat) > 1:
         soc = state_of_charge(bat, system)
         if eta is None:
@@ -215,6 +224,7 @@ def build_report(readings: pd.DataFrame, system: System, *, rows_rejected: int =
                 b = system.battery
                 soc = state_of_charge(bat, system)
         eta_sigma = eta.sigma if eta is not None and eta.eta is not None else None
+        step("capacity")
         pairs = anchor_pairs(bat, soc, system, peukert_k=b.effective_peukert_k, eta_sigma=eta_sigma)
         peuk = fit_peukert(pairs, system)
         if peuk.source == "fitted" and abs(peuk.k - b.effective_peukert_k) > 1e-6:
@@ -235,15 +245,18 @@ def build_report(readings: pd.DataFrame, system: System, *, rows_rejected: int =
             soc = soc.with_capacity(cap.usable_Ah)
         # The cumulative charge is no longer needed: free it before the ledger (memory at 1 Hz x 1 year).
         soc = replace(soc, charge_Ah=np.zeros(0))
+    step("ledger")
     led: LedgerResult = compute_ledger(channels, system, soc=soc)
     ir = (internal_resistance(bat, led.bounds_us, list(led.days["date"])) if bat is not None and len(bat) > 1
           else ResistanceEstimate(None, "no battery channel", pd.DataFrame()))
     rt = _runtime(bat, soc, led, system, cap, peuk)
+    step("solar")
     solar, solar_analysis = _solar_section(readings, system,
                                            led.solar_current_A if "solar" not in channels else None)
     report = _assemble(channels, system, rows_rejected, soc, cap, peuk, led, ir, rt, solar, eta)
     report = replace(report, solar_analysis=solar_analysis, capacity=cap, peukert=peuk, resistance=ir,
                      runtime=rt, ledger_result=led)
+    step("charging")
     return _with_charging(report, readings, system)
 
 

@@ -18,6 +18,7 @@ import traceback
 
 from drawdown import __version__
 from drawdown.cli.commands import collect, demo, import_logs, report, serve, simulate, size, status, wire
+from drawdown.cli import progress
 from drawdown.cli.context import Context, UsageError
 
 #: The commands in the order ``--help`` lists them.
@@ -30,6 +31,7 @@ def _parser() -> argparse.ArgumentParser:
         description="Battery-bank logs in; energy ledger, battery health, solar yield and sizing advice out.",
     )
     p.add_argument("--version", action="version", version=f"drawdown {__version__}")
+    p.add_argument("--quiet", action="store_true", help="no progress bars (they show only on a terminal anyway)")
     p.add_argument("--store", metavar="PATH", help="reading store (default: a file in the user data folder)")
     p.add_argument("--system", metavar="PATH", help="system description (default: system.toml beside the store)")
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
@@ -60,6 +62,8 @@ def missing_extra_message(command: str, exc: ModuleNotFoundError) -> str | None:
 
 #: Commands that write the system description at --system when it is missing.
 _WRITES_SYSTEM = {"demo", "serve"}
+#: Commands that never read --system (simulate writes its scenario's beside its log).
+_READS_NO_SYSTEM = {"simulate", "wire"}
 
 
 def _parse(parser: argparse.ArgumentParser, argv: list[str] | None) -> argparse.Namespace:
@@ -77,8 +81,8 @@ def _missing_system(args: argparse.Namespace, ctx: Context) -> str | None:
         return None
     if ctx.system_path.is_dir():
         return f"--system {ctx.system_path}: is a folder; give the system.toml file itself"
-    if args.command in _WRITES_SYSTEM:
-        return None  # demo writes it there; serve's System setup page can
+    if args.command in _WRITES_SYSTEM or args.command in _READS_NO_SYSTEM:
+        return None  # demo and simulate write it there; serve's System setup page can; wire reads none
     return (f"--system {ctx.system_path}: no such file. Check the path, or leave --system out to use "
             f"{ctx.store_path.parent / 'system.toml'} (beside the store)")
 
@@ -86,6 +90,7 @@ def _missing_system(args: argparse.Namespace, ctx: Context) -> str | None:
 def main(argv: list[str] | None = None) -> int:
     parser = _parser()
     args = _parse(parser, argv)
+    progress.QUIET = bool(args.quiet)
     ctx = Context.from_args(args)
     missing = _missing_system(args, ctx)
     if missing:

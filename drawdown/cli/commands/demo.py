@@ -20,6 +20,7 @@ from typing import Any
 
 from drawdown.dashboard import labels
 from drawdown.cli.context import Context, UsageError
+from drawdown.cli.progress import stages
 
 
 NAME = "demo"
@@ -108,7 +109,7 @@ def _summary_from_report(report: dict) -> list[str]:
 def run(args: Any, ctx: Context) -> int:
     import pandas as pd
 
-    from drawdown.analysis.report import build_report
+    from drawdown.analysis.report import REPORT_STEPS, build_report
     from drawdown.collector.csv_file import import_file
     from drawdown.collector.simulated import (DEFAULT_SCENARIO, UnknownScenarioError, available_scenarios,
                                      load_scenario, simulate, write_log)
@@ -127,8 +128,11 @@ def run(args: Any, ctx: Context) -> int:
     days = args.days or scenario.params.scenario.default_days
     out = folder / f"{scenario.name}-{days}d.csv"
     print(f"simulating {scenario.name} ({scenario.params.scenario.description}), {days} days ...", file=sys.stderr)
-    sim = simulate(scenario, days=days)  # the scenario's fixed seed: the same bytes every run
-    truth_path = write_log(sim, out)
+    with stages("simulating", ["simulating", "writing the log"]) as step:
+        step("simulating")
+        sim = simulate(scenario, days=days)  # the scenario's fixed seed: the same bytes every run
+        step("writing the log")
+        truth_path = write_log(sim, out)
     print(f"log: {out}\ntruth: {truth_path}", file=sys.stderr)
 
     if ctx.system_path.exists():
@@ -157,8 +161,9 @@ def run(args: Any, ctx: Context) -> int:
         with ctx.open_store() as store:
             readings = store.read(sim.truth["start"], sim.truth["end"])
             rejected = sum(int(i.get("rows_rejected") or 0) for i in store.imports())
-        report = build_report(readings, system, rows_rejected=rejected,
-                              start=pd.Timestamp(sim.truth["start"]), end=pd.Timestamp(sim.truth["end"]))
+        with stages("analysing", list(REPORT_STEPS)) as step:
+            report = build_report(readings, system, rows_rejected=rejected, progress=step,
+                                  start=pd.Timestamp(sim.truth["start"]), end=pd.Timestamp(sim.truth["end"]))
     except ValueError as exc:  # nothing analysable stored: show the truth, and say why
         print(f"the analysis could not run ({exc}); showing the simulation's truth", file=sys.stderr)
     report_json = None if report is None else json.loads(json.dumps(report.to_json(), default=str))

@@ -13,6 +13,7 @@ import os
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+from drawdown.cli.progress import stages
 from drawdown.cli.context import Context, UsageError, print_json, warn
 from drawdown.dashboard.labels import chemistry, for_people, local_time, plural
 
@@ -99,7 +100,7 @@ def _no_readings_message(store_path: Path, span: Any, tz: str, args: Any) -> str
 
 
 def run(args: Any, ctx: Context) -> int:
-    from drawdown.analysis.report import build_report
+    from drawdown.analysis.report import REPORT_STEPS, build_report
 
     html_path = html_target(args.html) if args.html else None
     system = ctx.load_system()
@@ -120,7 +121,8 @@ def run(args: Any, ctx: Context) -> int:
     if readings.empty:
         raise UsageError(_no_readings_message(ctx.store_path, span, tz, args))
     # Input was validated above; a ValueError from the analysis now is a bug (exit 1), not bad input.
-    report = build_report(readings, system, rows_rejected=rows_rejected)
+    with stages("analysing", list(REPORT_STEPS)) as step:
+        report = build_report(readings, system, rows_rejected=rows_rejected, progress=step)
     obj = report.to_json()
     if html_path is not None:
         path = _write_html_report(report, html_path, system, sizing=_html_sizing(readings, system))

@@ -15,6 +15,7 @@ from pathlib import Path
 from typing import Any
 
 from drawdown.cli.context import Context, UsageError, print_json
+from drawdown.cli.progress import stages
 
 
 NAME = "simulate"
@@ -57,8 +58,11 @@ def run(args: Any, ctx: Context) -> int:
         raise UsageError(f"--out {out} is a folder; give a file name such as {out / (scenario.name + '.csv')}")
 
     t0 = time.perf_counter()
-    sim = simulate(scenario, days=args.days, seed=args.seed)
-    truth_path = write_log(sim, out, interval_s=args.interval, single_shunt=args.single_shunt)
+    with stages("simulating", ["simulating", "writing the log"]) as step:
+        step("simulating")
+        sim = simulate(scenario, days=args.days, seed=args.seed)
+        step("writing the log")
+        truth_path = write_log(sim, out, interval_s=args.interval, single_shunt=args.single_shunt)
     system_path, written = _write_system(out.parent if str(out.parent) else Path("."), scenario.system_text)
     seconds = time.perf_counter() - t0
 

@@ -16,6 +16,7 @@ import sys
 
 from drawdown.dashboard import labels
 from drawdown.cli.context import UsageError, print_json
+from drawdown.cli.progress import stages
 
 
 NAME = "size"
@@ -44,13 +45,17 @@ def run(args, ctx) -> int:
         raise UsageError(f"--percentile {args.percentile:g}: expected 50 <= P < 100 (e.g. 90)")
     system = ctx.load_system()
     readings = None
-    if ctx.store_path.exists():
-        readings = ctx.open_store().read()
-    try:
-        # The same function the Upgrade planner calls: one answer for the same store and targets.
-        result = size_answer(readings, system, autonomy_days=n, percentile=args.percentile)
-    except SizingInputError as exc:
-        raise UsageError(str(exc)) from None
+    with stages("sizing", ["reading the store", "sizing"]) as step:
+        if ctx.store_path.exists():
+            step("reading the store")
+            with ctx.open_store() as store:
+                readings = store.read()
+        step("sizing")
+        try:
+            # The same function the Upgrade planner calls: one answer for the same store and targets.
+            result = size_answer(readings, system, autonomy_days=n, percentile=args.percentile)
+        except SizingInputError as exc:
+            raise UsageError(str(exc)) from None
     out = result.to_json()
     if args.json:
         print_json(out)
