@@ -23,7 +23,7 @@ DOCS = ROOT / "docs"
 #: The internal reference files' names, assembled so that this test does not mention them itself.
 INTERNAL_NAMES = ("FIELD" + "REF", "DESIGN" + ".md")
 
-#: ``docs/page.md`` or ``docs/page.md#anchor`` anywhere in a text (also after ``../``).
+#: A docs page citation, with or without its ``#anchor``, anywhere in a text (also after ``../``).
 CITATION = re.compile(r"(?<![\w-])docs/([\w.-]+\.md)(?:#([\w-]+))?")
 #: A markdown link target inside docs/: ``(page.md)``, ``(page.md#anchor)`` or ``(#anchor)``.
 DOC_LINK = re.compile(r"\]\((?!\w+://)([\w.-]*\.md)?(?:#([\w-]+))?\)")

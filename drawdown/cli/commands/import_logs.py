@@ -13,12 +13,13 @@ import sqlite3
 import sys
 import time
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from drawdown.collector.columns import ColumnSpec, normalise_channel, parse_map_option
-from drawdown.collector.csv_file import ImportResult, NothingStored, UnusableInput, import_file
-from drawdown.collector.store import _is_full, _is_read_only, describe_store_error
+
+if TYPE_CHECKING:
+    from drawdown.collector.csv_file import ImportResult
 from drawdown.cli.context import Context, UsageError, print_json, warn
 from drawdown.dashboard.labels import local_time, plural
 
@@ -139,7 +140,17 @@ def _human(r: ImportResult, tz: str | None = None) -> str:
     return "\n".join(lines)
 
 
+def _importer(path: Path, text_importer: Any) -> Any:
+    """The importer for a file: Parquet (``PAR1`` magic bytes or a ``.parquet`` name), else ``text_importer``."""
+    from drawdown.collector.parquet_file import import_parquet, is_parquet
+
+    return import_parquet if is_parquet(path) else text_importer
+
+
 def run(args: Any, ctx: Context) -> int:
+    from drawdown.collector.csv_file import NothingStored, UnusableInput, import_file
+    from drawdown.collector.store import _is_full, _is_read_only, describe_store_error
+
     column_map = _column_map(args.map)
     channel = None
     if args.channel:
@@ -177,8 +188,8 @@ def run(args: Any, ctx: Context) -> int:
                 size = 0
             bar = _Progress(path.name, size)
             try:
-                r = import_file(path, store, tz=tz, channel=channel, column_map=column_map, invert=invert,
-                                nominal_voltage_V=nominal, progress=bar)
+                r = _importer(path, import_file)(path, store, tz=tz, channel=channel, column_map=column_map,
+                                                 invert=invert, nominal_voltage_V=nominal, progress=bar)
             except sqlite3.OperationalError as exc:
                 bar.close()
                 if not (_is_full(exc) or _is_read_only(exc)):
