@@ -926,7 +926,7 @@ class DataSource:
             The file is written to a private temporary folder, parsed as data
             (never executed) and deleted.
         """
-        from drawdown.collector.csv_file import import_file
+        from drawdown.collector.importing import import_log
 
         try:
             _header, payload = contents.split(",", 1)
@@ -944,8 +944,8 @@ class DataSource:
             try:
                 with self._write_lock, _open_store(str(self.store_path)) as store:
                     sys_s = self.system()
-                    result = _call_importer(import_file, path, store, self.system_timezone_or_none(),
-                                            sys_s.value.battery.nominal_voltage_V if sys_s.ok else None)
+                    result = import_log(path, store, tz=self.system_timezone_or_none(),
+                                        nominal_voltage_V=sys_s.value.battery.nominal_voltage_V if sys_s.ok else None)
             except Exception as exc:  # noqa: BLE001 - any importer error is the file's message
                 # A page never shows a server path: the scratch copy is the file's own name.
                 said = getattr(exc, "page_message", str(exc))  # the page has no command-line flags
@@ -959,22 +959,6 @@ class DataSource:
     def system_timezone_or_none(self) -> str | None:
         s = self.system()
         return s.value.site.timezone if s.ok else None
-
-
-def _call_importer(import_file: Callable[..., Any], path: Path, store: Any, tz: str | None,
-                   nominal_voltage_V: float | None = None) -> Any:
-    """Call collector.csv_file.import_file with the keywords it accepts."""
-    import inspect
-
-    params = inspect.signature(import_file).parameters
-    kwargs: dict[str, Any] = {}
-    for name in ("tz", "timezone", "default_tz"):
-        if name in params and tz is not None:
-            kwargs[name] = tz
-            break
-    if nominal_voltage_V is not None and "nominal_voltage_V" in params:
-        kwargs["nominal_voltage_V"] = nominal_voltage_V
-    return import_file(path, store, **kwargs)
 
 
 def current() -> DataSource:

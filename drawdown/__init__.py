@@ -69,16 +69,16 @@ def parse_system(text: str, *, source: str = "system.toml") -> System:
 
 def import_log(path: str | Path, store: Store, *, tz: str | None = None, channel: str | None = None,
                invert: tuple[str, ...] = (), nominal_voltage_V: float | None = None) -> ImportResult:
-    """Import one delimited text log (CSV, TSV, semicolons) into ``store``; rejected lines are counted and kept aside.
+    """Import one log into ``store`` (delimited text: CSV, TSV, semicolons; or Parquet); rejected rows are
+    counted and kept aside.
 
     ``tz`` is the zone of naive local timestamps; ``invert`` names channels whose current
     sign is flipped. Raises ``drawdown.collector.csv_file.UnusableInput`` for a file that
     holds nothing usable (the message names the file and line).
     """
-    from drawdown.collector.csv_file import import_file
+    from drawdown.collector.importing import import_log as _import
 
-    return import_file(Path(path), store, tz=tz, channel=channel, invert=invert,
-                       nominal_voltage_V=nominal_voltage_V)
+    return _import(Path(path), store, tz=tz, channel=channel, invert=invert, nominal_voltage_V=nominal_voltage_V)
 
 
 def read_readings(store: Store, start: Any = None, end: Any = None) -> pd.DataFrame:

@@ -382,6 +382,21 @@ def test_upload_of_a_good_log_stores_its_rows(copy_ctx):
     assert src.time_span()[1] == t[-1]
 
 
+def test_upload_of_a_parquet_file_uses_the_same_importer_as_the_command_line(copy_ctx, tmp_path):
+    # A wide Parquet file written by pandas/pyarrow (not by drawdown): the page imports it like `drawdown import`.
+    src = copy_ctx.source
+    last = src.time_span()[1]
+    t = last + pd.to_timedelta(np.arange(1, 31), unit="min")
+    frame = pd.DataFrame({"time": t, "battery_voltage_V": 13.0, "battery_current_A": -3.5})
+    path = tmp_path / "extra.parquet"
+    frame.to_parquet(path)
+    out = src.import_upload("extra.parquet", "data:application/octet-stream;base64,"
+                            + base64.b64encode(path.read_bytes()).decode())
+    assert out["ok"], out
+    assert out["summary"]["rows_stored"] == 30
+    assert src.time_span()[1] == t[-1]
+
+
 def test_upload_callback_shows_an_error_notice_for_a_bad_file(copy_ctx):
     from drawdown.dashboard.pages import setup
 

@@ -140,15 +140,9 @@ def _human(r: ImportResult, tz: str | None = None) -> str:
     return "\n".join(lines)
 
 
-def _importer(path: Path, text_importer: Any) -> Any:
-    """The importer for a file: Parquet (``PAR1`` magic bytes or a ``.parquet`` name), else ``text_importer``."""
-    from drawdown.collector.parquet_file import import_parquet, is_parquet
-
-    return import_parquet if is_parquet(path) else text_importer
-
-
 def run(args: Any, ctx: Context) -> int:
-    from drawdown.collector.csv_file import NothingStored, UnusableInput, import_file
+    from drawdown.collector.csv_file import NothingStored, UnusableInput
+    from drawdown.collector.importing import import_log
     from drawdown.collector.store import _is_full, _is_read_only, describe_store_error
 
     column_map = _column_map(args.map)
@@ -188,7 +182,7 @@ def run(args: Any, ctx: Context) -> int:
                 size = 0
             bar = _Progress(path.name, size)
             try:
-                r = _importer(path, import_file)(path, store, tz=tz, channel=channel, column_map=column_map,
+                r = import_log(path, store, tz=tz, channel=channel, column_map=column_map,
                                                  invert=invert, nominal_voltage_V=nominal, progress=bar)
             except sqlite3.OperationalError as exc:
                 bar.close()
