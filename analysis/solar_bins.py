@@ -7,6 +7,7 @@ computation starts by reducing them to 1-, 5- or 10-minute means with
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from dataclasses import dataclass
 
 import numpy as np
@@ -115,7 +116,8 @@ class ChannelBinner:
     def __init__(self, readings: pd.DataFrame, grid: Grid, *, t_us: np.ndarray | None = None) -> None:
         self.readings = readings
         self.grid = grid
-        self.t_us = epoch_us(readings["t"]) if t_us is None and not readings.empty else t_us
+        self.t_us: np.ndarray = (epoch_us(readings["t"]) if t_us is None and not readings.empty
+                                 else t_us if t_us is not None else np.zeros(0, dtype=np.int64))
         self._rows: dict[str, slice | np.ndarray | None] = {}
 
     def _channel(self, channel: str) -> slice | np.ndarray | None:
@@ -133,6 +135,7 @@ class ChannelBinner:
         if rows is None or column not in self.readings:
             return np.full(n, np.nan), np.zeros(n, dtype=np.int64)
         values = self.readings[column].to_numpy()
+        pieces: Iterator[slice | np.ndarray]
         if isinstance(rows, slice):
             lo, hi = rows.start, rows.stop
             pieces = ((slice(a, min(a + _BLOCK, hi))) for a in range(lo, hi, _BLOCK))

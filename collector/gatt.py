@@ -34,6 +34,7 @@ from __future__ import annotations
 import math
 import struct
 from dataclasses import dataclass
+from typing import Literal
 
 BASE_UUID = "-0000-1000-8000-00805f9b34fb"
 
@@ -141,7 +142,7 @@ def decode_field(data: bytes, field: FieldLayout) -> float | None:
         raise GattError(f"{field.quantity} at offset {field.offset} ({field.type}) needs {end} bytes, "
                         f"the value has {len(data)}")
     raw = data[field.offset:end]
-    order = "big" if field.big_endian else "little"
+    order: Literal["big", "little"] = "big" if field.big_endian else "little"
     if field.type == "f32":
         x = struct.unpack(">f" if field.big_endian else "<f", raw)[0]
         return None if not math.isfinite(x) else x * field.scale

@@ -349,7 +349,9 @@ class Store:
             rows = per_channel[name]
             overlapping = any(rows[i][1] <= rows[i - 1][2] for i in range(1, len(rows)))
             if overlapping:
-                pieces.extend((code, t, v) for t, v in [_merge_overlapping(rows, s_us, e_us)] if len(t))
+                t, merged = _merge_overlapping(rows, s_us, e_us)
+                if len(t):
+                    pieces.append((code, t, list[np.ndarray | None](merged)))
                 continue
             for n, _first, _last, tb, *vb in rows:
                 t = np.frombuffer(tb, dtype="<i8")
@@ -438,6 +440,7 @@ class Store:
             " VALUES (?,?,?,?,?,?)",
             (path, sha256, int(rows_stored), int(rows_rejected),
              time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()), json.dumps(summary, default=str)))
+        assert cur.lastrowid is not None  # an INSERT always sets it
         return int(cur.lastrowid)
 
     def update_import(self, import_id: int, *, rows_stored: int, rows_rejected: int,

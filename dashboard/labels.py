@@ -8,6 +8,7 @@ local time with its zone. JSON keeps the machine forms and UTC ISO 8601.
 from __future__ import annotations
 
 import re
+from collections.abc import Callable
 from typing import Any
 
 #: Chemistry names as the trade writes them.
@@ -16,16 +17,19 @@ CHEMISTRY: dict[str, str] = {"lifepo4": "LiFePO4", "agm": "AGM", "gel": "gel", "
 MONTHS: tuple[str, ...] = ("January", "February", "March", "April", "May", "June", "July", "August",
                            "September", "October", "November", "December")
 
-_UNITS = [(re.compile(r"(\d)\s*degC\b"), "\\1 °C"), (re.compile(r"\bdegC\b"), "°C"),
-          (re.compile(r"(\d)\s*mm2\b"), "\\1 mm²"), (re.compile(r"\bmm2\b"), "mm²"),
-          (re.compile(r"\bWm2\b"), "W/m²"), (re.compile(r"\bkWh/m2\b"), "kWh/m²"),
-          (re.compile(r"\bmOhm\b"), "mΩ"), (re.compile(r"\blifepo4\b"), "LiFePO4"),
-          # 'N thing(s)': singular for exactly 1 (not 0.1 or 21), plural otherwise; other words are left alone.
-          (re.compile(r"(?<![\d.,])1 (\w+)\(s\)"), "1 \\1"), (re.compile(r"(\d) (\w+)\(s\)"), "\\1 \\2s"),
-          (re.compile(r"\b(\w+)\(s\)"), "\\1s"),
-          (re.compile(r"(?<=\s)>=(?=\s)"), "≥"), (re.compile(r"(?<=\s)<=(?=\s)"), "≤"),
-          # 1500 W -> 1,500 W (a figure with a unit; dates and years carry none)
-          (re.compile(r"(?<![\d.,])(\d{4,})(?= ?(?:W|Wh|kWh|Ah|A|mAh)\b)"), lambda m: f"{int(m.group(1)):,}")]
+_Replacement = str | Callable[[re.Match[str]], str]
+_UNITS: list[tuple[re.Pattern[str], _Replacement]] = [
+    (re.compile(r"(\d)\s*degC\b"), "\\1 °C"), (re.compile(r"\bdegC\b"), "°C"),
+    (re.compile(r"(\d)\s*mm2\b"), "\\1 mm²"), (re.compile(r"\bmm2\b"), "mm²"),
+    (re.compile(r"\bWm2\b"), "W/m²"), (re.compile(r"\bkWh/m2\b"), "kWh/m²"),
+    (re.compile(r"\bmOhm\b"), "mΩ"), (re.compile(r"\blifepo4\b"), "LiFePO4"),
+    # 'N thing(s)': singular for exactly 1 (not 0.1 or 21), plural otherwise; other words are left alone.
+    (re.compile(r"(?<![\d.,])1 (\w+)\(s\)"), "1 \\1"), (re.compile(r"(\d) (\w+)\(s\)"), "\\1 \\2s"),
+    (re.compile(r"\b(\w+)\(s\)"), "\\1s"),
+    (re.compile(r"(?<=\s)>=(?=\s)"), "≥"), (re.compile(r"(?<=\s)<=(?=\s)"), "≤"),
+    # 1500 W -> 1,500 W (a figure with a unit; dates and years carry none)
+    (re.compile(r"(?<![\d.,])(\d{4,})(?= ?(?:W|Wh|kWh|Ah|A|mAh)\b)"), lambda m: f"{int(m.group(1)):,}")
+]
 
 
 def chemistry(name: str | None) -> str:
