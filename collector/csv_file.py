@@ -1113,6 +1113,21 @@ def _iso(us: int) -> str:
     return from_epoch_us(np.array([us]))[0].isoformat()
 
 
+def already_imported_result(path: Path, sha: str, previous: dict[str, Any], t0: float) -> ImportResult:
+    """The result for a file whose content (``sha``) the store already holds: nothing added,
+    the earlier import's summary repeated (any importer: text or Parquet)."""
+    s = previous["summary"] or {}
+    return ImportResult(
+        path=str(path), rows_stored=0, rows_rejected=0, rejected_by_reason={}, already_imported=True,
+        channels=list(s.get("channels", [])), sign_inverted=list(s.get("sign_inverted", [])),
+        sample_interval_s=s.get("sample_interval_s"), gaps=[], quarantine=s.get("quarantine"),
+        data_lines=int(s.get("data_lines", 0)), time_span=s.get("time_span"), sha256=sha,
+        timezone_used=s.get("timezone_used"), seconds=_time.perf_counter() - t0,
+        rows_already_held=int(previous["rows_stored"]), rows_added=0,
+        previous_import={"path": previous["path"], "imported_at": previous["imported_at"],
+                         "rows_stored": previous["rows_stored"], "rows_rejected": previous["rows_rejected"]})
+
+
 def import_file(path: Path, store: Store, *, tz: str | None = None, channel: str | None = None,
                 column_map: dict[str, ColumnSpec] | None = None, invert: Iterable[str] = (),
                 nominal_voltage_V: float | None = None,
@@ -1164,16 +1179,7 @@ def import_file(path: Path, store: Store, *, tz: str | None = None, channel: str
     sha = _sha256(path)
     previous = store.find_import(sha)
     if previous is not None:
-        s = previous["summary"] or {}
-        return ImportResult(
-            path=str(path), rows_stored=0, rows_rejected=0, rejected_by_reason={}, already_imported=True,
-            channels=list(s.get("channels", [])), sign_inverted=list(s.get("sign_inverted", [])),
-            sample_interval_s=s.get("sample_interval_s"), gaps=[], quarantine=s.get("quarantine"),
-            data_lines=int(s.get("data_lines", 0)), time_span=s.get("time_span"), sha256=sha,
-            timezone_used=s.get("timezone_used"), seconds=_time.perf_counter() - t0,
-            rows_already_held=int(previous["rows_stored"]), rows_added=0,
-            previous_import={"path": previous["path"], "imported_at": previous["imported_at"],
-                             "rows_stored": previous["rows_stored"], "rows_rejected": previous["rows_rejected"]})
+        return already_imported_result(path, sha, previous, t0)
     with open(path, "rb") as f:
         head = f.read(HEAD_BYTES)
     encoding, line_ends = _text_shape(head)

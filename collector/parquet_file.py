@@ -68,6 +68,7 @@ from drawdown.collector.csv_file import (
     NothingStored,
     UnusableInput,
     _already_held,
+    already_imported_result,
     _bounds,
     _dt_to_us,
     _epoch_to_us,
@@ -517,16 +518,7 @@ def _import_parquet(path: Path, store: Store, *, tz: str | None, channel: str | 
     sha = _sha256(path)
     previous = store.find_import(sha)
     if previous is not None:
-        s = previous["summary"] or {}
-        return ImportResult(
-            path=str(path), rows_stored=0, rows_rejected=0, rejected_by_reason={}, already_imported=True,
-            channels=list(s.get("channels", [])), sign_inverted=list(s.get("sign_inverted", [])),
-            sample_interval_s=s.get("sample_interval_s"), gaps=[], quarantine=s.get("quarantine"),
-            data_lines=int(s.get("data_lines", 0)), time_span=s.get("time_span"), sha256=sha,
-            timezone_used=s.get("timezone_used"), seconds=_time.perf_counter() - t0,
-            rows_already_held=int(previous["rows_stored"]), rows_added=0,
-            previous_import={"path": previous["path"], "imported_at": previous["imported_at"],
-                             "rows_stored": previous["rows_stored"], "rows_rejected": previous["rows_rejected"]})
+        return already_imported_result(path, sha, previous, t0)
     pf = _open(path)
     meta = _metadata(pf)
     kind = meta.get(META_KIND)
