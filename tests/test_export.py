@@ -26,21 +26,11 @@ from drawdown.analysis.system import parse_system
 from drawdown.cli import main
 from drawdown.cli.commands import export as export_cmd
 from drawdown.collector.store import Store
+from systems import OSLO_LFP_SYSTEM
 
 DOCS = Path(__file__).resolve().parent.parent / "docs" / "export.md"
 TZ = "Africa/Casablanca"
 
-OSLO_SYSTEM = """
-[site]
-latitude_deg = 61.2
-longitude_deg = 7.1
-timezone = "Europe/Oslo"
-[battery]
-chemistry = "lifepo4"
-nominal_voltage_V = 12.8
-rated_capacity_Ah = 200
-rated_hours = 20
-"""
 
 
 def run_json(capsys, argv: list[str]) -> tuple[int, dict]:
@@ -297,7 +287,7 @@ def _foreign(tmp_path: Path, time_col: str, times) -> Path:
 def test_a_foreign_parquet_with_other_column_names_imports(tmp_path, capsys, time_col, times):
     folder = tmp_path / "site"
     folder.mkdir()
-    (folder / "system.toml").write_text(OSLO_SYSTEM, encoding="utf-8")
+    (folder / "system.toml").write_text(OSLO_LFP_SYSTEM, encoding="utf-8")
     path = _foreign(tmp_path, time_col, times)
     code, imp = run_json(capsys, [*_base(folder), "import", str(path), "--json"])
     assert code == 0
@@ -344,7 +334,7 @@ def test_a_parquet_with_bad_rows_counts_them_and_keeps_them_aside(tmp_path, caps
     df.to_parquet(path)
     folder = tmp_path / "site"
     folder.mkdir()
-    (folder / "system.toml").write_text(OSLO_SYSTEM, encoding="utf-8")
+    (folder / "system.toml").write_text(OSLO_LFP_SYSTEM, encoding="utf-8")
     code, imp = run_json(capsys, [*_base(folder), "import", str(path), "--json"])
     assert code == 0
     e = imp["files"][0]
@@ -377,7 +367,7 @@ def test_a_parquet_whose_every_row_is_rejected_stores_nothing_and_exits_2(tmp_pa
 def test_events_export_has_the_gaps_of_a_foreign_log(tmp_path, capsys):
     folder = tmp_path / "site"
     folder.mkdir()
-    (folder / "system.toml").write_text(OSLO_SYSTEM, encoding="utf-8")
+    (folder / "system.toml").write_text(OSLO_LFP_SYSTEM, encoding="utf-8")
     t = pd.date_range("2025-06-01 10:00", periods=300, freq="1min", tz="UTC")
     t = t[(t < "2025-06-01T12:00Z") | (t >= "2025-06-01T13:00Z")]  # an hour lost
     pd.DataFrame({"time": t, "current_A": -2.0, "voltage_V": 13.1}).to_parquet(tmp_path / "gap.parquet")

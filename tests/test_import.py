@@ -21,20 +21,10 @@ from drawdown.collector.columns import parse_map_option
 from drawdown.collector.csv_file import UnusableInput, import_file
 from drawdown.collector.store import Store
 from drawdown.cli import main
+from systems import OSLO_LFP_SYSTEM
 
 LOGS = Path(__file__).resolve().parent.parent / "fixtures" / "logs"
 
-SYSTEM_TOML = """
-[site]
-latitude_deg = 61.2
-longitude_deg = 7.1
-timezone = "Europe/Oslo"
-[battery]
-chemistry = "lifepo4"
-nominal_voltage_V = 12.8
-rated_capacity_Ah = 200
-rated_hours = 20
-"""
 
 
 @pytest.fixture()
@@ -367,7 +357,7 @@ def test_cli_unknown_timezone_exits_two(tmp_path, capsys):
 
 
 def test_cli_uses_system_timezone_and_nominal_voltage(tmp_path, capsys):
-    (tmp_path / "system.toml").write_text(SYSTEM_TOML)
+    (tmp_path / "system.toml").write_text(OSLO_LFP_SYSTEM)
     code, out, _ = _run(capsys, "--store", str(tmp_path / "s.sqlite"), "import", "--json",
                         str(LOGS / "semicolon_decimal_comma_mA_local.csv"))
     f = json.loads(out)["files"][0]

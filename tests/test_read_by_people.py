@@ -14,19 +14,9 @@ import re
 import pytest
 
 from drawdown.cli import main
+from systems import OSLO_LFP_SYSTEM
 from test_dashboard_figures import build_demo_store
 
-OSLO_SYSTEM = """
-[site]
-latitude_deg = 61.2
-longitude_deg = 7.1
-timezone = "Europe/Oslo"
-[battery]
-chemistry = "lifepo4"
-nominal_voltage_V = 12.8
-rated_capacity_Ah = 200
-rated_hours = 20
-"""
 #: The trade's spelling, never the machine's, in text a person reads.
 MACHINE_WORDS = ("degC", "mm2", "mOhm", "lifepo4", "(s)", "header lines", "1 gaps", "1 files")
 LOCAL = re.compile(r"\d{4}-\d{2}-\d{2} \d{2}:\d{2}(:\d{2})? CES?T")
@@ -79,7 +69,7 @@ def test_status_without_a_system_says_its_times_are_utc(demo, tmp_path, capsys):
 
 
 def test_import_summary_says_local_time_with_its_zone_and_one_header_line(tmp_path, capsys):
-    (tmp_path / "system.toml").write_text(OSLO_SYSTEM, encoding="utf-8")
+    (tmp_path / "system.toml").write_text(OSLO_LFP_SYSTEM, encoding="utf-8")
     log = _gappy_log(tmp_path / "gappy.csv")
     rc, out, _ = _run(capsys, "--store", str(tmp_path / "r.sqlite"), "--system", str(tmp_path / "system.toml"),
                       "import", str(log))
