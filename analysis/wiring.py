@@ -288,6 +288,21 @@ def smallest_standard_fuse_A(current_A: float) -> float | None:
 CircuitKind = Literal["charging", "critical", "non-critical"]
 
 DROP_LIMIT_PCT: dict[str, float] = {"charging": 3.0, "critical": 3.0, "non-critical": 10.0}
+
+
+def circuit_for_drop(max_drop_pct: float) -> tuple[CircuitKind, float | None]:
+    """A drop limit as given by a person -> (circuit, override) for :func:`size_run`.
+
+    A limit that is a circuit's standard one (3 % critical, 10 % non-critical) names that
+    circuit and its source; any other is a critical circuit with the limit as given.
+    """
+    if max_drop_pct == DROP_LIMIT_PCT["critical"]:
+        return "critical", None
+    if max_drop_pct == DROP_LIMIT_PCT["non-critical"]:
+        return "non-critical", None
+    return "critical", max_drop_pct
+
+
 DROP_LIMIT_SOURCE: dict[str, str] = {
     "charging": "3 %: charging circuits 1-3 % (common practice); drawdown uses the upper end",
     "critical": "3 %: panelboard feeders and vital loads (ISO 10133; ABYC E-11)",

@@ -117,7 +117,9 @@ def wire(*, current_A: float, length_m: float, voltage_V: float, max_drop_pct: f
     ``length_m`` is one way. The fuse never exceeds what the chosen cable carries. Follow local
     codes and have a qualified installer check the result.
     """
-    from drawdown.analysis.wiring import size_run
+    from drawdown.analysis.wiring import circuit_for_drop, size_run
 
-    return size_run(current_A, length_m, voltage_V, max_drop_pct=max_drop_pct, insulation_C=insulation_C,
-                    conductor_temperature_C=conductor_temperature_C, bundled=bundled, engine_space=engine_space)
+    circuit, drop = circuit_for_drop(max_drop_pct)  # as `drawdown wire --max-drop` reads it
+    return size_run(current_A, length_m, voltage_V, name="run", max_drop_pct=drop, circuit=circuit,
+                    insulation_C=insulation_C, conductor_temperature_C=conductor_temperature_C, bundled=bundled,
+                    engine_space=engine_space)

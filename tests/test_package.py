@@ -156,3 +156,14 @@ def test_a_collector_only_install_collects_without_the_analysis_or_dashboard(tmp
     (ROOT / "artifacts" / "collector-only-install.json").write_text(json.dumps(figures, indent=2) + "\n")
     print(f"collector-only install: {figures}", file=sys.stderr)
     assert rss_kib > 0
+
+
+@pytest.mark.parametrize("max_drop", [3.0, 10.0, 5.0])
+def test_drawdown_wire_is_the_same_answer_as_the_wire_command(max_drop, capsys):
+    from drawdown.cli import main
+
+    assert main(["wire", "--current", "60", "--length", "4", "--voltage", "12", "--max-drop", f"{max_drop:g}",
+                 "--json"]) == 0
+    cli = json.loads(capsys.readouterr().out)
+    api = json.loads(json.dumps(drawdown.wire(current_A=60, length_m=4, voltage_V=12, max_drop_pct=max_drop).to_json()))
+    assert api == cli

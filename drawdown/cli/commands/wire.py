@@ -15,13 +15,9 @@ from __future__ import annotations
 
 import argparse
 import math
-from typing import TYPE_CHECKING
 
 from drawdown.dashboard import labels
 from drawdown.cli.context import UsageError, print_json
-
-if TYPE_CHECKING:
-    from drawdown.analysis.wiring import CircuitKind
 
 NAME = "wire"
 HELP = "size one cable run: cross-section, voltage drop, fuse"
@@ -58,7 +54,7 @@ def _check(option: str, value: float, *, low: float = 0.0, high: float = math.in
 
 
 def run(args, ctx) -> int:
-    from drawdown.analysis.wiring import size_run
+    from drawdown.analysis.wiring import circuit_for_drop, size_run
 
     _check("--current", args.current, high=5000)
     _check("--length", args.length, high=1000)
@@ -73,14 +69,7 @@ def run(args, ctx) -> int:
     if args.ambient >= args.insulation:
         raise UsageError(f"--ambient {args.ambient:g}: must be below the insulation rating "
                          f"(--insulation {args.insulation}); choose a higher-rated insulation")
-    circuit: CircuitKind
-    drop: float | None
-    if args.max_drop == 3.0:
-        circuit, drop = "critical", None
-    elif args.max_drop == 10.0:
-        circuit, drop = "non-critical", None
-    else:
-        circuit, drop = "critical", args.max_drop
+    circuit, drop = circuit_for_drop(args.max_drop)
     try:
         r = size_run(args.current, args.length, args.voltage, name="run", max_drop_pct=drop, circuit=circuit,
                      insulation_C=args.insulation, conductor_temperature_C=args.ambient,
