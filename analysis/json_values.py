@@ -6,8 +6,8 @@ import math
 from typing import Any
 
 
-def rounded(x: Any, nd: int) -> Any:
-    """``x`` rounded to ``nd`` decimals; None for None, NaN or infinity; non-numbers unchanged.
+def finite(x: Any) -> Any:
+    """``x`` as a float at full precision; None for None, NaN or infinity; non-numbers unchanged.
 
     Report JSON carries ``null`` where a value is unknown (never NaN, which is not JSON).
     """
@@ -17,7 +17,13 @@ def rounded(x: Any, nd: int) -> Any:
         xf = float(x)
     except (TypeError, ValueError):
         return x
-    return round(xf, nd) if math.isfinite(xf) else None
+    return xf if math.isfinite(xf) else None
+
+
+def rounded(x: Any, nd: int) -> Any:
+    """``x`` rounded to ``nd`` decimals; None for None, NaN or infinity; non-numbers unchanged."""
+    v = finite(x)
+    return round(v, nd) if isinstance(v, float) else v
 
 
 def json_ready(obj: Any, nd: int = 3) -> Any:

@@ -17,7 +17,6 @@ Everything that cannot be estimated is ``None`` with a sibling ``*_why``.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field, replace
 from collections.abc import Callable
 from typing import Any
@@ -44,7 +43,7 @@ from drawdown.analysis.readings import US_PER_S, split_channels
 from drawdown.analysis.runtime import RuntimeEstimate, runtime_left
 from drawdown.analysis.soc_band import capacity_range_Ah, soc_band_pct
 from drawdown.analysis.solar import SolarAnalysis, analyse_solar
-from drawdown.analysis.json_values import json_ready
+from drawdown.analysis.json_values import finite, json_ready
 from drawdown.analysis.system import System
 
 #: Days whose mean |our SoC - device SoC| exceeds this are flagged [%].
@@ -69,15 +68,8 @@ PLOT_POINTS: int = 2000
 JSON_DECIMALS: int = 3
 
 
-def _v(x: Any) -> Any:
-    """A number at full precision, or None where it is not finite (NaN is not JSON); rounding is the faces' job."""
-    if x is None:
-        return None
-    try:
-        xf = float(x)
-    except (TypeError, ValueError):
-        return x
-    return xf if math.isfinite(xf) else None
+#: A number at full precision, or None where it is not finite (NaN is not JSON); rounding is ``to_json``'s job.
+_v = finite
 
 
 @dataclass(frozen=True)
