@@ -76,3 +76,22 @@ def test_quiet_draws_no_bar(small_store):
 def test_no_bar_when_stderr_is_not_a_terminal(small_store):
     r = subprocess.run([*small_store, "report"], capture_output=True, text=True, cwd=ROOT)
     assert r.returncode == 0 and "analysing" not in r.stderr and "\r" not in r.stderr
+
+
+def test_a_big_import_draws_a_byte_bar_and_quiet_silences_it(tmp_path):
+    from drawdown.cli.commands.import_logs import PROGRESS_MIN_BYTES
+
+    log = tmp_path / "big.csv"
+    n = PROGRESS_MIN_BYTES // 23 + 1000  # 24 bytes a line: just over the size that gets a bar
+    t0 = 1_780_000_000
+    with open(log, "w") as f:
+        f.write("time,battery_voltage_V,battery_current_A\n")
+        f.writelines(f"{t0 + 2 * k},{13.0 + (k % 7) * 0.01:.3f},{-3.0 - (k % 5) * 0.1:.2f}\n" for k in range(n))
+    assert log.stat().st_size >= PROGRESS_MIN_BYTES
+    base = [sys.executable, "-m", "drawdown"]
+    rc, out, term = _run_with_terminal_stderr([*base, "--store", str(tmp_path / "a.sqlite"), "import", str(log)])
+    assert rc == 0, term
+    assert "big.csv" in term and "B/s" in term  # tqdm's byte bar with its rate
+    rc, out, term = _run_with_terminal_stderr([*base, "--quiet", "--store", str(tmp_path / "b.sqlite"), "import",
+                                               str(log)])
+    assert rc == 0 and "B/s" not in term

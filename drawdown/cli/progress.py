@@ -45,3 +45,21 @@ def stages(desc: str, names: list[str]) -> Iterator[Any]:
 
         yield step
         b.update(len(names) - b.n)
+
+
+class ByteBar:
+    """A bar over a file's bytes for an importer's ``progress(done, total)`` callback; ``close()`` it.
+
+    Files under ``min_bytes`` get no bar (they are done before one would help).
+    """
+
+    def __init__(self, label: str, total: int, *, min_bytes: int = 0) -> None:
+        self._bar = bar(total, label, unit="B", scale=True) if total >= min_bytes else None
+
+    def __call__(self, done: int, total: int) -> None:
+        if self._bar is not None:
+            self._bar.update(max(done - self._bar.n, 0))
+
+    def close(self) -> None:
+        if self._bar is not None:
+            self._bar.close()

@@ -10,8 +10,6 @@ from __future__ import annotations
 import argparse
 import errno
 import sqlite3
-import sys
-import time
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
@@ -20,6 +18,7 @@ from drawdown.collector.columns import ColumnSpec, normalise_channel, parse_map_
 
 if TYPE_CHECKING:
     from drawdown.collector.csv_file import ImportResult
+from drawdown.cli.progress import ByteBar
 from drawdown.cli.context import Context, UsageError, print_json, warn
 from drawdown.dashboard.labels import local_time, plural
 
@@ -39,37 +38,8 @@ def add_arguments(s: argparse.ArgumentParser) -> None:
     s.add_argument("--json", action="store_true")
 
 
+#: Files smaller than this import too fast for a bar to help [bytes].
 PROGRESS_MIN_BYTES = 16 << 20
-
-
-class _Progress:
-    """A one-line progress bar on stderr, shown only for big files on a terminal."""
-
-    def __init__(self, label: str, total: int):
-        self.label = label
-        self.total = max(total, 1)
-        self.shown = sys.stderr.isatty() and total >= PROGRESS_MIN_BYTES
-        self.t0 = time.perf_counter()
-        self.last = 0.0
-
-    def __call__(self, done: int, total: int) -> None:
-        if not self.shown:
-            return
-        now = time.perf_counter()
-        if now - self.last < 0.2 and done < total:
-            return
-        self.last = now
-        frac = min(done / self.total, 1.0)
-        width = 30
-        bar = "#" * int(frac * width) + "-" * (width - int(frac * width))
-        rate = done / max(now - self.t0, 1e-9) / 1e6
-        sys.stderr.write(f"\r{self.label} [{bar}] {100 * frac:5.1f} % {rate:6.1f} MB/s")
-        sys.stderr.flush()
-
-    def close(self) -> None:
-        if self.shown:
-            sys.stderr.write("\n")
-            sys.stderr.flush()
 
 
 def _column_map(options: list[str]) -> dict[str, ColumnSpec]:
@@ -180,7 +150,7 @@ def run(args: Any, ctx: Context) -> int:
                 size = path.stat().st_size
             except OSError:
                 size = 0
-            bar = _Progress(path.name, size)
+            bar = ByteBar(path.name, size, min_bytes=PROGRESS_MIN_BYTES)
             try:
                 r = import_log(path, store, tz=tz, channel=channel, column_map=column_map,
                                                  invert=invert, nominal_voltage_V=nominal, progress=bar)
