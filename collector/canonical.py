@@ -18,8 +18,12 @@ soc_pct     the device's own state of charge [%], never trusted as truth
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
-import pandas as pd
+
+if TYPE_CHECKING:  # pandas loads on first use: an import that only parses and stores never needs it
+    import pandas as pd
 
 VALUE_COLUMNS: tuple[str, ...] = ("voltage_V", "current_A", "temperature_C", "soc_pct")
 COLUMNS: tuple[str, ...] = ("t", "channel", *VALUE_COLUMNS)
@@ -29,6 +33,8 @@ CHARGE_SOURCES: tuple[str, ...] = ("solar", "alternator", "shore")
 
 def empty_frame() -> pd.DataFrame:
     """A canonical frame with no rows but the right dtypes."""
+    import pandas as pd
+
     return pd.DataFrame(
         {
             "t": pd.Series([], dtype="datetime64[us, UTC]"),
@@ -40,6 +46,8 @@ def empty_frame() -> pd.DataFrame:
 
 def to_epoch_us(t: pd.Series | pd.DatetimeIndex | np.ndarray) -> np.ndarray:
     """UTC timestamps as int64 microseconds since 1970 (unit-safe under pandas 2 and 3)."""
+    import pandas as pd
+
     idx = pd.DatetimeIndex(t)
     if idx.tz is None:
         raise ValueError("timestamps must be timezone-aware (UTC inside, local only at the edges)")
@@ -47,4 +55,6 @@ def to_epoch_us(t: pd.Series | pd.DatetimeIndex | np.ndarray) -> np.ndarray:
 
 
 def from_epoch_us(us: np.ndarray) -> pd.DatetimeIndex:
+    import pandas as pd
+
     return pd.DatetimeIndex(np.asarray(us, dtype="int64").view("datetime64[us]")).tz_localize("UTC")

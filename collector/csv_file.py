@@ -58,18 +58,22 @@ import tempfile
 import time as _time
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
+from datetime import datetime, timedelta, timezone
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.csv as pcsv
 
-from drawdown.collector.canonical import CHARGE_SOURCES, VALUE_COLUMNS, from_epoch_us
+from drawdown.collector.canonical import CHARGE_SOURCES
 from drawdown.collector.columns import ColumnSpec, classify_column, normalise_channel
+from drawdown.collector import import_finish
 from drawdown.collector.store import Store
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 __all__ = ["UnusableInput", "NothingStored", "ImportResult", "Gap", "import_file", "detect_sign_inversion",
            "sniff_format", "FileFormat", "BLOCK_BYTES"]
@@ -79,8 +83,8 @@ SLOW_PIECE_BYTES = 32 << 10     # a failing piece this small goes to the careful
 HEAD_BYTES = 256 << 10          # bytes read for detection
 DETECT_LINES = 100              # lines used for detection
 GAP_FACTOR = 5.0                # a gap is longer than this many median sample intervals
-MAX_GAPS_LISTED = 500
-SIGN_SAMPLE_ROWS = 1_000_000    # rows used to decide a channel's sign
+MAX_GAPS_LISTED = import_finish.MAX_GAPS_LISTED
+SIGN_SAMPLE_ROWS = import_finish.SIGN_SAMPLE_ROWS
 NULL_VALUES = ["", "nan", "NaN", "NAN", "NA", "N/A", "n/a", "null", "NULL", "None", "-", "--"]
 _DELIMS = ["\t", ";", ",", "|"]
 _LOCAL_FORMATS = [  # (strptime format, regex it must match) for local wall-clock text
@@ -109,8 +113,10 @@ _RE_CONTROL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f]")
 #: earliest date the FAT file system of an SD card or a DOS-era PC can even stamp, and later
 #: than 1970-01-01, the Unix epoch, which is what a logger whose clock was never set (or lost
 #: its backup cell) writes. Anything earlier is not a real reading time.
-TIME_MIN = pd.Timestamp("1980-01-01", tz="UTC")
-_TIME_MIN_US = int(TIME_MIN.value // 1000)
+TIME_MIN = datetime(1980, 1, 1, tzinfo=timezone.utc)
+_TIME_MIN_US = int(TIME_MIN.timestamp()) * 1_000_000
+# pandas is loaded only where a careful (slow) path or local wall-clock times need it: a clean
+# file with UTC offsets or epoch times is parsed and stored by pyarrow and numpy alone.
 
 
 class UnusableInput(ValueError):
@@ -550,6 +556,8 @@ class _Localiser:
     def __call__(self, wall_us: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         if len(wall_us) == 0:
             return wall_us.copy(), np.zeros(0, bool), np.zeros(0, bool)
+        import pandas as pd
+
         idx = pd.DatetimeIndex(wall_us.view("M8[us]"))
         try:
             loc = idx.tz_localize(self.tz, ambiguous="raise", nonexistent="raise")
@@ -688,6 +696,8 @@ class _Parser:
         lines = text.split("\n")
         if block.endswith(b"\n"):
             lines = lines[:-1]
+        import pandas as pd
+
         s = pd.Series(lines, dtype=object).str.rstrip("\r")
         line_no = np.arange(first_line, first_line + len(s), dtype=np.int64)
         stripped = s.str.strip()
@@ -890,6 +900,8 @@ def _to_datetime(text: pd.Series, **kw: Any) -> pd.Series:
     offsets, a year it cannot hold); then each value is parsed on its own, so one odd line
     is rejected as ``bad_time`` instead of failing the import.
     """
+    import pandas as pd
+
     try:
         return pd.to_datetime(text, errors="coerce", **kw)
     except (ValueError, OverflowError, TypeError):
@@ -914,6 +926,8 @@ def _to_datetime(text: pd.Series, **kw: Any) -> pd.Series:
 
 
 def _dt_to_us(p: pd.DatetimeIndex | pd.Series) -> np.ndarray:
+    import pandas as pd
+
     idx = pd.DatetimeIndex(p)
     if idx.tz is not None:
         idx = idx.tz_convert("UTC").tz_localize(None)
@@ -1072,15 +1086,6 @@ def _fetch_lines(path: Path, wanted: np.ndarray, encoding: str) -> dict[int, str
 _SLICE = 1 << 22  # rows per slice for whole-file array passes (bounded temporaries)
 
 
-def _strictly_increasing(t: np.ndarray) -> bool:
-    """All times strictly increasing, checked in slices so no full-length temporary is made."""
-    for s0 in range(0, len(t) - 1, _SLICE):
-        seg = t[s0:s0 + _SLICE + 1]
-        if not bool(np.all(seg[1:] > seg[:-1])):
-            return False
-    return True
-
-
 def _intervals(t: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
     """Median sample interval [us] and the gaps longer than GAP_FACTOR times it.
 
@@ -1110,7 +1115,8 @@ def _intervals(t: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
 
 
 def _iso(us: int) -> str:
-    return from_epoch_us(np.array([us]))[0].isoformat()
+    """ISO 8601 UTC text of epoch microseconds, as pandas.Timestamp.isoformat writes it."""
+    return (datetime(1970, 1, 1, tzinfo=timezone.utc) + timedelta(microseconds=int(us))).isoformat()
 
 
 def already_imported_result(path: Path, sha: str, previous: dict[str, Any], t0: float) -> ImportResult:
@@ -1170,16 +1176,10 @@ def import_file(path: Path, store: Store, *, tz: str | None = None, channel: str
     """
     t0 = _time.perf_counter()
     path = Path(path)
-    try:
-        size = path.stat().st_size
-    except OSError as exc:
-        raise UnusableInput(f"{path}: cannot read the file ({exc.strerror or exc})") from None
-    if path.is_dir():
-        raise UnusableInput(f"{path}: is a folder, not a log file")
-    sha = _sha256(path)
-    previous = store.find_import(sha)
-    if previous is not None:
-        return already_imported_result(path, sha, previous, t0)
+    begun = import_finish.begin(path, store, t0)
+    if begun.already is not None:
+        return begun.already
+    size, sha = begun.size, begun.sha256
     with open(path, "rb") as f:
         head = f.read(HEAD_BYTES)
     encoding, line_ends = _text_shape(head)
@@ -1389,105 +1389,24 @@ def _import_text(path: Path, src: Path, store: Store, *, head: bytes, size: int,
         raise UnusableInput(f"{path}: a header ({fmt.delimiter.join(fmt.header)!r}) but no data lines")
     t = t_g.view()
     values: dict[tuple[str, str], np.ndarray] = {k: g.view() for k, g in vals_g.items()}
-    lines_l = [lines_g.view()]
+    line = lines_g.view()
     del t_g, vals_g, lines_g
 
-    # order, duplicates
-    out_of_order = 0
-    if len(t) > 1 and not _strictly_increasing(t):
-        line = np.concatenate(lines_l)  # needed only to name duplicate lines
-        del lines_l
-        out_of_order = int(np.sum(t[1:] < np.maximum.accumulate(t)[:-1]))
-        order = np.argsort(t, kind="stable")
-        ts = t[order]
-        same = np.zeros(len(ts), bool)
-        same[1:] = ts[1:] == ts[:-1]
-        if same.any():
-            exact = same.copy()
-            for arr in values.values():
-                a = arr[order]
-                eq = np.zeros(len(a), bool)
-                eq[1:] = (a[1:] == a[:-1]) | (np.isnan(a[1:]) & np.isnan(a[:-1]))
-                exact &= eq
-            # a line equal in time to the first of its run but not in values is a conflict
-            dup_lines = line[order][same & exact]
-            conflict_lines = line[order][same & ~exact]
-            if dup_lines.size:
-                rejects.setdefault("duplicate", []).append(dup_lines)
-            if conflict_lines.size:
-                rejects.setdefault("duplicate_time", []).append(conflict_lines)
-        keep_idx = order[~same]
-        t = ts[~same]
-        del line
-        for k in list(values):
-            values[k] = values[k][keep_idx]
-    lines_l = None  # the time order is known now; line numbers are no longer needed
-    duplicates = sum(int(sum(len(a) for a in rejects.get(r, []))) for r in ("duplicate", "duplicate_time"))
-
-    by_reason = {why: int(sum(len(a) for a in arrs)) for why, arrs in sorted(rejects.items())}
-    by_reason = {k: v for k, v in by_reason.items() if v}
-    rows_rejected = sum(by_reason.values())
+    # order, duplicates; once in time order the line numbers are no longer needed
+    t, values, out_of_order = import_finish.order_axis(t, values, line, rejects)
+    del line
+    by_reason, rows_rejected, duplicates = import_finish.count_rejects(rejects)
     rows_stored = len(t)
-    assert_counts = rows_stored + rows_rejected == data_lines
-    if not assert_counts:  # a bug, never bad input: say so loudly rather than mis-count
-        raise RuntimeError(f"{path}: internal count mismatch: stored {rows_stored} + rejected "
-                           f"{rows_rejected} != data lines {data_lines}")
+    import_finish.check_counts(path, rows_stored, rows_rejected, data_lines)
     if rows_stored == 0:
         _refuse_all_rejected(path, src, store, sha=sha, data_lines=data_lines, by_reason=by_reason,
                              rejects=rejects, fmt=fmt, encoding=encoding, line_ends=line_ends,
                              header_lines=header_lines, blank_lines=blank_lines)
 
-    # sign
-    channels = sorted({ch for ch, _ in values})
-    forced = {normalise_channel(c) for c in invert}
-    inverted: list[str] = []
-    evidence: dict[str, str] = {}
-    for ch in channels:
-        cur = values.get((ch, "current_A"))
-        if cur is None:
-            continue
-        if ch in forced:
-            inverted.append(ch)
-            evidence[ch] = "inverted on request (--invert)"
-            continue
-        volt = values.get((ch, "voltage_V"), values.get(("battery", "voltage_V")))
-        k = min(len(t), SIGN_SAMPLE_ROWS)
-        flip, why = detect_sign_inversion(ch, t[:k], cur[:k], None if volt is None else volt[:k])
-        evidence[ch] = why
-        if flip:
-            inverted.append(ch)
-    for ch in inverted:
-        values[(ch, "current_A")] = -values[(ch, "current_A")]
-    unknown_forced = sorted(forced - set(channels))
-    for ch in unknown_forced:
-        evidence[ch] = f"--invert {ch}: no such channel in this file (channels: {', '.join(channels)})"
-
-    # readings the store already holds (the same data imported before from another file, e.g. a
-    # copy that differs only in line ends): kept out of the write, counted
-    write_mask: dict[str, np.ndarray] = {}
-    held_line = np.ones(len(t), bool)
-    any_value = np.zeros(len(t), bool)
-    for ch in channels:
-        cols = {q: values[(ch, q)] for q in VALUE_COLUMNS if (ch, q) in values}
-        has = np.zeros(len(t), bool)
-        for c in cols.values():
-            has |= ~np.isnan(c)
-        held = _already_held(store, ch, t, cols, has)
-        write_mask[ch] = has & ~held
-        held_line &= held | ~has
-        any_value |= has
-    rows_already_held = int(np.count_nonzero(held_line & any_value))
-
-    # intervals and gaps
-    interval = gaps_total = None
-    gaps: list[Gap] = []
-    if len(t) > 1:
-        med, big, big_dt = _intervals(t)
-        interval = med / 1e6
-        gaps_total = int(big.size)
-        for k, d in zip(big[:MAX_GAPS_LISTED], big_dt[:MAX_GAPS_LISTED]):
-            gaps.append(Gap(_iso(int(t[k])), _iso(int(t[k + 1])), float(d) / 1e6))
-    span = {"start": _iso(int(t[0])), "end": _iso(int(t[-1]))} if len(t) else None
+    axes: list[import_finish.Axis] = [(t, values)]
+    channels, inverted, evidence = import_finish.settle_signs(axes, invert)
+    writes, rows_already_held = import_finish.held_writes(store, axes)
+    interval, gaps_total, gaps, span = import_finish.time_facts(axes)
 
     quarantine = None
     if rows_rejected:
@@ -1495,10 +1414,10 @@ def _import_text(path: Path, src: Path, store: Store, *, head: bytes, size: int,
 
     result = ImportResult(
         path=str(path), rows_stored=rows_stored, rows_rejected=rows_rejected, rejected_by_reason=by_reason,
-        already_imported=False, channels=channels, sign_inverted=sorted(inverted),
+        already_imported=False, channels=channels, sign_inverted=inverted,
         sample_interval_s=interval, gaps=gaps, quarantine=quarantine, data_lines=data_lines,
         duplicates=duplicates, header_lines=header_lines, blank_lines=blank_lines,
-        preamble_lines=fmt.header_line - 1, out_of_order_rows=out_of_order, gaps_total=gaps_total or 0,
+        preamble_lines=fmt.header_line - 1, out_of_order_rows=out_of_order, gaps_total=gaps_total,
         time_span=span, timezone_used=tz_used if needs_tz else "UTC (offsets in the file)"
         if fmt.time_kind == "iso_utc" else "UTC (Unix epoch)",
         timezone_assumed=needs_tz and tz is None, sign_evidence=evidence,
@@ -1509,40 +1428,8 @@ def _import_text(path: Path, src: Path, store: Store, *, head: bytes, size: int,
         decimal=fmt.decimal, encoding=encoding or fmt.encoding, line_ends=line_ends, sha256=sha, seconds=None,
         rows_already_held=rows_already_held, rows_added=rows_stored - rows_already_held)
 
-    with store.transaction():
-        import_id = store.record_import(path=str(path), sha256=sha, rows_stored=rows_stored,
-                                        rows_rejected=rows_rejected, summary={})
-        for ch in channels:
-            cols = {q: values[(ch, q)] for q in VALUE_COLUMNS if (ch, q) in values}
-            new = write_mask[ch]
-            if new.all():
-                store.append_arrays(ch, t, cols, import_id=import_id)
-            elif new.any():
-                store.append_arrays(ch, t[new], {q: c[new] for q, c in cols.items()}, import_id=import_id)
-        if quarantine is not None:
-            _write_quarantine(Path(quarantine), src, rejects, fmt.encoding)
-        final = _replace(result, seconds=round(_time.perf_counter() - t0, 3))
-        store.update_import(import_id, rows_stored=rows_stored, rows_rejected=rows_rejected,
-                            summary=final.to_json())
-    return final
-
-
-def _already_held(store: Store, channel: str, t: np.ndarray, cols: dict[str, np.ndarray],
-                  has: np.ndarray) -> np.ndarray:
-    """Per row of ``t`` (sorted): True when the store already holds this channel's reading at that
-    time with every value the row has (a value the store lacks, or holds differently, is new)."""
-    out = np.zeros(len(t), bool)
-    if not has.any():
-        return out
-    held_t, held_v = store.held(channel, int(t[0]), int(t[-1]))
-    if held_t.size == 0:
-        return out
-    pos = np.minimum(np.searchsorted(held_t, t), held_t.size - 1)
-    out = (held_t[pos] == t) & has
-    for q, c in cols.items():
-        h = held_v[VALUE_COLUMNS.index(q)][pos]
-        out &= np.isnan(c) | (h == c)
-    return out
+    return import_finish.store_import(
+        store, result, writes, lambda out: _write_quarantine(out, src, rejects, fmt.encoding), t0)
 
 
 #: What to check when every line of a file was rejected for one of these reasons.

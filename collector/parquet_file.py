@@ -47,15 +47,13 @@ import re
 import time as _time
 from collections.abc import Callable, Iterable
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from drawdown.collector.canonical import VALUE_COLUMNS
 from drawdown.collector.columns import ColumnSpec, classify_column, normalise_channel
 from drawdown.collector.csv_file import (
     _ISO,
@@ -63,29 +61,23 @@ from drawdown.collector.csv_file import (
     _REASONS,
     NULL_VALUES,
     _TIME_MIN_US,
-    Gap,
     ImportResult,
     NothingStored,
     UnusableInput,
-    _already_held,
-    already_imported_result,
     _bounds,
     _dt_to_us,
     _epoch_to_us,
     _Grow,
-    _intervals,
-    _iso,
     _Localiser,
     _printable,
-    _replace,
-    _sha256,
     _time_kind,
     _to_datetime,
-    detect_sign_inversion,
-    MAX_GAPS_LISTED,
-    SIGN_SAMPLE_ROWS,
 )
+from drawdown.collector import import_finish
 from drawdown.collector.store import Store
+
+if TYPE_CHECKING:  # pandas loads only for text times or text values, not for typed columns
+    import pandas as pd
 
 __all__ = ["MAGIC", "META_KIND", "META_PRODUCER", "META_SCHEMA_VERSION", "META_TIMEZONE", "import_parquet",
            "is_parquet"]
@@ -305,6 +297,8 @@ def _plain(col: pa.Array | pa.ChunkedArray) -> pa.Array:
 
 def _text_series(col: pa.Array) -> pd.Series:
     """A text column as a pandas object Series of stripped strings (None where null)."""
+    import pandas as pd
+
     return pd.Series([None if v is None else str(v).strip() for v in _plain(col).to_pylist()], dtype=object)
 
 
@@ -338,6 +332,8 @@ def _batch_times(lay: _Layout, col: pa.Array, localise: _Localisers | None, grou
     # text, read as the CSV importer's careful path reads it
     kind, fmt, scale = lay.text_kind  # type: ignore[misc]
     ts = _text_series(col)
+    import pandas as pd
+
     if kind == "epoch":
         raw = pd.to_numeric(ts.str.replace(",", ".", regex=False), errors="coerce").to_numpy(dtype=np.float64)
         t_us, bad = _epoch_to_us(raw, scale)
@@ -391,7 +387,7 @@ class _Localisers:
               ) -> tuple[np.ndarray, np.ndarray]:
         ok = reason == 0
         out = wall_us.copy()
-        keys = [""] if groups is None else [str(g) for g in pd.unique(groups[ok])]
+        keys = [""] if groups is None else [str(g) for g in dict.fromkeys(groups[ok].tolist())]
         for key in keys:
             m = ok if groups is None else ok & (groups == key)
             if not m.any():
@@ -419,6 +415,8 @@ def _batch_values(col: pa.Array) -> tuple[np.ndarray, np.ndarray]:
     if _is_numeric(col.type):
         v = pc.cast(col, pa.float64()).to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
         return v, np.zeros(len(v), bool)
+    import pandas as pd
+
     s = _text_series(col)
     missing = s.isna().to_numpy() | s.isin(NULL_VALUES).to_numpy()
     text = s.where(~missing)
@@ -507,18 +505,12 @@ def _import_parquet(path: Path, store: Store, *, tz: str | None, channel: str | 
                     batch_rows: int) -> ImportResult:
     t0 = _time.perf_counter()
     path = Path(path)
-    try:
-        size = path.stat().st_size
-    except OSError as exc:
-        raise UnusableInput(f"{path}: cannot read the file ({exc.strerror or exc})") from None
-    if path.is_dir():
-        raise UnusableInput(f"{path}: is a folder, not a log file")
+    begun = import_finish.begin(path, store, t0)
+    if begun.already is not None:
+        return begun.already
+    size, sha = begun.size, begun.sha256
     if size == 0:
         raise UnusableInput(f"{path}: the file is empty; nothing to import")
-    sha = _sha256(path)
-    previous = store.find_import(sha)
-    if previous is not None:
-        return already_imported_result(path, sha, previous, t0)
     pf = _open(path)
     meta = _metadata(pf)
     kind = meta.get(META_KIND)
@@ -604,7 +596,7 @@ def _import_parquet(path: Path, store: Store, *, tz: str | None, channel: str | 
                                             for name, spec in lay.values.items()})
         else:
             kept_ch = ch_rows[keep]  # type: ignore[index]
-            for ch in pd.unique(kept_ch):
+            for ch in dict.fromkeys(kept_ch.tolist()):  # first-seen order
                 m = np.flatnonzero(keep)[kept_ch == ch]
                 st = sets.setdefault(ch, _Set(min(cap, len(m) + 16)))
                 st.add(rows[m], t_us[m], {(ch, spec.quantity): canon[name][m] for name, spec in lay.values.items()})
@@ -617,62 +609,26 @@ def _import_parquet(path: Path, store: Store, *, tz: str | None, channel: str | 
 
     # order and duplicates, per time axis
     out_of_order = 0
-    final: dict[str, tuple[np.ndarray, dict[tuple[str, str], np.ndarray]]] = {}
+    final: dict[str, import_finish.Axis] = {}
     for key, st in sets.items():
-        t = st.t.view()
-        cols = {k: g.view() for k, g in st.cols.items()}
-        if len(t) > 1 and not bool(np.all(t[1:] > t[:-1])):
-            rows = st.rows.view()
-            out_of_order += int(np.sum(t[1:] < np.maximum.accumulate(t)[:-1]))
-            order = np.argsort(t, kind="stable")
-            ts = t[order]
-            same = np.zeros(len(ts), bool)
-            same[1:] = ts[1:] == ts[:-1]
-            if same.any():
-                exact = same.copy()
-                for arr in cols.values():
-                    a = arr[order]
-                    eq = np.zeros(len(a), bool)
-                    eq[1:] = (a[1:] == a[:-1]) | (np.isnan(a[1:]) & np.isnan(a[:-1]))
-                    exact &= eq
-                if (same & exact).any():
-                    rejects.setdefault("duplicate", []).append(rows[order][same & exact])
-                if (same & ~exact).any():
-                    rejects.setdefault("duplicate_time", []).append(rows[order][same & ~exact])
-            keep_idx = order[~same]
-            t = ts[~same]
-            cols = {k: v[keep_idx] for k, v in cols.items()}
+        t, cols, late = import_finish.order_axis(st.t.view(), {k: g.view() for k, g in st.cols.items()},
+                                                 st.rows.view(), rejects)
+        out_of_order += late
         final[key] = (t, cols)
     del sets
-    duplicates = sum(int(sum(len(a) for a in rejects.get(r, []))) for r in ("duplicate", "duplicate_time"))
-    by_reason = {why: int(sum(len(a) for a in arrs)) for why, arrs in sorted(rejects.items())}
-    by_reason = {k: v for k, v in by_reason.items() if v}
-    rows_rejected = sum(by_reason.values())
+    by_reason, rows_rejected, duplicates = import_finish.count_rejects(rejects)
     rows_stored = sum(len(t) for t, _ in final.values())
-    if rows_stored + rows_rejected != data_lines:  # a bug, never bad input
-        raise RuntimeError(f"{path}: internal count mismatch: stored {rows_stored} + rejected "
-                           f"{rows_rejected} != rows {data_lines}")
+    import_finish.check_counts(path, rows_stored, rows_rejected, data_lines, "rows")
     if rows_stored == 0:
         _refuse_all_rejected(path, pf, store, sha=sha, data_lines=data_lines, by_reason=by_reason, rejects=rejects)
-
-    def bank_voltage(t: np.ndarray) -> np.ndarray | None:
-        """The battery channel's voltage at exactly these times (NaN where it has none), or None."""
-        for tb, cb in final.values():
-            vb = cb.get(("battery", "voltage_V"))
-            if vb is None:
-                continue
-            if tb is t:
-                return vb
-            pos = np.minimum(np.searchsorted(tb, t), max(len(tb) - 1, 0))
-            return np.where(tb[pos] == t, vb[pos], np.nan).astype(np.float32) if len(tb) else None
-        return None
+    axes = list(final.values())
 
     # power -> current where a channel has power but no current (collector.columns)
-    for key, (t, cols) in final.items():
+    for t, cols in axes:
         for ch in sorted({c for c, q in cols if q == "power_W"}):
             if (ch, "current_A") in cols:
                 continue
-            v_bank = bank_voltage(t)
+            v_bank = import_finish.bank_voltage(axes, t)
             if v_bank is None or not np.isfinite(v_bank).any():
                 v_bank = cols.get((ch, "voltage_V"))
             elif (ch, "voltage_V") in cols:
@@ -684,69 +640,10 @@ def _import_parquet(path: Path, store: Store, *, tz: str | None, channel: str | 
         for k in [k for k in cols if k[1] == "power_W"]:
             del cols[k]
 
-    # sign
-    channels = sorted({ch for _, cols in final.values() for ch, _ in cols})
-    forced = {normalise_channel(c) for c in invert}
-    inverted: list[str] = []
-    evidence: dict[str, str] = {}
-    for t, cols in final.values():
-        for ch in sorted({c for c, _ in cols}):
-            cur = cols.get((ch, "current_A"))
-            if cur is None:
-                continue
-            if ch in forced:
-                inverted.append(ch)
-                evidence[ch] = "inverted on request (--invert)"
-                continue
-            if own:
-                evidence[ch] = "a drawdown readings export is already in drawdown's sign convention"
-                continue
-            volt = cols.get((ch, "voltage_V"))
-            if volt is None:
-                volt = bank_voltage(t)
-            k_rows = min(len(t), SIGN_SAMPLE_ROWS)
-            flip, why = detect_sign_inversion(ch, t[:k_rows], cur[:k_rows],
-                                              None if volt is None else volt[:k_rows])
-            evidence[ch] = why
-            if flip:
-                inverted.append(ch)
-    for t, cols in final.values():
-        for ch in inverted:
-            if (ch, "current_A") in cols:
-                cols[(ch, "current_A")] = -cols[(ch, "current_A")]
-    for ch in sorted(forced - set(channels)):
-        evidence[ch] = f"--invert {ch}: no such channel in this file (channels: {', '.join(channels)})"
-
-    # readings the store already holds: kept out of the write, counted
-    writes: list[tuple[str, np.ndarray, dict[str, np.ndarray], np.ndarray]] = []
-    rows_already_held = 0
-    for t, cols in final.values():
-        held_line = np.ones(len(t), bool)
-        any_value = np.zeros(len(t), bool)
-        for ch in sorted({c for c, _ in cols}):
-            qcols = {q: cols[(ch, q)] for q in VALUE_COLUMNS if (ch, q) in cols}
-            has = np.zeros(len(t), bool)
-            for c in qcols.values():
-                has |= ~np.isnan(c)
-            held = _already_held(store, ch, t, qcols, has)
-            writes.append((ch, t, qcols, has & ~held))
-            held_line &= held | ~has
-            any_value |= has
-        rows_already_held += int(np.count_nonzero(held_line & any_value))
-
+    channels, inverted, evidence = import_finish.settle_signs(axes, invert, own=own)
+    writes, rows_already_held = import_finish.held_writes(store, axes)
     # intervals and gaps on the file's time axis (every channel's times together)
-    t_all = next(iter(final.values()))[0] if len(final) == 1 else np.unique(
-        np.concatenate([t for t, _ in final.values()]))
-    interval = None
-    gaps_total = 0
-    gaps: list[Gap] = []
-    if len(t_all) > 1:
-        med, big, big_dt = _intervals(t_all)
-        interval = med / 1e6
-        gaps_total = int(big.size)
-        for k, d in zip(big[:MAX_GAPS_LISTED], big_dt[:MAX_GAPS_LISTED]):
-            gaps.append(Gap(_iso(int(t_all[k])), _iso(int(t_all[k + 1])), float(d) / 1e6))
-    span = {"start": _iso(int(t_all[0])), "end": _iso(int(t_all[-1]))} if len(t_all) else None
+    interval, gaps_total, gaps, span = import_finish.time_facts(axes)
     quarantine = str(store.quarantine_dir / f"{path.stem}-{sha[:8]}.csv") if rows_rejected else None
 
     if lay.time_kind == "ts_utc" or (lay.time_kind == "text" and lay.text_kind and lay.text_kind[0] == "iso_utc"):
@@ -762,27 +659,14 @@ def _import_parquet(path: Path, store: Store, *, tz: str | None, channel: str | 
         described[name] = f"{spec.channel}.{spec.quantity}" if spec.channel else f"<channel>.{spec.quantity}"
     result = ImportResult(
         path=str(path), rows_stored=rows_stored, rows_rejected=rows_rejected, rejected_by_reason=by_reason,
-        already_imported=False, channels=channels, sign_inverted=sorted(set(inverted)),
+        already_imported=False, channels=channels, sign_inverted=inverted,
         sample_interval_s=interval, gaps=gaps, quarantine=quarantine, data_lines=data_lines,
         duplicates=duplicates, header_lines=0, blank_lines=0, preamble_lines=0, out_of_order_rows=out_of_order,
         gaps_total=gaps_total, time_span=span, timezone_used=tz_label, timezone_assumed=needs_tz and tz is None,
         sign_evidence=evidence, columns=described, columns_ignored=list(lay.ignored), sha256=sha, seconds=None,
         rows_already_held=rows_already_held, rows_added=rows_stored - rows_already_held)
 
-    with store.transaction():
-        import_id = store.record_import(path=str(path), sha256=sha, rows_stored=rows_stored,
-                                        rows_rejected=rows_rejected, summary={})
-        for ch, t, qcols, new in writes:
-            if new.all():
-                store.append_arrays(ch, t, qcols, import_id=import_id)
-            elif new.any():
-                store.append_arrays(ch, t[new], {q: c[new] for q, c in qcols.items()}, import_id=import_id)
-        if quarantine is not None:
-            _write_quarantine(Path(quarantine), pf, rejects)
-        final_result = _replace(result, seconds=round(_time.perf_counter() - t0, 3))
-        store.update_import(import_id, rows_stored=rows_stored, rows_rejected=rows_rejected,
-                            summary=final_result.to_json())
-    return final_result
+    return import_finish.store_import(store, result, writes, lambda out: _write_quarantine(out, pf, rejects), t0)
 
 
 def _refuse_all_rejected(path: Path, pf: pq.ParquetFile, store: Store, *, sha: str, data_lines: int,

@@ -30,12 +30,14 @@ import sqlite3
 import time
 from collections.abc import Iterable, Iterator
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pandas as pd
 
 from drawdown.collector.canonical import VALUE_COLUMNS, empty_frame, from_epoch_us, to_epoch_us
+
+if TYPE_CHECKING:  # pandas loads on first use (reading a frame back), not to open a store and write
+    import pandas as pd
 
 SCHEMA_VERSION = 1
 MAX_CHUNK = 86_400  # samples per chunk: one day at 1 Hz
@@ -76,11 +78,10 @@ CREATE TABLE IF NOT EXISTS events (
 """
 
 
-_EPOCH = pd.Timestamp(0, tz="UTC")
-
-
 def _utc_array(t_us: np.ndarray) -> pd.arrays.DatetimeArray:
     """int64 microseconds to a tz-aware array without a copy (0.4 ms vs 0.3 s for 8 M)."""
+    import pandas as pd
+
     return pd.arrays.DatetimeArray._simple_new(t_us.view("M8[us]"), dtype=pd.DatetimeTZDtype("us", "UTC"))
 
 
@@ -154,10 +155,12 @@ def _ro_uri(path: Path, *, immutable: bool = False) -> str:
 def _ts_us(value: Any) -> int | None:
     if value is None:
         return None
+    import pandas as pd
+
     ts = pd.Timestamp(value)
     if ts.tzinfo is None:
         ts = ts.tz_localize("UTC")
-    return int((ts.tz_convert("UTC") - _EPOCH) // pd.Timedelta(microseconds=1))
+    return int((ts.tz_convert("UTC") - pd.Timestamp(0, tz="UTC")) // pd.Timedelta(microseconds=1))
 
 
 class Store:
@@ -270,7 +273,7 @@ class Store:
         channels = frame["channel"].astype(str).to_numpy()
         written = 0
         with self.transaction():
-            for name in pd.unique(channels):
+            for name in dict.fromkeys(channels.tolist()):  # first-seen order, as pandas.unique
                 mask = channels == name
                 t = t_all[mask]
                 order = np.argsort(t, kind="stable")
@@ -376,6 +379,8 @@ class Store:
                 block[j, pos:pos + k] = np.nan if v is None else v
             pos += k
         # Build the frame around the arrays without copying them again.
+        import pandas as pd
+
         out = pd.DataFrame(block.T, columns=list(VALUE_COLUMNS), copy=False)
         out.insert(0, "channel", pd.Categorical.from_codes(codes, categories=names))
         out.insert(0, "t", _utc_array(t_out))
