@@ -51,7 +51,7 @@ import numpy as np
 import pandas as pd
 
 from drawdown.collector.canonical import VALUE_COLUMNS, from_epoch_us
-from drawdown.collector.store import MAX_CHUNK
+from drawdown.collector.store import MAX_CHUNK, decode_times
 
 _SUMMARY_SCHEMA = """
 CREATE TABLE IF NOT EXISTS summaries (
@@ -140,7 +140,7 @@ def summarise(t_us: np.ndarray, values: dict[str, np.ndarray], *, interval_s: in
 
 def _decode(rows: list[tuple]) -> tuple[np.ndarray, dict[str, np.ndarray]]:
     """Chunks (n, t, v, i, temp, soc blobs) in id order -> sorted, de-duplicated arrays."""
-    t = np.concatenate([np.frombuffer(r[1], dtype="<i8") for r in rows])
+    t = np.concatenate([decode_times(r[1], r[0]) for r in rows])
     vals = {}
     for j, col in enumerate(VALUE_COLUMNS):
         vals[col] = np.concatenate([np.frombuffer(r[2 + j], dtype="<f4").astype(np.float64)
@@ -246,14 +246,14 @@ def downsample(store: Any, *, keep_full_s: float, interval_s: int = 60, max_gap_
                 old = t < piece_end
                 # the reading after this piece, so the step to it is integrated
                 nxt = store.execute(
-                    "SELECT t, current_A FROM chunks WHERE channel = ? AND import_id IS NULL"
+                    "SELECT t_first_us, current_A FROM chunks WHERE channel = ? AND import_id IS NULL"
                     " AND t_first_us >= ? ORDER BY t_first_us, id LIMIT 1", (channel, piece_end)).fetchone()
                 next_t = next_i = None
                 if (~old).any():
                     k = int(np.argmax(~old))
                     next_t, next_i = int(t[k]), float(vals["current_A"][k])
                 elif nxt is not None:
-                    next_t = int(np.frombuffer(nxt[0], dtype="<i8")[0])
+                    next_t = int(nxt[0])  # a chunk's first time
                     next_i = float(np.frombuffer(nxt[1], dtype="<f4")[0]) if nxt[1] is not None else None
                 # the step into the kept window is credited to the last summarised interval;
                 # integrating the kept raw readings starts at their first one: nothing counted twice

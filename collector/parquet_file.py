@@ -542,16 +542,21 @@ def _import_parquet(path: Path, store: Store, *, tz: str | None, channel: str | 
         rows = np.arange(done + 1, done + n + 1, dtype=np.int64)
         ch_rows: np.ndarray | None = None
         if not wide:
-            raw = _plain(batch.column(lay.channel_col)).to_pylist()
-            names = []
-            for x in raw:
+            # a handful of distinct names over millions of rows: normalise each distinct text once
+            coded = pc.dictionary_encode(_plain(batch.column(lay.channel_col)))
+            uniq = []
+            for x in coded.dictionary.to_pylist():
                 if x not in chan_codes:
                     try:
                         chan_codes[x] = normalise_channel(str(x)) if x is not None and str(x).strip() else None
                     except ValueError:
                         chan_codes[x] = None
-                names.append(chan_codes[x])
-            ch_rows = np.array([c if c is not None else "" for c in names], dtype=object)
+                uniq.append(chan_codes[x] or "")
+            idx = coded.indices.to_numpy(zero_copy_only=False)
+            if coded.indices.null_count:  # a null channel: no name
+                uniq.append("")
+                idx = np.where(coded.indices.is_null().to_numpy(zero_copy_only=False), len(uniq) - 1, idx)
+            ch_rows = np.asarray(uniq, dtype=object)[np.asarray(idx, dtype=np.int64)]
         t_us, reason = _batch_times(lay, batch.column(lay.time_col), localise, ch_rows)
         if ch_rows is not None:
             reason[(reason == 0) & (ch_rows == "")] = _R["bad_channel"]

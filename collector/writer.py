@@ -42,6 +42,7 @@ import numpy as np
 
 from drawdown.collector.clock import ClockJump, HostClock
 from drawdown.collector.source import Reading
+from drawdown.collector.store import decode_times, encode_times
 
 log = logging.getLogger(__name__)
 
@@ -294,13 +295,13 @@ class BatchWriter:
                 with self.store.transaction():
                     for lo, hi, _started in ranges:
                         rows = self.store.execute(
-                            "SELECT id, t FROM chunks WHERE id BETWEEN ? AND ? AND import_id IS NULL",
+                            "SELECT id, n, t FROM chunks WHERE id BETWEEN ? AND ? AND import_id IS NULL",
                             (lo, hi)).fetchall()
-                        for cid, blob in rows:
-                            t = np.frombuffer(blob, dtype="<i8") + delta_us
+                        for cid, n, blob in rows:
+                            t = decode_times(blob, n) + delta_us
                             self.store.execute(
                                 "UPDATE chunks SET t = ?, t_first_us = ?, t_last_us = ? WHERE id = ?",
-                                (t.astype("<i8").tobytes(), int(t[0]), int(t[-1]), cid))
+                                (encode_times(t), int(t[0]), int(t[-1]), cid))
                             moved_store += len(t)
             except sqlite3.Error as exc:
                 self.note(f"clock jump of {jump.delta_s:+.1f} s: could not correct stored readings ({exc});"

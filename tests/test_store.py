@@ -116,3 +116,59 @@ def test_reimport_of_identical_content_under_another_name_adds_nothing(tmp_path)
         again = import_file(copy, st)
         assert st.find_import(first.sha256)["rows_stored"] == 5
         assert again.already_imported and len(st.read()) == 5 and len(st.imports()) == 1
+
+
+# -- the time codec (store schema version 2) ----------------------------------------------------
+
+_T0_US = 1_717_200_000_000_000  # 2024-06-01T00:00:00Z
+
+
+def _time_cases() -> dict[str, np.ndarray]:
+    rng = np.random.default_rng(7)
+    even = _T0_US + np.arange(86_400, dtype=np.int64) * 1_000_000
+    gaps = np.delete(even, np.r_[100:160, 5000:5003, 70_000:70_400])     # a logger that lost a few minutes
+    odd = even.copy()
+    odd[::997] += 250_000                                                 # a few late stamps
+    jitter = even + rng.integers(-40_000, 40_000, even.size)              # a host clock stamping at 1 Hz
+    irregular = _T0_US + np.cumsum(rng.integers(2_000_000, 60_000_000, 5000))  # 2-60 s, as some loggers
+    return {"even": even, "gaps": gaps, "odd": np.sort(odd), "jitter": np.sort(jitter),
+            "irregular": irregular, "one": even[:1], "two": even[:2], "three uneven": np.array([0, 5, 6]) + _T0_US}
+
+
+@pytest.mark.parametrize("name", list(_time_cases()))
+def test_time_blobs_decode_to_the_same_microseconds(name):
+    from drawdown.collector.store import decode_times, encode_times
+
+    t = _time_cases()[name]
+    blob = encode_times(t)
+    back = decode_times(blob, len(t))
+    assert back.dtype == np.int64 and np.array_equal(back, t)
+    if name == "even":
+        assert len(blob) == 16           # first time and step, not 691 kB
+    if name == "gaps":
+        assert len(blob) < 8 * len(t) / 20
+    if name in ("jitter", "irregular", "one", "two"):
+        assert len(blob) == 8 * len(t)   # the raw layout of schema version 1
+
+
+def test_a_version_1_store_with_raw_time_blobs_still_reads_and_takes_new_chunks(tmp_path):
+    import sqlite3
+
+    path = tmp_path / "v1.sqlite"
+    with Store(path) as st:
+        st.append(_frame(0, 10))
+    t_raw = (_T0_US + np.arange(10, 20, dtype=np.int64) * 1_000_000).astype("<i8").tobytes()
+    with sqlite3.connect(path) as db:    # what a version-1 store holds: raw times, version 1
+        db.execute("DELETE FROM chunks")
+        db.execute("INSERT INTO chunks (channel, t_first_us, t_last_us, n, t, voltage_V, current_A)"
+                   " VALUES ('battery', ?, ?, 10, ?, ?, ?)",
+                   (_T0_US + 10_000_000, _T0_US + 19_000_000, t_raw, np.full(10, 12.5, "<f4").tobytes(),
+                    np.full(10, -1.0, "<f4").tobytes()))
+        db.execute("UPDATE meta SET value = '1' WHERE key = 'schema_version'")
+    with Store(path) as st:
+        st.append(_frame(20, 10))
+        got = st.read()
+    assert list(got["t"]) == list(T0 + pd.to_timedelta(np.arange(10, 30), unit="s"))
+    with sqlite3.connect(path) as db:
+        assert db.execute("SELECT value FROM meta WHERE key = 'schema_version'").fetchone()[0] == "2"
+        assert sorted(len(r[0]) for r in db.execute("SELECT t FROM chunks")) == [16, 80]

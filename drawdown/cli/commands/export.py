@@ -180,8 +180,9 @@ def _readings_data(frame: Any) -> dict[str, Any]:
 
     from drawdown.collector.canonical import VALUE_COLUMNS, to_epoch_us
 
+    channel = frame["channel"].astype("category")
     out = {"t": _us(to_epoch_us(frame["t"])),
-           "channel": np.asarray(frame["channel"].astype(str).to_numpy(dtype=object), dtype=object)}
+           "channel": Channels(channel.cat.codes.to_numpy(), [str(c) for c in channel.cat.categories])}
     for c in VALUE_COLUMNS:
         out[c] = frame[c].to_numpy(dtype=np.float32, na_value=np.nan)
     return out
@@ -296,32 +297,137 @@ def _events_data(report: Any, collector_events: list[dict[str, Any]]) -> dict[st
 # writers
 # --------------------------------------------------------------------------------------------
 
-def _arrow_table(kind: str, data: dict[str, Any], meta: dict[str, str]) -> Any:
+def _arrow_type(col: Col) -> Any:
+    import pyarrow as pa
+
+    return {"timestamp": pa.timestamp("us", tz="UTC"), "date": pa.date32(), "string": pa.string(),
+            "bool": pa.bool_(), "float32": pa.float32(), "float64": pa.float64()}[col.type]
+
+
+def _arrow_schema(kind: str, meta: dict[str, str]) -> Any:
     import json
 
     import pyarrow as pa
 
-    types = {"timestamp": pa.timestamp("us", tz="UTC"), "date": pa.date32(), "string": pa.string(),
-             "bool": pa.bool_(), "float32": pa.float32(), "float64": pa.float64()}
-    fields, arrays = [], []
-    for col in SCHEMAS[kind]:
-        typ = types[col.type]
-        values = data[col.name]
-        arr = pa.array(values if col.type != "string" else list(values), type=typ, from_pandas=True)
-        if not col.nullable and arr.null_count:  # a bug, never bad input: say so rather than write it
-            raise RuntimeError(f"export {kind}: column {col.name} has {arr.null_count} empty values")
-        fields.append(pa.field(col.name, typ, nullable=col.nullable,
-                               metadata={"unit": col.unit, "description": col.description}))
-        arrays.append(arr)
+    fields = [pa.field(col.name, _arrow_type(col), nullable=col.nullable,
+                       metadata={"unit": col.unit, "description": col.description}) for col in SCHEMAS[kind]]
     units = {c.name: c.unit for c in SCHEMAS[kind]}
-    schema = pa.schema(fields, metadata={**meta, "drawdown.units": json.dumps(units)})
-    return pa.Table.from_arrays(arrays, schema=schema)
+    return pa.schema(fields, metadata={**meta, "drawdown.units": json.dumps(units)})
+
+
+def _arrow_column(kind: str, col: Col, values: Any) -> Any:
+    import numpy as np
+    import pyarrow as pa
+
+    typ = _arrow_type(col)
+    if col.type == "string" and isinstance(values, Channels):
+        arr = pa.DictionaryArray.from_arrays(pa.array(values.codes), pa.array(values.names, pa.string())).cast(typ)
+    elif col.type == "string":
+        arr = pa.array(list(values), type=typ)
+    elif col.type == "timestamp":
+        arr = pa.array(np.asarray(values).view("M8[us]"), type=typ, from_pandas=True)
+    else:
+        arr = pa.array(values, type=typ, from_pandas=True)
+    if not col.nullable and arr.null_count:  # a bug, never bad input: say so rather than write it
+        raise RuntimeError(f"export {kind}: column {col.name} has {arr.null_count} empty values")
+    return arr
+
+
+def _arrow_table(kind: str, data: dict[str, Any], meta: dict[str, str]) -> Any:
+    import pyarrow as pa
+
+    return pa.Table.from_arrays([_arrow_column(kind, col, data[col.name]) for col in SCHEMAS[kind]],
+                                schema=_arrow_schema(kind, meta))
+
+
+#: Parquet writing: zstd; times delta-coded (sorted per channel, so nearly free); floats split by
+#: byte (their exponents compress together); only the channel column dictionary-coded.
+PARQUET_OPTIONS: dict[str, Any] = {"compression": "zstd", "use_dictionary": ["channel"],
+                                   "column_encoding": {"t": "DELTA_BINARY_PACKED", "voltage_V": "BYTE_STREAM_SPLIT",
+                                                       "current_A": "BYTE_STREAM_SPLIT",
+                                                       "temperature_C": "BYTE_STREAM_SPLIT",
+                                                       "soc_pct": "BYTE_STREAM_SPLIT"}}
+
+
+def _parquet_options(kind: str) -> dict[str, Any]:
+    if kind == "readings":
+        return PARQUET_OPTIONS
+    return {"compression": "zstd"}
 
 
 def _write_parquet(path: Path, kind: str, data: dict[str, Any], meta: dict[str, str]) -> None:
     import pyarrow.parquet as pq
 
-    pq.write_table(_arrow_table(kind, data, meta), path, compression="zstd")
+    pq.write_table(_arrow_table(kind, data, meta), path, **_parquet_options(kind))
+
+
+class Channels:
+    """A channel column as small codes into a list of names (a year of readings holds three or four
+    names ~100 M times: never as Python strings)."""
+
+    def __init__(self, codes: Any, names: list[str]):
+        self.codes = codes
+        self.names = names
+
+    def __len__(self) -> int:
+        return len(self.codes)
+
+    def __getitem__(self, part: slice) -> Channels:
+        return Channels(self.codes[part], self.names)
+
+    def text(self) -> Any:
+        import numpy as np
+
+        return np.asarray(self.names, dtype=object)[self.codes]
+
+
+READINGS_BATCH_ROWS = 1 << 20  # rows per Parquet row group when streaming readings
+
+
+def _stream_readings_parquet(path: Path, store: Any, start: Any, end: Any, meta: dict[str, str]) -> dict[str, Any]:
+    """Write the store's readings to Parquet piece by piece (never the whole store in memory);
+    returns rows and the first and last time [us]."""
+    import numpy as np
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    from drawdown.collector.canonical import VALUE_COLUMNS
+
+    schema = _arrow_schema("readings", meta)
+    cols = SCHEMAS["readings"]
+    names: list[str] = []
+    pending: list[tuple[int, Any, list[Any]]] = []
+    held = rows = 0
+    first = last = None
+
+    def flush(writer: Any) -> None:
+        nonlocal held
+        if not pending:
+            return
+        t = np.concatenate([p[1] for p in pending])
+        codes = np.concatenate([np.full(len(p[1]), p[0], np.int16) for p in pending])
+        data: dict[str, Any] = {"t": t, "channel": Channels(codes, list(names))}
+        for j, c in enumerate(VALUE_COLUMNS):
+            data[c] = np.concatenate([p[2][j] if p[2][j] is not None else np.full(len(p[1]), np.nan, np.float32)
+                                      for p in pending])
+        writer.write_batch(pa.record_batch([_arrow_column("readings", col, data[col.name]) for col in cols],
+                                           schema=schema))
+        pending.clear()
+        held = 0
+
+    with pq.ParquetWriter(path, schema, **PARQUET_OPTIONS) as writer:
+        for name, t, vals in store.iter_pieces(start, end):
+            if name not in names:
+                names.append(name)
+            pending.append((names.index(name), t, vals))
+            held += len(t)
+            rows += len(t)
+            first = int(t[0]) if first is None else min(first, int(t[0]))
+            last = int(t[-1]) if last is None else max(last, int(t[-1]))
+            if held >= READINGS_BATCH_ROWS:
+                flush(writer)
+        flush(writer)
+    return {"rows": rows, "first_us": first, "last_us": last}
 
 
 def _num_text(a: Any) -> Any:
@@ -376,6 +482,8 @@ def _csv_columns(kind: str, data: dict[str, Any], tz: str) -> list[Any]:
             cols.append(np.where(v, "true", "false").astype(object))
         elif col.type.startswith("float"):
             cols.append(_num_text(np.asarray(v, dtype=col.type)))
+        elif isinstance(v, Channels):
+            cols.append(v.text())
         else:
             cols.append(np.array(["" if x is None else str(x) for x in v], dtype=object))
     return cols
@@ -472,8 +580,26 @@ def run(args: Any, ctx: Context) -> int:
         raise UsageError(f"--to {args.date_to} is before --from {args.date_from}")
     if not ctx.store_path.exists():
         raise UsageError(f"{ctx.store_path}: the store is empty; import a log first ('drawdown import FILE')")
+    meta = {META_PRODUCER: f"drawdown {__version__}", META_SCHEMA_VERSION: str(SCHEMA_VERSION),
+            META_KIND: kind, META_TIMEZONE: tz, "drawdown.from": args.date_from or "",
+            "drawdown.to": args.date_to or ""}
     _say(f"reading {ctx.store_path} ...")
     store = ctx.open_store(read_only=True)  # an export never writes the store
+    if kind == "readings" and fmt == "parquet":  # streamed: a year of readings never sits in memory
+        try:
+            span = store.time_span()
+            got: dict[str, Any] = {}
+
+            def stream(tmp: Path) -> None:
+                got.update(_stream_readings_parquet(tmp, store, start, end, meta))
+                if not got["rows"]:
+                    raise UsageError(_no_readings_message(ctx.store_path, span, tz, args))
+
+            size = _write_atomic(path, stream)
+        finally:
+            store.close()
+        iso = _iso_us
+        return _finish(args, kind, fmt, path, got["rows"], iso(got["first_us"]), iso(got["last_us"]), tz, size)
     try:
         readings = store.read(start, end)
         rows_rejected = sum(int(i["rows_rejected"]) for i in store.imports())
@@ -487,9 +613,6 @@ def run(args: Any, ctx: Context) -> int:
     if readings.empty:
         raise UsageError(_no_readings_message(ctx.store_path, span, tz, args))
 
-    meta = {META_PRODUCER: f"drawdown {__version__}", META_SCHEMA_VERSION: str(SCHEMA_VERSION),
-            META_KIND: kind, META_TIMEZONE: tz, "drawdown.from": args.date_from or "",
-            "drawdown.to": args.date_to or ""}
     if kind == "readings":
         data = _readings_data(readings)
         del readings
@@ -520,6 +643,16 @@ def run(args: Any, ctx: Context) -> int:
     else:
         size = _write_atomic(path, lambda tmp: _write_csv(tmp, kind, data, tz))
     first, last = _span(kind, data)
+    return _finish(args, kind, fmt, path, rows, first, last, tz, size)
+
+
+def _iso_us(us: int) -> str:
+    from datetime import datetime, timedelta, timezone
+
+    return (datetime(1970, 1, 1, tzinfo=timezone.utc) + timedelta(microseconds=int(us))).isoformat()
+
+
+def _finish(args: Any, kind: str, fmt: str, path: Path, rows: int, first: Any, last: Any, tz: str, size: int) -> int:
     out = {"kind": kind, "format": fmt, "path": str(path), "rows": rows,
            "columns": [c.name for c in SCHEMAS[kind]], "first": first, "last": last, "timezone": tz,
            "schema_version": SCHEMA_VERSION, "from": args.date_from, "to": args.date_to, "bytes": size}
