@@ -627,13 +627,13 @@ class _Parser:
         self.header_norm = fmt.delimiter.join(norm)
 
     # -- fast path -----------------------------------------------------------
-    def _fast(self, block: bytes, first_line: int) -> _Block | None:
+    def _fast(self, block: bytes, first_line: int, n_lines: int | None = None) -> _Block | None:
         try:
             table = pcsv.read_csv(io.BytesIO(block), read_options=self.read_opts,
                                   parse_options=self.parse_opts, convert_options=self.conv_opts)
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError, pa.ArrowTypeError):
             return None
-        n = _n_lines(block)
+        n = _n_lines(block) if n_lines is None else n_lines
         if table.num_rows != n:
             return None  # blank lines were skipped: line numbers would not match
         fmt = self.fmt
@@ -830,7 +830,7 @@ class _Parser:
         values = {k: v[keep].astype(np.float32) for k, v in canon.items() if k[1] != "power_W"}
         return _Block(line[keep], t_us[keep], values, reasons, header_lines, blank_lines, data_lines)
 
-    def parse(self, block: bytes, first_line: int) -> _Block:
+    def parse(self, block: bytes, first_line: int, n_lines: int | None = None) -> _Block:
         """Parse a block: the fast path, else halve it and try again; the careful path for small pieces.
 
         Halving keeps a few bad lines (a repeated header a day, a truncated line) from sending
@@ -838,7 +838,7 @@ class _Parser:
         """
         if not self.fmt.fast_time:
             return self._slow(block, first_line)
-        fast = self._fast(block, first_line)
+        fast = self._fast(block, first_line, n_lines)  # n_lines: the caller counted them already
         if fast is not None:
             return fast
         if len(block) <= SLOW_PIECE_BYTES:
@@ -1365,8 +1365,9 @@ def _import_text(path: Path, src: Path, store: Store, *, head: bytes, size: int,
     first_line = fmt.header_line + 1
     with open(src, "rb") as f:
         for off, block in _iter_blocks(f, fmt.data_offset, block_bytes):
-            b = parser.parse(block, first_line)
-            first_line += _n_lines(block)
+            n_lines = _n_lines(block)
+            b = parser.parse(block, first_line, n_lines)
+            first_line += n_lines
             header_lines += b.header_lines
             blank_lines += b.blank_lines
             data_lines += b.data_lines
