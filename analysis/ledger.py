@@ -171,7 +171,8 @@ def _bad_intervals(bad_samples: np.ndarray) -> np.ndarray:
 def compute_ledger(channels: dict[str, Channel], system: System, *, soc: SocResult | None = None) -> LedgerResult:
     """The ledger from split channels (see :func:`daily_ledger`), with its by-products."""
     bat = channels.get("battery")
-    sources = {s: channels[s] for s in ("solar", "alternator", "shore") if s in channels and len(channels[s]) > 1}
+    sources: dict[str, Channel] = {s: channels[s] for s in ("solar", "alternator", "shore")
+                                   if s in channels and len(channels[s]) > 1}
     load = channels.get("load")
     used = [c for c in [bat, load, *sources.values()] if c is not None and len(c) > 1]
     if not used:
@@ -241,7 +242,9 @@ def compute_ledger(channels: dict[str, Channel], system: System, *, soc: SocResu
         extras["attribution_confidence"][:] = 1.0  # measured on their own shunts
         extras["observed_load_share"][:] = 1.0
     if mode in ("multi-channel", "load channel only"):
-        _instrument_range(bat if mode == "multi-channel" else load, sources, load, system, bounds, gmask,
+        ref = bat if mode == "multi-channel" else load
+        assert ref is not None  # multi-channel has a battery, "load channel only" a load
+        _instrument_range(ref, sources, load, system, bounds, gmask,
                           cols, extras, notes)
     days = pd.DataFrame({"date": dates, "complete": complete, **cols, **extras})
     return LedgerResult(days, mode, tuple(gaps_all), solar_series, model, soc, tuple(notes), bounds)
@@ -373,6 +376,7 @@ def _multi_channel(bat: Channel | None, v_b: np.ndarray | None, sources: dict[st
         cols["consumed_Wh"] += _day_sum(load.t_us, trapezoid_increments(load.t_us, cur * v, gaps=gmask["load"]),
                                         bounds)
         return
+    assert v_b is not None  # given with the battery channel
     # 2. The balance on the battery's grid, in chunks of whole local days so that the
     #    temporaries stay small on a year at 1 Hz (a loop over chunks, not over rows).
     pos = np.searchsorted(bat.t_us, bounds, side="left")

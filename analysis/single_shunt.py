@@ -303,7 +303,6 @@ def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: n
     bin_us = int(bin_s * US_PER_S)
     bins = _bin_sums(bat, v_b, gaps, bin_us)
     n_bins, hrs, net, net_step, v_bin, temp = bins.n, bins.hrs, bins.net_A, bins.held_net_A, bins.voltage_V, bins.temp_C
-    has_t = temp is not None
     b0 = bat.t_us[0] // bin_us
     covered = hrs * 3600.0 / bin_s
     t_mid = (b0 + np.arange(n_bins)) * bin_us + bin_us // 2
@@ -337,7 +336,7 @@ def single_shunt_ledger(bat: Channel, v_b: np.ndarray, system: System, bounds: n
     if train.any() and 0 < weekend[train].mean() < 1:
         terms.append("weekend")
         feats.append(weekend)
-    if has_t and train.any() and np.nanstd(temp[train]) > 0.5:
+    if temp is not None and train.any() and np.nanstd(temp[train]) > 0.5:
         tc = np.nan_to_num(temp - np.nanmean(temp[train]), nan=0.0)
         terms.append("temperature_C")
         feats.append(tc)
@@ -862,8 +861,8 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
             # A charger or an alternator's DC-DC switches on at (near) its rated current; a
             # smaller rise is a load switching off or the sun coming out.
             # (A charger topping off a full bank is throttled: a plateau next to a hold may be lower.)
-            rise = max(float(dg[u]), float(ext[min(u + 2, len(ext) - 1)] - ext[u]))
-            near_hold = held_cum[min(n, s + d + look)] > held_cum[max(0, s + u - look)]
+            rise = max(float(dg[u]), float(ext[min(int(u) + 2, len(ext) - 1)] - ext[u]))
+            near_hold = held_cum[min(n, int(s + d + look))] > held_cum[max(0, int(s + u - look))]
             if rise < PLATEAU_RATING_FRACTION * min_rating and not near_hold:
                 continue
             if rise < PLATEAU_RATING_FRACTION * min_rating and solar_max_A is not None:
@@ -880,8 +879,8 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
             plateau_mask[seg] = True
             k = s + d
             extra = 0
-            if held_cum[min(n, k + look)] > held_cum[k]:
-                extra = int(dark_held[min(n, k + win)] - dark_held[k])
+            if held_cum[min(n, int(k + look))] > held_cum[k]:
+                extra = int(dark_held[min(n, int(k + win))] - dark_held[k])
             dur_h = (d - u + extra) * bin_s / 3600.0
             mid = s + (u + d) // 2
             daytime = elev[mid] > 0 or 7 <= hour[mid] <= 21
@@ -902,7 +901,7 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
                 if solar_max_A is not None:
                     # What the sun could give: the sky factor seen just before the plateau
                     # (charge / clear-sky output) carried along the clear-sky curve.
-                    c_l = solar_max_A[max(s + u - 1, 0)] / SOLAR_CAP_MARGIN
+                    c_l = solar_max_A[max(int(s + u - 1), 0)] / SOLAR_CAP_MARGIN
                     if c_l > 0.5:
                         k_sky = min(1.2, max(base_l, 0.0) / c_l)
                         sun_avail = k_sky * solar_max_A[s + u:s + d] / SOLAR_CAP_MARGIN
@@ -918,7 +917,8 @@ def _attribute(gross: np.ndarray, hrs: np.ndarray, elev: np.ndarray, hour: np.nd
     rest[~on & ~held] = 0.0
     day = sun > 0.02
     # A bank held in the dark keeps the source of the last plateau, until the hold ends.
-    last = pd.Series(np.where(plateau_mask, label, None), dtype=object).ffill().to_numpy()
+    # numpy's stub takes no None for where()'s third argument; numpy itself does (an object scalar).
+    last = pd.Series(np.where(plateau_mask, label, None), dtype=object).ffill().to_numpy()  # type: ignore[call-overload]
     dark_hold = np.zeros(n, dtype=bool)
     for hs, he in zip(np.flatnonzero(hedge == 1), np.flatnonzero(hedge == -1)):  # loop over held runs
         first_dark = hs + int(np.argmax(~day[hs:he])) if (~day[hs:he]).any() else he
@@ -1053,7 +1053,7 @@ def _load_step_events(net_A: np.ndarray, *, step_min_A: float, amp_max_A: float,
         next_seen = np.minimum.accumulate(ns[::-1])[::-1]
 
     def carry(j: int, level: float) -> None:
-        if next_hidden is None:
+        if next_hidden is None or next_seen is None:  # set together
             return
         k = int(next_hidden[j])
         if k < n and k < next_seen[j] and k - j <= carry_bins and level <= big_A and fits(j, level, k):

@@ -47,6 +47,7 @@ import math
 import warnings
 from dataclasses import asdict, dataclass, field
 from functools import lru_cache
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -259,7 +260,7 @@ def design_load(system: System, days: pd.DataFrame | None, *, percentile: float 
             params = fit.params.to_dict()
             conds = []
             temps = ([float(np.quantile(temp, 0.05)), float(np.quantile(temp, 0.95))]
-                     if "mean_temperature_C" in cols else [None])
+                     if "mean_temperature_C" in cols and temp is not None else [None])
             for t in temps:
                 pred = params["const"] + (params.get("mean_temperature_C", 0.0) * t if t is not None else 0.0)
                 conds.append({"mean_temperature_C": t, "day": "parked", "predicted_Wh": pred})
@@ -533,9 +534,9 @@ def recommend(system: System, days: pd.DataFrame | None, *, autonomy_days: float
         cont_need = sum(ld.power_W for ld in ac) * INVERTER_MARGIN
         surge_need = max(ld.power_W * ld.surge_factor + sum(o.power_W for o in ac if o is not ld) for ld in ac)
         inv_W = None
-        for w in _cat.INVERTER_CONTINUOUS_W:
-            if w >= cont_need and w * _cat.INVERTER_SURGE_MULTIPLE >= surge_need:
-                inv_W = float(w)
+        for cont_W in _cat.INVERTER_CONTINUOUS_W:
+            if cont_W >= cont_need and cont_W * _cat.INVERTER_SURGE_MULTIPLE >= surge_need:
+                inv_W = float(cont_W)
                 break
         blocks = round(b.series_12V_blocks)
         v_cut = LOW_VOLTAGE_CUTOFF_PER_12V * blocks
@@ -767,7 +768,7 @@ def recommend(system: System, days: pd.DataFrame | None, *, autonomy_days: float
         if not val > 0:
             raise SizingInputError(f"run_lengths_m[{k!r}] = {val}: expected a length > 0 m")
         lengths[k] = float(val)
-    cable = {"conductor_temperature_C": conductor_temperature_C, "insulation_C": insulation_C}
+    cable: dict[str, Any] = {"conductor_temperature_C": conductor_temperature_C, "insulation_C": insulation_C}
     runs: list[RunSizing] = []
     if inv_W:
         runs.append(size_run(inverter["dc_input_A_nominal"], lengths["battery-inverter"], v,

@@ -12,10 +12,11 @@ default capacity).
 from __future__ import annotations
 
 import tomllib
-from typing import Literal
+from typing import Literal, cast
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
+from pydantic_core import ErrorDetails
 
 Chemistry = Literal["lifepo4", "agm", "gel", "flooded"]
 
@@ -278,7 +279,7 @@ def _explain(exc: ValidationError, source: str, *,
         key = _location(err["loc"]) or "(top level)"
         loc = tuple(str(x) for x in err["loc"] if not isinstance(x, int))
         if err["type"] == "extra_forbidden" and loc[-2:] in renamed:
-            lines.append(f"  {key}: this key is now called {renamed[loc[-2:]]} (same meaning and unit); "
+            lines.append(f"  {key}: this key is now called {renamed[cast(tuple[str, str], loc[-2:])]} (same meaning and unit); "
                          "rename it")
             continue
         if err["type"] == "extra_forbidden":
@@ -309,7 +310,7 @@ def _toml_value(value: object) -> str:
     return repr(value)
 
 
-def _plain_message(err: dict, given: object) -> str:
+def _plain_message(err: ErrorDetails, given: object) -> str:
     """Pydantic's message, said in the terms of a TOML file."""
     kind = err["type"]
     if kind == "finite_number":

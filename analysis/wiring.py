@@ -47,7 +47,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import asdict, dataclass, field
-from typing import Literal
+from typing import Literal, cast, overload
 
 import numpy as np
 
@@ -57,6 +57,14 @@ import numpy as np
 RHO_20_OHM_MM2_PER_M: float = 1.0 / 58.0
 #: Temperature coefficient of resistance of annealed copper at 20 degC [1/K].
 ALPHA_PER_K: float = 0.00393
+
+
+@overload
+def copper_resistivity(temperature_C: float = 20.0) -> float: ...
+
+
+@overload
+def copper_resistivity(temperature_C: np.ndarray) -> float | np.ndarray: ...
 
 
 def copper_resistivity(temperature_C: float | np.ndarray = 20.0) -> float | np.ndarray:
@@ -511,6 +519,7 @@ def size_run(current_A: float, length_m: float, voltage_V: float, *, name: str =
         table = metric_ampacity_A(area, insulation_C)
         amp = None if table is None else table * derate
         if ok(drop, amp):
+            assert table is not None and amp is not None  # ok() needs an ampacity
             metric = CableChoice("metric", f"{area:g} mm2", area, r, drop, drop / voltage_V * 100, table, amp)
             break
     awg = None
@@ -564,7 +573,8 @@ def size_run(current_A: float, length_m: float, voltage_V: float, *, name: str =
         why = (f"no standard {missing} conductor meets a {limit:g} % drop (needs >= {need_area:.1f} mm²) "
                f"and a {fuse:g} A fuse within its ampacity: use parallel conductors, a shorter run "
                "or a higher system voltage")
-    primary = metric
+    # Read below only when it fits (why is None): then a metric and an AWG size were found.
+    primary, awg_fit = cast(CableChoice, metric), cast(CableChoice, awg)
     if why is not None and metric is not None:
         notes.append("a metric size fits; see 'metric'")
     fits = why is None
@@ -572,11 +582,11 @@ def size_run(current_A: float, length_m: float, voltage_V: float, *, name: str =
         name=name, current_A=current_A, protect_current_A=protect, length_m=length_m, voltage_V=voltage_V,
         max_drop_pct=limit, circuit=circuit, drop_limit_source=source,
         cross_section_mm2=primary.cross_section_mm2 if fits else None,
-        awg=awg.size.removesuffix(" AWG") if fits else None,
+        awg=awg_fit.size.removesuffix(" AWG") if fits else None,
         voltage_drop_V=primary.voltage_drop_V if fits else None,
         voltage_drop_pct=primary.voltage_drop_pct if fits else None,
         fuse_A=fuse if fits else None,
-        ampacity_A=min(metric.ampacity_A, awg.ampacity_A) if fits else None,
+        ampacity_A=min(primary.ampacity_A, awg_fit.ampacity_A) if fits else None,
         metric=metric, awg_choice=awg,
         resistance={"metric_ohm_per_m": metric.resistance_ohm_per_m if metric else None,
                     "awg_ohm_per_m": awg.resistance_ohm_per_m if awg else None,

@@ -159,6 +159,8 @@ def build_load_events(p: Loads, *, day_start_s: np.ndarray, step_t_s: np.ndarray
             which = rng.random(k)
             hours = np.where(which < 0.35, rng.normal(p.wake_h + 0.5, 0.7, k),
                              np.where(which < 0.75, rng.normal(19.5, 1.2, k), rng.uniform(9.0, 22.0, k)))
+            s: np.ndarray | float  # (floats for the inverter and the extras below)
+            dur: np.ndarray | float
             s = t0 + np.clip(hours, 0.0, 23.9) * 3600
             dur = np.clip(rng.lognormal(np.log(12.0), 0.7, k), 3.0, 90.0)
             add("pump", s, s + dur, p.pump_W * rng.uniform(0.9, 1.1, k))

@@ -50,6 +50,7 @@ import tomllib
 from dataclasses import dataclass, field
 from importlib import resources
 from pathlib import Path
+from typing import Literal
 from zoneinfo import ZoneInfo
 
 import numpy as np
@@ -578,7 +579,7 @@ def write_log(sim: Simulation, out: str | Path, *, interval_s: float | None = No
     if interval_s <= 0:
         raise ValueError(f"interval must be positive, got {interval_s} s")
     columns = SINGLE_SHUNT_COLUMNS if single_shunt else MULTI_CHANNEL_COLUMNS
-    unit = "s" if float(interval_s).is_integer() else "ms"
+    unit: Literal["s", "ms"] = "s" if float(interval_s).is_integer() else "ms"
     t0_us = int((sim.t0 - pd.Timestamp(0, tz="UTC")) // pd.Timedelta(microseconds=1))
     schema = pa.schema([(c, pa.string() if c == "time" else pa.float64()) for c in columns])
     # Day chunks: local day d covers rows k0..k1 (the last one ends at the last midnight).

@@ -109,7 +109,7 @@ def create_app(ctx: Any, *, token: str | None = None, host: str = "127.0.0.1") -
         pages_folder=str(HERE / "pages"),
         assets_folder=str(HERE / "assets"),
         title="drawdown",
-        update_title=None,
+        update_title=None,  # type: ignore[arg-type]  # dash annotates str; its docstring (and code) take None
         serve_locally=True,  # no CDN: works offline, in a van, on a phone hotspot
         meta_tags=[{"name": "viewport", "content": "width=device-width, initial-scale=1"}],
     )

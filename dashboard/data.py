@@ -35,7 +35,7 @@ import threading
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Generic, TypeVar
+from typing import Any, Generic, TypeVar, cast
 
 import numpy as np
 import pandas as pd
@@ -112,7 +112,7 @@ def _to_json(obj: Any) -> dict[str, Any]:
         out = to_json()
         return json.loads(out) if isinstance(out, str) else dict(out)
     if dataclasses.is_dataclass(obj):
-        return dataclasses.asdict(obj)
+        return dataclasses.asdict(cast(Any, obj))  # (a dataclass class, not an instance, fails in there as before)
     raise TypeError(f"cannot turn {type(obj).__name__} into JSON")
 
 
@@ -316,6 +316,7 @@ def _usual_draw_cached(store_path: str, key: tuple, start_iso: str, end_iso: str
 
 def clear_caches() -> None:
     """Forget every cached result (tests; after writing system.toml)."""
+    fn: Any  # each has the cache_clear that _single_flight sets on it
     for fn in (_report_cached, _ledger_cached, _solar_cached, _sizing_inputs_cached, _sizing_cached,
                _screen_series_cached, _usual_draw_cached):
         fn.cache_clear()
@@ -547,7 +548,7 @@ class DataSource:
                     "SELECT COUNT(*), MAX(id), SUM(n) FROM chunks WHERE t_last_us >= ? AND t_first_us < ?",
                     (lo, hi)).fetchone()
             return (lo, hi, n, last_id, rows)
-        stamps = []
+        stamps: list[tuple[int, int] | None] = []
         for suffix in ("", "-wal"):
             try:
                 st = os.stat(f"{self.store_path}{suffix}")
@@ -607,7 +608,7 @@ class DataSource:
 
     def timezone(self) -> str:
         s = self.system()
-        return s.value.site.timezone if s.ok else "UTC"
+        return s.value.site.timezone if s.value is not None else "UTC"
 
     @staticmethod
     def validate_system_text(text: str, *, source: str = "system.toml") -> tuple[System | None, str]:
@@ -658,7 +659,7 @@ class DataSource:
         tz = self.timezone()
         return span[0].tz_convert(tz).date().isoformat(), span[1].tz_convert(tz).date().isoformat()
 
-    def utc_bounds(self, start_date: str, end_date: str) -> tuple[str, str]:
+    def utc_bounds(self, start_date: str | None, end_date: str | None) -> tuple[str, str]:
         """Local inclusive dates to UTC ``[start, end)`` ISO strings (the cache's keys)."""
         tz = self.timezone()
         lo = pd.Timestamp(start_date).tz_localize(tz)
@@ -717,6 +718,7 @@ class DataSource:
         """The daily ledger of a range as a flat DataFrame (columns of :func:`_ledger_days`)."""
         led = self.ledger(start_date, end_date, utc=utc)
         if led.ok and isinstance(getattr(led.value, "days", None), pd.DataFrame):
+            assert led.value is not None  # ok
             return Section(_ledger_days(led.value.days))
         rep = self.report(start_date, end_date, utc=utc)
         if rep.ok:
@@ -728,11 +730,13 @@ class DataSource:
         """State of charge [%] over the range and its full-charge resync times."""
         rep = self.report(start_date, end_date, utc=utc)
         if rep.ok:
+            assert rep.value is not None  # ok
             soc, resync = _soc_of(rep.value)
             if soc is not None:
                 return Section((soc, resync))
         led = self.ledger(start_date, end_date, utc=utc)
         if led.ok and getattr(led.value, "soc", None) is not None:
+            assert led.value is not None  # ok
             return Section(_soc_of(led.value))
         return Section(why=led.why or rep.why or "No state-of-charge estimate (no battery channel).")
 
@@ -746,7 +750,9 @@ class DataSource:
         s = self.report(start_date, end_date)
         if not s.ok:
             return Section(why=s.why)
-        return Section(_health_of(s.value, self.system().value))
+        system = self.system().value
+        assert s.value is not None and system is not None  # a report needs the system description
+        return Section(_health_of(s.value, system))
 
     def solar(self, start_date: str, end_date: str) -> Section[Any]:
         """The solar analysis of a range: the report's own when it has one, else a direct run (cached)."""
@@ -769,6 +775,7 @@ class DataSource:
             sys_s = self.system()
             if not sys_s.ok:
                 return Section(why=sys_s.why)
+            assert sys_s.value is not None  # ok
             try:
                 return Section(size_with(sizing_inputs(None, sys_s.value), sys_s.value,
                                          autonomy_days=float(autonomy_days), percentile=float(percentile)))
@@ -853,7 +860,7 @@ class DataSource:
                 batt = _to_json(rep.value).get("battery", {})
                 usable, peukert_k = _finite(batt.get("usable_Ah")), _finite(batt.get("peukert_k"))
             soc_s = self.soc(utc=ctx_utc)
-            if soc_s.ok and len(soc_s.value[0]):
+            if soc_s.value is not None and len(soc_s.value[0]):
                 series = soc_s.value[0]
                 t_soc = series.index[-1]
                 since = bat[bat["t"] >= t_soc]
@@ -868,6 +875,7 @@ class DataSource:
                 ledger_days = getattr(led.value, "days", None)
             days = self.days(utc=ctx_utc)
             if days.ok:
+                assert days.value is not None  # ok
                 done = days.value[days.value["complete"] & days.value["consumed_Ah"].notna()]
                 if len(done):
                     typical = float(np.median(np.abs(done["consumed_Ah"].to_numpy(dtype=float))))
@@ -945,7 +953,8 @@ class DataSource:
                 with self._write_lock, _open_store(str(self.store_path)) as store:
                     sys_s = self.system()
                     result = import_log(path, store, tz=self.system_timezone_or_none(),
-                                        nominal_voltage_V=sys_s.value.battery.nominal_voltage_V if sys_s.ok else None)
+                                        nominal_voltage_V=(sys_s.value.battery.nominal_voltage_V
+                                                           if sys_s.value is not None else None))
             except Exception as exc:  # noqa: BLE001 - any importer error is the file's message
                 # A page never shows a server path: the scratch copy is the file's own name.
                 said = getattr(exc, "page_message", str(exc))  # the page has no command-line flags
@@ -958,7 +967,7 @@ class DataSource:
 
     def system_timezone_or_none(self) -> str | None:
         s = self.system()
-        return s.value.site.timezone if s.ok else None
+        return s.value.site.timezone if s.value is not None else None
 
 
 def current() -> DataSource:

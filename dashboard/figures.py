@@ -371,6 +371,7 @@ def capacity_figure(estimates: pd.DataFrame | None, *, rated_Ah: float, overall_
     fig = go.Figure()
     x = None
     if has_points:
+        assert estimates is not None  # has_points
         x = pd.DatetimeIndex(pd.to_datetime(estimates["t"] if "t" in estimates else estimates["date"]))
         if x.tz is not None:
             x = x.tz_convert(tz or "UTC").tz_localize(None)

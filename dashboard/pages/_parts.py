@@ -4,13 +4,13 @@ from __future__ import annotations
 
 import math
 from collections.abc import Iterable, Mapping, Sequence
-from typing import Any
+from typing import Any, cast
 
 from dash import dcc, html
 
 #: dcc.Graph options: fit the container (phones), keep the toolbar small, no plotly logo.
-GRAPH_CONFIG: dict[str, Any] = {"responsive": True, "displaylogo": False, "showSendToCloud": False,
-                                "modeBarButtonsToRemove": ["select2d", "lasso2d", "autoScale2d"]}
+GRAPH_CONFIG: dcc.Graph.Config = {"responsive": True, "displaylogo": False, "showSendToCloud": False,
+                                   "modeBarButtonsToRemove": ["select2d", "lasso2d", "autoScale2d"]}
 
 
 def fmt(value: Any, unit: str = "", digits: int = 1) -> str:
@@ -68,9 +68,10 @@ def table(rows: Iterable[Mapping[str, Any]], columns: Sequence[tuple[str, str]],
     head = html.Thead(html.Tr([html.Th(h, className="num" if k in num else None) for k, h in columns]))
     # Each cell carries its column's header: on a phone every row becomes a card of "header: value" lines
     # (drawdown.css), so no column is cut off and the page never scrolls sideways.
-    body = html.Tbody([html.Tr([html.Td(r.get(k, ""), className="num" if k in num else None, **{"data-label": h})
+    body = html.Tbody([html.Tr([html.Td(r.get(k, ""), className="num" if k in num else None,
+                                        **cast("dict[str, Any]", {"data-label": h}))
                                 for k, h in columns]) for r in rows])
-    kw = {"id": id_} if id_ else {}
+    kw: dict[str, Any] = {"id": id_} if id_ else {}
     return html.Div(html.Table([head, body], className="table"), className="table-wrap as-cards", **kw)
 
 

@@ -46,6 +46,7 @@ def render_health(source: DataSource) -> tuple[Any, Any, Any, Any]:
         m = figures.message_figure(f"Not available: {sect.why}")
         return missing("Battery health", sect.why), m, m, m
     h = sect.value
+    assert h is not None  # ok
     b = h.battery
     ci = b.get("usable_Ah_ci95")
     ci_text = f"95 % interval {ci[0]:.0f}–{ci[1]:.0f} Ah" if ci and None not in ci else _why(b, "usable_Ah_ci95")

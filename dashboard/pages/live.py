@@ -72,6 +72,7 @@ def render_live(source: DataSource, *, now: Any = None) -> tuple[Any, Any, Any, 
         msg = notice(list(snap.notes) or ["No readings."], kind="warn")
         return "", msg, [], [], figures.message_figure("No readings stored yet.", title="Last hour")
     when = labels.local_time(snap.t, tz, seconds=True)
+    stamp: html.Span | str
     if snap.stale:
         stamp = html.Span([html.Strong("Not live. "), f"Newest reading {when}, {_age(snap.t, now)}: the figures "
                            "below are the bank as it was then, not now. Start `drawdown collect` (or import a newer "

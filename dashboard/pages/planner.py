@@ -32,7 +32,8 @@ def layout(**_kwargs: Any) -> html.Div:
         html.Div([
             html.Div([html.Label("Days parked, full to reserve", htmlFor=ids.PLAN_AUTONOMY, className="field-label"),
                       dcc.Input(id=ids.PLAN_AUTONOMY, type="number", min=0.5, max=30, step=0.5, value=DEFAULT_AUTONOMY_DAYS,
-                                debounce=True, className="number-input", inputMode="decimal")], className="field"),
+                                debounce=True, className="number-input",
+                                inputMode="decimal")], className="field"),  # type: ignore[arg-type]  # HTML value dash's Literal lacks
             html.Div([html.Label("Cover this share of days", htmlFor=ids.PLAN_PERCENTILE, className="field-label"),
                       dcc.Dropdown(id=ids.PLAN_PERCENTILE, value=int(DEFAULT_PERCENTILE), clearable=False, searchable=False,
                                    options=[{"label": f"{p} % of days", "value": p} for p in PERCENTILES],

@@ -7,7 +7,7 @@ private temporary file, parsed as data by the same importer as
 
 from __future__ import annotations
 
-from typing import Any
+from typing import Any, cast
 
 import dash
 from dash import Input, Output, State, callback, dcc, html, no_update
@@ -64,7 +64,7 @@ def layout(**_kwargs: Any) -> html.Div:
         html.Div([html.Button("Check", id=ids.SETUP_VALIDATE, n_clicks=0, className="button"),
                   html.Button("Save", id=ids.SETUP_SAVE, n_clicks=0, className="button primary")],
                  className="buttons"),
-        html.Div(id=ids.SETUP_MESSAGES, **{"aria-live": "polite"}),
+        html.Div(id=ids.SETUP_MESSAGES, **cast("dict[str, Any]", {"aria-live": "polite"})),
         html.H2("Import a log"),
         # No max_size here: the browser would drop a bigger file without a word. The server
         # refuses it and this page says why (dashboard.security.install_body_limit).
@@ -73,7 +73,7 @@ def layout(**_kwargs: Any) -> html.Div:
                                       html.Br(),
                                       html.Small(f"CSV or text export of your monitor, up to "
                                                  f"{UPLOAD_LIMIT_TEXT}")])),
-        dcc.Loading(html.Div(id=ids.SETUP_UPLOAD_RESULT, **{"aria-live": "polite"}), type="dot"),
+        dcc.Loading(html.Div(id=ids.SETUP_UPLOAD_RESULT, **cast("dict[str, Any]", {"aria-live": "polite"})), type="dot"),
         html.H2("What the store holds"),
         html.Div(id=ids.SETUP_STORE_TABLE, children=store_view(source)),
     ])

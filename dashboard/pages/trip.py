@@ -68,6 +68,7 @@ def render_trip(source: DataSource, start_date: str | None, end_date: str | None
         return m, figures.message_figure(f"Daily ledger {days.why}", title="Daily energy ledger"), "", \
             _quality(source, start_date, end_date), stored
     df = days.value
+    assert df is not None  # ok
     done = df[df["complete"]]
     summary = html.Div([
         _summary_card("Days in range", f"{len(df)}", f"{len(done)} whole"),
@@ -122,11 +123,12 @@ def _gap_items(gaps: list[dict], tz: str = "UTC") -> list[Any]:
     return items
 
 
-def _quality(source: DataSource, start_date: str, end_date: str) -> html.Div:
+def _quality(source: DataSource, start_date: str, end_date: str) -> html.Ul:
     """Plain notes: rows stored and rejected, gaps, how the ledger was built, the imports behind it."""
     rep = source.report_json(start_date, end_date)
     items: list[Any] = []
     if rep.ok:
+        assert rep.value is not None  # ok
         dq = rep.value.get("data_quality", {})
         items.append(html.Li(f"{dq.get('rows_stored', 0):,} readings stored, "
                              f"{dq.get('rows_rejected', 0):,} rejected lines quarantined at import."))
@@ -177,6 +179,7 @@ def render_soc(source: DataSource, start_date: str | None, end_date: str | None,
     soc = source.soc(start_date, end_date)
     if not soc.ok:
         return figures.message_figure(f"State of charge: {soc.why}", title="State of charge")
+    assert soc.value is not None  # ok
     series, resync = soc.value
     band = source.soc_band(start_date, end_date)
     tz = source.timezone()
