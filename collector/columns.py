@@ -201,6 +201,8 @@ def classify_column(name: str) -> ColumnSpec | None:
     if not isinstance(name, str) or not name.strip():
         return None
     raw = name.strip()
+    channel: str | None
+    quantity: str | None
     m = _CANONICAL.match(raw.lower())
     if m and not re.search(r"[\s\(\[]", raw):
         q, _, unit = m.group("q").rpartition("_")
@@ -258,7 +260,8 @@ def classify_column(name: str) -> ColumnSpec | None:
     if quantity is None and unit_q is None:
         return None
     if quantity is None:
-        quantity, scale = unit_q  # type: ignore[misc]
+        assert unit_q is not None  # one of the two is known (above)
+        quantity, scale = unit_q
     elif unit_q is None:
         scale = 1.0
     else:

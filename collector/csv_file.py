@@ -401,7 +401,7 @@ def sniff_format(path: Path, head: bytes, *, channel: str, column_map: dict[str,
             cols[j] = spec
             continue
         spec = ColumnSpec(spec.channel or default, spec.quantity, spec.scale)
-        key = (spec.channel, spec.quantity)
+        key = (str(spec.channel), spec.quantity)
         if key in taken:
             ignored.append(f"{name!r} (a second {spec.channel} {spec.quantity} column)")
             continue
@@ -462,6 +462,7 @@ def sniff_format(path: Path, head: bytes, *, channel: str, column_map: dict[str,
         pos += len(raw_lines[i]) + 1
     fast_time = True
     if kind[0] == "strptime":
+        assert kind[1] is not None  # a strptime kind always carries its format
         samples = [" ".join(f[j] for j in chosen) for f in data_lines[:DETECT_LINES]]
         for smp in samples:
             try:
@@ -645,6 +646,7 @@ class _Parser:
         elif len(fmt.time_fields) == 1:
             col = table.column(self.names[fmt.time_fields[0]])
             if fmt.time_kind == "strptime":
+                assert fmt.time_format is not None
                 col = _strict_strptime(col, fmt.time_format)
                 if col is None:
                     return None
@@ -659,6 +661,7 @@ class _Parser:
                                                  table.column(self.names[fmt.time_fields[1]]), " ")
             try:
                 if fmt.time_kind == "strptime":
+                    assert fmt.time_format is not None
                     ts = _strict_strptime(joined, fmt.time_format)
                     if ts is None:
                         return None
@@ -681,6 +684,7 @@ class _Parser:
         ok = reason == 0
         out = wall_us.copy()
         if ok.any():
+            assert self.localise is not None  # local times always come with a localiser
             utc, unplaced, nonexist = self.localise(wall_us[ok])
             out[ok] = utc
             sub = reason[ok]
@@ -811,7 +815,7 @@ class _Parser:
             bad = (reason == 0) & (~np.isnan(v)) & ((v < lo) | (v > hi) | ~np.isfinite(v))
             reason[bad] = _R[f"implausible_{spec.quantity.split('_')[0]}"]
             any_value |= ~np.isnan(v)
-            canon[(spec.channel, spec.quantity)] = v
+            canon[(str(spec.channel), spec.quantity)] = v
         reason[(reason == 0) & ~any_value] = _R["no_values"]
         for code in np.unique(reason[reason != 0]):
             reasons.setdefault(_REASONS[code], []).append(line[reason == code])
@@ -822,10 +826,10 @@ class _Parser:
             if (ch, "power_W") in canon and (ch, "current_A") not in canon:
                 # Current into the bank is power over the BANK voltage; a solar channel's own
                 # voltage is the array side of an MPPT controller, so the battery's comes first.
-                v = canon.get(("battery", "voltage_V"), canon.get((ch, "voltage_V")))
-                if v is not None:
+                v_bank = canon.get(("battery", "voltage_V"), canon.get((ch, "voltage_V")))
+                if v_bank is not None:
                     with np.errstate(divide="ignore", invalid="ignore"):
-                        cur = np.where(v > 1.0, canon[(ch, "power_W")] / v, np.nan)
+                        cur = np.where(v_bank > 1.0, canon[(ch, "power_W")] / v_bank, np.nan)
                     canon[(ch, "current_A")] = cur
         values = {k: v[keep].astype(np.float32) for k, v in canon.items() if k[1] != "power_W"}
         return _Block(line[keep], t_us[keep], values, reasons, header_lines, blank_lines, data_lines)
@@ -1319,17 +1323,17 @@ def _to_utf8_lf(src: Path, dest: Path, encoding: str) -> None:
             while chunk := fin.read(4 << 20):
                 fout.write(chunk)
         return
-    with open(src, "rb") as fin, open(dest, "wb") as fout:
+    with open(src, "rb") as fbin, open(dest, "wb") as fbout:
         held_cr = False  # a CR at the end of a chunk may be the first half of CR LF
-        while chunk := fin.read(8 << 20):
+        while raw := fbin.read(8 << 20):
             if held_cr:
-                chunk = b"\r" + chunk
-            held_cr = chunk.endswith(b"\r")
+                raw = b"\r" + raw
+            held_cr = raw.endswith(b"\r")
             if held_cr:
-                chunk = chunk[:-1]
-            fout.write(chunk.replace(b"\r\n", b"\n").replace(b"\r", b"\n"))
+                raw = raw[:-1]
+            fbout.write(raw.replace(b"\r\n", b"\n").replace(b"\r", b"\n"))
         if held_cr:
-            fout.write(b"\n")
+            fbout.write(b"\n")
 
 
 def _has_bom(path: Path) -> bool:
