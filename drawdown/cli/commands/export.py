@@ -341,8 +341,10 @@ def _arrow_table(kind: str, data: dict[str, Any], meta: dict[str, str]) -> Any:
 
 
 #: Parquet writing: zstd; times delta-coded (sorted per channel, so nearly free); floats split by
-#: byte (their exponents compress together); only the channel column dictionary-coded.
+#: byte (their exponents compress together); only the channel column dictionary-coded; min/max
+#: statistics on time and channel (what a reader filters a readings file on), not on every value.
 PARQUET_OPTIONS: dict[str, Any] = {"compression": "zstd", "use_dictionary": ["channel"],
+                                   "write_statistics": ["t", "channel"],
                                    "column_encoding": {"t": "DELTA_BINARY_PACKED", "voltage_V": "BYTE_STREAM_SPLIT",
                                                        "current_A": "BYTE_STREAM_SPLIT",
                                                        "temperature_C": "BYTE_STREAM_SPLIT",
@@ -387,6 +389,9 @@ READINGS_BATCH_ROWS = 1 << 20  # rows per Parquet row group when streaming readi
 def _stream_readings_parquet(path: Path, store: Any, start: Any, end: Any, meta: dict[str, str]) -> dict[str, Any]:
     """Write the store's readings to Parquet piece by piece (never the whole store in memory);
     returns rows and the first and last time [us]."""
+    import queue
+    import threading
+
     import numpy as np
     import pyarrow as pa
     import pyarrow.parquet as pq
@@ -415,7 +420,29 @@ def _stream_readings_parquet(path: Path, store: Any, start: Any, end: Any, meta:
         pending.clear()
         held = 0
 
-    with pq.ParquetWriter(path, schema, **PARQUET_OPTIONS) as writer:
+    # The writer encodes in C++ without the GIL: it runs in its own thread while this one reads the
+    # store and builds the next batch (two batches in flight at most, so memory stays bounded).
+    batches: queue.Queue[Any] = queue.Queue(maxsize=2)
+    failed: list[BaseException] = []
+
+    def write_all() -> None:
+        try:
+            with pq.ParquetWriter(path, schema, **PARQUET_OPTIONS) as writer:
+                while (batch := batches.get()) is not None:
+                    writer.write_batch(batch)
+        except BaseException as exc:  # noqa: BLE001 - handed to the reading thread, raised there
+            failed.append(exc)
+            while batches.get() is not None:  # let the reader finish rather than block
+                pass
+
+    class Sink:
+        def write_batch(self, batch: Any) -> None:
+            batches.put(batch)
+
+    writer_thread = threading.Thread(target=write_all, name="parquet-writer", daemon=True)
+    writer_thread.start()
+    sink = Sink()
+    try:
         for name, t, vals in store.iter_pieces(start, end):
             if name not in names:
                 names.append(name)
@@ -425,8 +452,16 @@ def _stream_readings_parquet(path: Path, store: Any, start: Any, end: Any, meta:
             first = int(t[0]) if first is None else min(first, int(t[0]))
             last = int(t[-1]) if last is None else max(last, int(t[-1]))
             if held >= READINGS_BATCH_ROWS:
-                flush(writer)
-        flush(writer)
+                flush(sink)
+            if failed:
+                break
+        if not failed:
+            flush(sink)
+    finally:
+        batches.put(None)
+        writer_thread.join()
+    if failed:
+        raise failed[0]
     return {"rows": rows, "first_us": first, "last_us": last}
 
 
