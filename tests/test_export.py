@@ -303,7 +303,38 @@ def test_events_hold_resyncs_anchors_and_notes_with_times(trip, capsys, tmp_path
     notes = df[df["kind"] == "note"]
     assert list(notes["message"]) == list(report.data_quality["notes"])
     assert (notes["t"] == pd.Timestamp(report.period["start"])).all()
+    findings = df[df["kind"] == "charging_finding"]
+    assert list(findings["message"]) == list(report.extras["charging"]["findings"])
+    # a day's notes, over that local day (the ledger's day bounds), the text report --json gives
+    for kind, key in (("hidden_load", "hidden_load_note"), ("low_soc", "soc_min_pct_note"),
+                      ("incomplete_day", "complete_why")):
+        want = [d[key] for d in report.days if d.get(key) and (key != "complete_why" or not d["complete"])]
+        got = df[df["kind"] == kind]
+        assert sorted(got["message"]) == sorted(want), kind
+        bounds = report.ledger_result.bounds_us
+        starts = {int(b) for b in bounds[:-1]}
+        assert {int(t.value // 1000) for t in got["t"]} <= starts
     assert df["t"].is_monotonic_increasing
+
+
+def test_events_of_a_single_shunt_trip_hold_its_days_with_hidden_load(tmp_path, capsys):
+    # one shunt: the load under charging is inferred, and such days say so (docs/single_shunt.md)
+    log = tmp_path / "trip.csv"
+    assert main(["simulate", "--scenario", "spring-truck", "--days", "4", "--interval", "60", "--single-shunt",
+                 "--out", str(log)]) == 0
+    assert main([*_base(tmp_path), "import", str(log)]) == 0
+    capsys.readouterr()
+    out, obj = _export(tmp_path, capsys, tmp_path, "events", "parquet")
+    system = parse_system((tmp_path / "system.toml").read_text(encoding="utf-8"))
+    with Store(tmp_path / "readings.sqlite", read_only=True) as st:
+        report = build_report(st.read(), system)
+    want = [d["hidden_load_note"] for d in report.days if d.get("hidden_load_note")]
+    got = pd.read_parquet(out)
+    hidden = got[got["kind"] == "hidden_load"]
+    assert want and sorted(hidden["message"]) == sorted(want)
+    day_starts = [int(b) for b in report.ledger_result.bounds_us[:-1]]
+    assert all(int(t.value // 1000) in day_starts for t in hidden["t"])
+    assert ((hidden["t_end"] - hidden["t"]) >= pd.Timedelta(hours=23)).all()
 
 
 # -- foreign Parquet --------------------------------------------------------------------------------

@@ -115,7 +115,9 @@ SCHEMAS: dict[str, tuple[Col, ...]] = {
         Col("t_end", "timestamp", "UTC", True, "when it ended: a gap's end, the last moment a full bank still met "
                                               "the full-charge conditions, the period's end for a caution or note"),
         Col("kind", "string", "", False, "full_charge_resync, ocv_anchor, quasi_ocv_anchor, gap, caution, note, "
-                                         "or collector_<kind> (the live collector's own record)"),
+                                         "charging_finding, hidden_load, low_soc, incomplete_day (a day's note, "
+                                         "t to t_end is that day), or collector_<kind> (the live collector's own "
+                                         "record)"),
         Col("channel", "string", "", True, "the channel it concerns"),
         Col("soc_pct", "float64", "%", True, "an anchor's known state of charge"),
         Col("soc_sigma_pct", "float64", "%", True, "an anchor's one-sigma uncertainty [percentage points]"),
@@ -273,6 +275,20 @@ def _events_data(report: Any, collector_events: list[dict[str, Any]]) -> dict[st
     p0, p1 = _ts_us(report.period["start"]), _ts_us(report.period["end"])
     for text in report.extras.get("cautions") or []:
         rows.append((p0, p1, "caution", None, None, None, str(text)))
+    for text in (report.extras.get("charging") or {}).get("findings") or []:
+        rows.append((p0, p1, "charging_finding", None, None, None, str(text)))
+    # what the report says of single days (the same text as report --json's days), over that day
+    bounds = report.ledger_result.bounds_us if report.ledger_result is not None else ()
+    for k, day in enumerate(report.days):
+        if k + 1 >= len(bounds):
+            break
+        d0, d1 = int(bounds[k]), int(bounds[k + 1])
+        if day.get("hidden_load_note"):
+            rows.append((d0, d1, "hidden_load", "battery", None, None, str(day["hidden_load_note"])))
+        if day.get("soc_min_pct_note"):
+            rows.append((d0, d1, "low_soc", "battery", day.get("soc_min_pct"), None, str(day["soc_min_pct_note"])))
+        if not day.get("complete", True) and day.get("complete_why"):
+            rows.append((d0, d1, "incomplete_day", None, None, None, str(day["complete_why"])))
     for text in report.data_quality.get("notes") or []:
         rows.append((p0, p1, "note", None, None, None, str(text)))
     for ev in collector_events:
