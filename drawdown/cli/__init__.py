@@ -47,7 +47,8 @@ def _parser() -> argparse.ArgumentParser:
 #: Third-party packages of each optional part (pyproject.toml extras) -> the extra that brings them.
 EXTRA_OF: dict[str, str] = {"scipy": "analysis", "statsmodels": "analysis", "pvlib": "analysis",
                             "tsdownsample": "analysis", "dash": "dashboard", "plotly": "dashboard",
-                            "flask": "dashboard", "bleak": "ble"}
+                            "flask": "dashboard", "bleak": "ble", "dask": "fleet", "distributed": "fleet",
+                            "duckdb": "fleet", "fsspec": "fleet"}
 
 
 def missing_extra_message(command: str, exc: ModuleNotFoundError) -> str | None:
