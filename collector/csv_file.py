@@ -618,7 +618,12 @@ class _Parser:
             for j in fmt.time_fields:
                 types[self.names[j]] = pa.string()
         self.read_opts = pcsv.ReadOptions(column_names=self.names, use_threads=True, block_size=4 << 20)
-        self.parse_opts = pcsv.ParseOptions(delimiter=fmt.delimiter)
+        # Blank lines are not skipped (arrow reads one as a row of nulls; the fast path hands a
+        # block with an empty time to the careful path), and a newline always ends a row: so a
+        # block that parses has exactly as many rows as lines, and its line count is the table's
+        # row count (no second pass over the bytes to count them).
+        self.parse_opts = pcsv.ParseOptions(delimiter=fmt.delimiter, ignore_empty_lines=False,
+                                            newlines_in_values=False)
         kw: dict[str, Any] = {}
         self.conv_opts = pcsv.ConvertOptions(
             column_types=types, include_columns=[self.names[j] for j in sorted(fmt.columns)],
@@ -628,15 +633,15 @@ class _Parser:
         self.header_norm = fmt.delimiter.join(norm)
 
     # -- fast path -----------------------------------------------------------
-    def _fast(self, block: bytes, first_line: int, n_lines: int | None = None) -> _Block | None:
+    def _fast(self, block: bytes, first_line: int) -> _Block | None:
         try:
             table = pcsv.read_csv(io.BytesIO(block), read_options=self.read_opts,
                                   parse_options=self.parse_opts, convert_options=self.conv_opts)
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError, pa.ArrowTypeError):
             return None
-        n = _n_lines(block) if n_lines is None else n_lines
-        if table.num_rows != n:
-            return None  # blank lines were skipped: line numbers would not match
+        n = table.num_rows  # one row per line (see parse_opts)
+        if n == 0 or table.column(self.names[self.fmt.time_fields[0]]).null_count:
+            return None  # a blank line (read as a row of nulls) or an empty time: the careful path tells them apart
         fmt = self.fmt
         time_reason = np.zeros(n, np.uint8)
         if fmt.time_kind == "epoch":
@@ -834,7 +839,7 @@ class _Parser:
         values = {k: v[keep].astype(np.float32) for k, v in canon.items() if k[1] != "power_W"}
         return _Block(line[keep], t_us[keep], values, reasons, header_lines, blank_lines, data_lines)
 
-    def parse(self, block: bytes, first_line: int, n_lines: int | None = None) -> _Block:
+    def parse(self, block: bytes, first_line: int) -> _Block:
         """Parse a block: the fast path, else halve it and try again; the careful path for small pieces.
 
         Halving keeps a few bad lines (a repeated header a day, a truncated line) from sending
@@ -842,7 +847,7 @@ class _Parser:
         """
         if not self.fmt.fast_time:
             return self._slow(block, first_line)
-        fast = self._fast(block, first_line, n_lines)  # n_lines: the caller counted them already
+        fast = self._fast(block, first_line)
         if fast is not None:
             return fast
         if len(block) <= SLOW_PIECE_BYTES:
@@ -1180,19 +1185,20 @@ def import_file(path: Path, store: Store, *, tz: str | None = None, channel: str
     """
     t0 = _time.perf_counter()
     path = Path(path)
-    begun = import_finish.begin(path, store, t0)
-    if begun.already is not None:
-        return begun.already
-    size, sha = begun.size, begun.sha256
+    begun = import_finish.begin(path, store, t0)  # hashing runs beside the parse
+    size = begun.size
     with open(path, "rb") as f:
         head = f.read(HEAD_BYTES)
     encoding, line_ends = _text_shape(head)
     if not (encoding.startswith("utf-16") or line_ends == "cr"):
-        return _import_text(path, path, store, head=head, size=size, sha=sha, t0=t0, tz=tz, channel=channel,
+        return _import_text(path, path, store, head=head, size=size, begun=begun, t0=t0, tz=tz, channel=channel,
                             column_map=column_map, invert=invert, nominal_voltage_V=nominal_voltage_V,
                             progress=progress, block_bytes=block_bytes, encoding=None, line_ends=line_ends)
     # UTF-16, or CR alone ending each line: convert to UTF-8 with LF into a scratch file (the
     # rest of the importer reads bytes split at LF) and import that; line numbers are kept.
+    earlier = begun.earlier(store, t0)  # before the copy: the same file again adds nothing
+    if earlier is not None:
+        return earlier
     scratch = _scratch_dir(store)
     try:
         work = scratch / "converted.csv"
@@ -1203,7 +1209,7 @@ def import_file(path: Path, store: Store, *, tz: str | None = None, channel: str
                                 f"({exc.strerror or exc}); free some disk space beside the store") from None
         with open(work, "rb") as f:
             head = f.read(HEAD_BYTES)
-        return _import_text(path, work, store, head=head, size=work.stat().st_size, sha=sha, t0=t0, tz=tz,
+        return _import_text(path, work, store, head=head, size=work.stat().st_size, begun=begun, t0=t0, tz=tz,
                             channel=channel, column_map=column_map, invert=invert,
                             nominal_voltage_V=nominal_voltage_V, progress=progress, block_bytes=block_bytes,
                             encoding=encoding if encoding != "bytes" else None, line_ends=line_ends)
@@ -1341,7 +1347,8 @@ def _has_bom(path: Path) -> bool:
         return f.read(2) in (b"\xff\xfe", b"\xfe\xff")
 
 
-def _import_text(path: Path, src: Path, store: Store, *, head: bytes, size: int, sha: str, t0: float,
+def _import_text(path: Path, src: Path, store: Store, *, head: bytes, size: int, begun: import_finish.Begun,
+                 t0: float,
                  tz: str | None, channel: str | None, column_map: dict[str, ColumnSpec] | None,
                  invert: Iterable[str], nominal_voltage_V: float | None,
                  progress: Callable[[int, int], None] | None, block_bytes: int,
@@ -1369,9 +1376,8 @@ def _import_text(path: Path, src: Path, store: Store, *, head: bytes, size: int,
     first_line = fmt.header_line + 1
     with open(src, "rb") as f:
         for off, block in _iter_blocks(f, fmt.data_offset, block_bytes):
-            n_lines = _n_lines(block)
-            b = parser.parse(block, first_line, n_lines)
-            first_line += n_lines
+            b = parser.parse(block, first_line)
+            first_line += b.data_lines + b.header_lines + b.blank_lines  # every line is one of these
             header_lines += b.header_lines
             blank_lines += b.blank_lines
             data_lines += b.data_lines
@@ -1390,6 +1396,13 @@ def _import_text(path: Path, src: Path, store: Store, *, head: bytes, size: int,
             del b
             if progress is not None:
                 progress(off + len(block), size)
+            earlier = begun.earlier_if_hashed(store, t0)  # the same file imported before: stop here
+            if earlier is not None:
+                return earlier
+    earlier = begun.earlier(store, t0)
+    if earlier is not None:
+        return earlier
+    sha = begun.sha256
     if data_lines == 0:
         raise UnusableInput(f"{path}: a header ({fmt.delimiter.join(fmt.header)!r}) but no data lines")
     t = t_g.view()

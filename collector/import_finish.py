@@ -5,8 +5,9 @@ and the columns read at those times, keyed ``(channel, quantity)`` (a wide log h
 long Parquet file one per channel). From there the steps are the same for every format, and
 live here once:
 
-1. :func:`begin` -- the file can be read, is not a folder, and was not imported before (its
-   sha256 is in the store's import log: then the earlier result is returned, nothing is added);
+1. :func:`begin` -- the file can be read and is not a folder; its sha256 is computed beside the
+   parse, and an importer returns the earlier result, adding nothing, when the store's import
+   log has it (:class:`Begun`);
 2. :func:`order_axis` -- rows out of time order are sorted; a repeated time with the same
    values is a ``duplicate``, with other values a ``duplicate_time`` (both rejected, counted);
 3. :func:`count_rejects` and :func:`check_counts` -- ``stored + rejected == data lines``, always;
@@ -22,7 +23,6 @@ from __future__ import annotations
 import dataclasses
 import time as _time
 from collections.abc import Callable, Iterable
-from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -46,18 +46,54 @@ SIGN_SAMPLE_ROWS = 1_000_000    # rows used to decide a channel's sign
 _SLICE = 1 << 22                # rows per slice for whole-axis checks (bounded temporaries)
 
 
-@dataclass(frozen=True)
 class Begun:
-    """What :func:`begin` found: the file's size and sha256, or the result of its earlier import."""
+    """A file found readable, its size, and its sha256 being computed in a thread beside the parse.
 
-    size: int
-    sha256: str
-    already: ImportResult | None
+    Hashing a year's log (1.5 GB) takes over a second; the parse does not need the hash, only
+    the check "was this file imported before" does, so it runs alongside: :meth:`earlier` asks
+    the store once the hash is known (an importer checks between blocks, and always before it
+    writes anything).
+    """
+
+    def __init__(self, path: Path, size: int):
+        from concurrent.futures import ThreadPoolExecutor
+
+        from drawdown.collector.csv_file import _sha256
+
+        self.path = path
+        self.size = size
+        self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="sha256")
+        self._sha = self._pool.submit(_sha256, path)
+        self._pool.shutdown(wait=False)
+        self._asked = False
+        self._earlier: ImportResult | None = None
+
+    @property
+    def sha256(self) -> str:
+        """The file's sha256 (waits for the hash)."""
+        return self._sha.result()
+
+    def hashed(self) -> bool:
+        return self._sha.done()
+
+    def earlier(self, store: Store, t0: float) -> ImportResult | None:
+        """The result of an earlier import of the same bytes, or None (waits for the hash)."""
+        from drawdown.collector.csv_file import already_imported_result
+
+        if not self._asked:
+            previous = store.find_import(self.sha256)
+            self._earlier = already_imported_result(self.path, self.sha256, previous, t0) if previous else None
+            self._asked = True
+        return self._earlier
+
+    def earlier_if_hashed(self, store: Store, t0: float) -> ImportResult | None:
+        """:meth:`earlier` when the hash is ready, else None without waiting."""
+        return self.earlier(store, t0) if self.hashed() else None
 
 
 def begin(path: Path, store: Store, t0: float) -> Begun:
-    """Check ``path`` can be read and is a file; find an earlier import of the same bytes."""
-    from drawdown.collector.csv_file import UnusableInput, _sha256, already_imported_result
+    """Check ``path`` can be read and is a file; start hashing it (see :class:`Begun`)."""
+    from drawdown.collector.csv_file import UnusableInput
 
     try:
         size = path.stat().st_size
@@ -65,10 +101,7 @@ def begin(path: Path, store: Store, t0: float) -> Begun:
         raise UnusableInput(f"{path}: cannot read the file ({exc.strerror or exc})") from None
     if path.is_dir():
         raise UnusableInput(f"{path}: is a folder, not a log file")
-    sha = _sha256(path)
-    previous = store.find_import(sha)
-    already = already_imported_result(path, sha, previous, t0) if previous is not None else None
-    return Begun(size, sha, already)
+    return Begun(path, size)
 
 
 def _strictly_increasing(t: np.ndarray) -> bool:

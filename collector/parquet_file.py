@@ -506,8 +506,9 @@ def _import_parquet(path: Path, store: Store, *, tz: str | None, channel: str | 
     t0 = _time.perf_counter()
     path = Path(path)
     begun = import_finish.begin(path, store, t0)
-    if begun.already is not None:
-        return begun.already
+    earlier = begun.earlier(store, t0)
+    if earlier is not None:
+        return earlier
     size, sha = begun.size, begun.sha256
     if size == 0:
         raise UnusableInput(f"{path}: the file is empty; nothing to import")
