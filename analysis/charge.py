@@ -278,10 +278,10 @@ def detect_ocv_anchors(ch: Channel, system: System, gaps: np.ndarray) -> list[An
         volt = float(np.nanmedian(v[lo:e + 1]))
         if not np.isfinite(volt):
             continue
-        soc = float(ocv_mod.soc_from_ocv(volt, b.chemistry, b.nominal_voltage_V))
+        soc = float(ocv_mod.soc_from_ocv(volt, b.chemistry, b.nominal_voltage_V, b.rest_voltage_curve))
         if not ocv_mod.trusted(soc, b.chemistry):
             continue
-        sigma = float(ocv_mod.soc_sigma_from_ocv(volt, b.chemistry, b.nominal_voltage_V))
+        sigma = float(ocv_mod.soc_sigma_from_ocv(volt, b.chemistry, b.nominal_voltage_V, b.rest_voltage_curve))
         out.append(Anchor(int(e), int(ch.t_us[e]), soc, "ocv", sigma))
     return out
 
@@ -341,10 +341,11 @@ def detect_quasi_ocv_anchors(ch: Channel, system: System, gaps: np.ndarray,
     last = np.flatnonzero(np.diff(block, append=block[-1] + 1) != 0)
     idx = idx[last]
     ocv_v = v[idx] + np.abs(cur[idx]) * r_ohm
-    soc = ocv_mod.soc_from_ocv(ocv_v, b.chemistry, b.nominal_voltage_V)
+    soc = ocv_mod.soc_from_ocv(ocv_v, b.chemistry, b.nominal_voltage_V, b.rest_voltage_curve)
     trusted_ = ocv_mod.trusted(soc, b.chemistry) if b.chemistry != "lifepo4" else soc <= LFP_QUASI_MAX_SOC_PCT
     keep_idx = keep
-    sigma = np.hypot(QUASI_SIGMA, ocv_mod.soc_sigma_from_ocv(ocv_v, b.chemistry, b.nominal_voltage_V))
+    sigma = np.hypot(QUASI_SIGMA, ocv_mod.soc_sigma_from_ocv(ocv_v, b.chemistry, b.nominal_voltage_V,
+                                                            b.rest_voltage_curve))
     return [Anchor(int(keep_idx[k]), int(ch.t_us[k]), float(sv), "quasi-ocv", float(sg))
             for k, sv, sg, ok in zip(idx, soc, sigma, trusted_) if ok]
 

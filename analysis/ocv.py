@@ -60,6 +60,15 @@ OCV_SIGMA: dict[str, float] = {"flooded": 0.05, "agm": 0.05, "gel": 0.05, "lifep
 #: (Common practice and from memory; see docs/ocv.md.)
 CURVE_SPREAD_V: dict[str, float] = {"flooded": 0.10, "agm": 0.10, "gel": 0.10, "lifepo4": 0.25}
 
+#: The spread left when the bank's own curve is declared (``[battery] rest_voltage_curve``) [V per
+#: 12 V block, +-2 sigma]: temperature (lead-acid about -0.2 mV/degC per cell, ~0.01 V per block
+#: over +-10 degC), the reading's own rest and ageing since the curve was taken; LiFePO4 keeps its
+#: hysteresis (5-25 mV per cell, up to 0.1 V a block). From memory; docs/ocv.md#your-banks-own-curve.
+DECLARED_CURVE_SPREAD_V: dict[str, float] = {"flooded": 0.03, "agm": 0.03, "gel": 0.03, "lifepo4": 0.10}
+
+#: A declared curve: ((SoC %, bank volts), ...) rising in both.
+Curve = tuple[tuple[float, float], ...]
+
 
 def blocks(chemistry: str, nominal_voltage_V: float) -> int:
     """Number of 12 V blocks (12 V lead-acid or 12.8 V 4S LiFePO4) in the bank."""
@@ -67,26 +76,32 @@ def blocks(chemistry: str, nominal_voltage_V: float) -> int:
     return max(1, round(nominal_voltage_V / per))
 
 
-def soc_from_ocv(ocv_V: ArrayLike, chemistry: str, nominal_voltage_V: float) -> np.ndarray:
+def soc_from_ocv(ocv_V: ArrayLike, chemistry: str, nominal_voltage_V: float, curve: Curve | None = None) -> np.ndarray:
     """State of charge [%] of a rested bank from its open-circuit voltage.
 
-    Linear interpolation in the chemistry's table, clipped to the table ends.
+    Linear interpolation in the bank's declared curve (``curve``, bank volts) when given, else in
+    the chemistry's table (per 12 V block, scaled to the bank), clipped to the ends.
 
     Parameters
     ----------
     ocv_V : rested terminal voltage of the bank [V]
     chemistry : 'flooded', 'agm', 'gel' or 'lifepo4'
     nominal_voltage_V : bank nominal voltage [V] (12/24/48 V lead-acid, 12.8/25.6/51.2 V LiFePO4)
+    curve : the bank's own ((SoC %, V), ...) from ``[battery] rest_voltage_curve``, or None
     """
     if chemistry not in OCV_TABLES:
         raise ValueError(f"no OCV table for chemistry {chemistry!r}; expected one of {sorted(OCV_TABLES)}")
+    if curve is not None:
+        return np.interp(np.asarray(ocv_V, dtype=float), [p[1] for p in curve], [p[0] for p in curve])
     soc, v = OCV_TABLES[chemistry]
     per_block = np.asarray(ocv_V, dtype=float) / blocks(chemistry, nominal_voltage_V)
     return np.interp(per_block, v, soc)
 
 
-def ocv_from_soc(soc_pct: ArrayLike, chemistry: str, nominal_voltage_V: float) -> np.ndarray:
+def ocv_from_soc(soc_pct: ArrayLike, chemistry: str, nominal_voltage_V: float, curve: Curve | None = None) -> np.ndarray:
     """Inverse of :func:`soc_from_ocv`: the bank OCV [V] at a state of charge [%]."""
+    if curve is not None:
+        return np.interp(np.asarray(soc_pct, dtype=float), [p[0] for p in curve], [p[1] for p in curve])
     soc, v = OCV_TABLES[chemistry]
     return np.interp(np.asarray(soc_pct, dtype=float), soc, v) * blocks(chemistry, nominal_voltage_V)
 
@@ -100,17 +115,20 @@ def trusted(soc_pct: ArrayLike, chemistry: str) -> np.ndarray:
     return ok
 
 
-def soc_sigma_from_ocv(ocv_V: ArrayLike, chemistry: str, nominal_voltage_V: float) -> np.ndarray:
+def soc_sigma_from_ocv(ocv_V: ArrayLike, chemistry: str, nominal_voltage_V: float,
+                       curve: Curve | None = None) -> np.ndarray:
     """One-sigma uncertainty [fraction] of the SoC read from a rested voltage, curve spread included.
 
     The SoC range the reading maps to when the bank's own curve lies anywhere within
     +-:data:`CURVE_SPREAD_V` of the table (taken as +-2 sigma), combined with the
     reading's own :data:`OCV_SIGMA`. On the LiFePO4 plateau and its lower shoulder a
-    0.25 V spread is 10-40 % of SoC; in the steep last 10 % it is a few %.
+    0.25 V spread is 10-40 % of SoC; in the steep last 10 % it is a few %. With the bank's own
+    curve declared the spread is :data:`DECLARED_CURVE_SPREAD_V`.
     """
     v = np.asarray(ocv_V, dtype=float)
-    dv = CURVE_SPREAD_V[chemistry] * blocks(chemistry, nominal_voltage_V)
-    hi = soc_from_ocv(v + dv, chemistry, nominal_voltage_V)
-    lo = soc_from_ocv(v - dv, chemistry, nominal_voltage_V)
+    spread = (DECLARED_CURVE_SPREAD_V if curve is not None else CURVE_SPREAD_V)[chemistry]
+    dv = spread * blocks(chemistry, nominal_voltage_V)
+    hi = soc_from_ocv(v + dv, chemistry, nominal_voltage_V, curve)
+    lo = soc_from_ocv(v - dv, chemistry, nominal_voltage_V, curve)
     curve = (hi - lo) / 4.0 / 100.0
     return np.hypot(curve, OCV_SIGMA[chemistry])

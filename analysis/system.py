@@ -15,7 +15,7 @@ import tomllib
 from typing import Literal, cast
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
-from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 from pydantic_core import ErrorDetails
 
 Chemistry = Literal["lifepo4", "agm", "gel", "flooded"]
@@ -153,6 +153,41 @@ class Battery(_Strict):
     full_current_pct: float | None = Field(default=None, gt=0, le=20)
     full_hold_s: float = Field(default=FULL_HOLD_S_DEFAULT, ge=10, le=3600)
     max_dod: float | None = Field(default=None, gt=0.05, le=1.0)
+    # The bank's own rested-voltage curve, [[SoC %, bank volts], ...] from its maker's datasheet
+    # or a rest test, used instead of the chemistry's typical table (docs/ocv.md#your-banks-own-curve).
+    rest_voltage_curve: tuple[tuple[float, float], ...] | None = None
+
+    @field_validator("rest_voltage_curve", mode="before")
+    @classmethod
+    def _curve_pairs(cls, value: object) -> object:
+        if isinstance(value, list):  # TOML arrays arrive as lists: pairs of numbers
+            return tuple(tuple(float(x) if isinstance(x, int) and not isinstance(x, bool) else x for x in pair)
+                         if isinstance(pair, list) else pair for pair in value)
+        return value
+
+    @model_validator(mode="after")
+    def _curve_shape(self) -> Battery:
+        curve = self.rest_voltage_curve
+        if curve is None:
+            return self
+        if len(curve) < 3:
+            raise ValueError(f"rest_voltage_curve: {len(curve)} point(s); give at least 3 [SoC %, volts] pairs "
+                             "from 0 to 100 %")
+        socs = [p[0] for p in curve]
+        volts = [p[1] for p in curve]
+        if any(not (0.0 <= x <= 100.0) for x in socs) or any(b <= a for a, b in zip(socs, socs[1:])):
+            raise ValueError(f"rest_voltage_curve: the SoC values {socs} must rise from 0 towards 100 %")
+        if socs[0] > 10.0 or socs[-1] < 90.0:
+            raise ValueError(f"rest_voltage_curve: it spans {socs[0]:g}-{socs[-1]:g} %; give points from at most "
+                             "10 % up to at least 90 %")
+        if any(b <= a for a, b in zip(volts, volts[1:])):
+            raise ValueError(f"rest_voltage_curve: the voltages {volts} must rise with the state of charge")
+        lo, hi = 0.8 * self.nominal_voltage_V, 1.2 * self.nominal_voltage_V
+        if volts[0] < lo or volts[-1] > hi:
+            raise ValueError(f"rest_voltage_curve: {volts[0]:g}-{volts[-1]:g} V is not a rested "
+                             f"{self.nominal_voltage_V:g} V bank (expected within {lo:.1f}-{hi:.1f} V): volts are "
+                             "for the whole bank, not per cell")
+        return self
 
     def _default(self, key: str) -> float:
         return CHEMISTRY_DEFAULTS[self.chemistry][key]

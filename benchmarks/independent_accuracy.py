@@ -140,12 +140,47 @@ def score(case: str, seed: int, layout: str, report: dict, truth: dict) -> Score
     return sc
 
 
-def run_case(name: str, seed: int, days: int | None, tmp: Path, verbose: bool) -> list[Score]:
+def declared_curve(name: str, seed: int, days: int | None) -> list[list[float]] | None:
+    """The case's bank rested-voltage curve at 0, 5, ..., 100 % of its usable capacity, as its
+    maker's datasheet would give it (``[battery] rest_voltage_curve``); None for a bank without one."""
+    from independent.family import CASES
+
+    bank = CASES[name].build(seed, None, days).make_bank()
+    if not hasattr(bank, "ocv_at_soc_pct"):
+        return None
+    socs = np.arange(0.0, 101.0, 5.0)
+    out: list[list[float]] = []
+    for s_, v in zip(socs, bank.ocv_at_soc_pct(socs)):
+        if not out or round(float(v), 4) > out[-1][1]:  # a datasheet curve rises: drop a point that does not
+            out.append([float(s_), round(float(v), 4)])
+    return out
+
+
+def with_curve(system_text: str, curve: list[list[float]]) -> str:
+    """``system_text`` with ``rest_voltage_curve`` added to its [battery] table."""
+    line = "rest_voltage_curve = [" + ", ".join(f"[{s_:g}, {v:g}]" for s_, v in curve) + "]"
+    out, done = [], False
+    for row in system_text.splitlines():
+        out.append(row)
+        if row.strip() == "[battery]" and not done:
+            out.append(line)
+            done = True
+    if not done:
+        raise ValueError("system.toml has no [battery] table")
+    return "\n".join(out) + "\n"
+
+
+def run_case(name: str, seed: int, days: int | None, tmp: Path, verbose: bool,
+             declare_curve: bool = False) -> list[Score]:
     from independent.family import make_case
 
     case = make_case(name, seed=seed, days=days, out_dir=tmp / f"{name}-{seed}")
     truth = case.truth if isinstance(case.truth, dict) else json.loads(Path(case.truth_json).read_text())
     system_text = Path(case.system_toml).read_text()
+    if declare_curve:
+        curve = declared_curve(name, seed, days)
+        if curve is not None:
+            system_text = with_curve(system_text, curve)
     out = []
     for layout, csv in (("multi", case.multi_csv), ("single", case.single_csv)):
         if csv is None:
@@ -227,6 +262,8 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("-q", "--quiet", action="store_true", help="only the summary")
     ap.add_argument("--dump", type=Path, default=None, help="write one CSV row per scored day here")
     ap.add_argument("--no-pybamm", action="store_true", help="leave out the (slow) PyBaMM cases")
+    ap.add_argument("--declare-curve", action="store_true",
+                    help="give each bank's own rested-voltage curve in system.toml (as its datasheet would)")
     args = ap.parse_args(argv)
     from independent import family
 
@@ -239,7 +276,7 @@ def main(argv: list[str] | None = None) -> int:
         for name in names:
             for seed in seeds:
                 try:
-                    scores += run_case(name, seed, args.days, Path(tmp), not args.quiet)
+                    scores += run_case(name, seed, args.days, Path(tmp), not args.quiet, args.declare_curve)
                 except Exception as exc:  # noqa: BLE001 - one failing case is reported, not fatal
                     print(f"  {name} seed {seed}: FAILED {type(exc).__name__}: {exc}", flush=True)
     print(f"\n{len(scores)} logs ({', '.join(names)}; seeds {seeds}) in {time.perf_counter() - t0:.0f} s")
