@@ -60,11 +60,10 @@ OCV_SIGMA: dict[str, float] = {"flooded": 0.05, "agm": 0.05, "gel": 0.05, "lifep
 #: (Common practice and from memory; see docs/ocv.md.)
 CURVE_SPREAD_V: dict[str, float] = {"flooded": 0.10, "agm": 0.10, "gel": 0.10, "lifepo4": 0.25}
 
-#: The spread left when the bank's own curve is declared (``[battery] rest_voltage_curve``) [V per
-#: 12 V block, +-2 sigma]: temperature (lead-acid about -0.2 mV/degC per cell, ~0.01 V per block
-#: over +-10 degC), the reading's own rest and ageing since the curve was taken; LiFePO4 keeps its
-#: hysteresis (5-25 mV per cell, up to 0.1 V a block). From memory; docs/ocv.md#your-banks-own-curve.
-DECLARED_CURVE_SPREAD_V: dict[str, float] = {"flooded": 0.03, "agm": 0.03, "gel": 0.03, "lifepo4": 0.10}
+#: The spread left when the bank's own curve is declared (``[battery] rest_voltage_curve``, LiFePO4
+#: only for now) [V per 12 V block, +-2 sigma]: its hysteresis (5-25 mV per cell, up to 0.1 V a
+#: block) stays. From memory; docs/ocv.md#your-banks-own-curve.
+DECLARED_CURVE_SPREAD_V: dict[str, float] = {"lifepo4": 0.10}
 
 #: A declared curve: ((SoC %, bank volts), ...) rising in both.
 Curve = tuple[tuple[float, float], ...]

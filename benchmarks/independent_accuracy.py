@@ -146,8 +146,8 @@ def declared_curve(name: str, seed: int, days: int | None) -> list[list[float]] 
     from independent.family import CASES
 
     bank = CASES[name].build(seed, None, days).make_bank()
-    if not hasattr(bank, "ocv_at_soc_pct"):
-        return None
+    if not hasattr(bank, "ocv_at_soc_pct") or getattr(bank, "chemistry", None) != "lifepo4":
+        return None  # the key is for LiFePO4 banks so far (docs/ocv.md#your-banks-own-curve)
     socs = np.arange(0.0, 101.0, 5.0)
     out: list[list[float]] = []
     for s_, v in zip(socs, bank.ocv_at_soc_pct(socs)):
