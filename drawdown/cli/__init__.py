@@ -17,12 +17,12 @@ import sys
 import traceback
 
 from drawdown import __version__
-from drawdown.cli.commands import collect, demo, export, import_logs, report, serve, simulate, size, status, wire
+from drawdown.cli.commands import collect, demo, export, fleet, import_logs, report, serve, simulate, size, status, wire
 from drawdown.cli import progress
 from drawdown.cli.context import Context, UsageError
 
 #: The commands in the order ``--help`` lists them.
-COMMANDS = (demo, import_logs, status, report, export, size, wire, collect, serve, simulate)
+COMMANDS = (demo, import_logs, status, report, export, size, wire, collect, serve, simulate, fleet)
 
 
 def _parser() -> argparse.ArgumentParser:
