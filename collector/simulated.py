@@ -47,10 +47,10 @@ import os
 from collections import deque
 from concurrent.futures import ThreadPoolExecutor
 import tomllib
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from importlib import resources
 from pathlib import Path
-from typing import Literal
+from typing import Any, Literal
 from zoneinfo import ZoneInfo
 
 import numpy as np
@@ -254,7 +254,8 @@ def _bank_model(system: System, params: ScenarioParams) -> BankModel:
     )
 
 
-def simulate(scenario: str | Scenario, *, days: int | None = None, seed: int | None = None) -> Simulation:
+def simulate(scenario: str | Scenario, *, days: int | None = None, seed: int | None = None,
+             capacity_fade_Ah_per_day: float = 0.0) -> Simulation:
     """Run a scenario at its internal step.
 
     Parameters
@@ -265,6 +266,12 @@ def simulate(scenario: str | Scenario, *, days: int | None = None, seed: int | N
         Local calendar days to simulate (default: the scenario's ``default_days``).
     seed : int, optional
         Random seed (default: the scenario's ``seed``).
+    capacity_fade_Ah_per_day : float
+        Capacity fade [Ah per day] (default 0: the bank keeps its capacity, as every bundled
+        scenario does). The true capacity of local day ``d`` is ``C0 - fade * d`` (never below
+        :data:`FADE_FLOOR` of ``C0``), applied from the first internal step at or after that
+        day's local midnight where the charger state carries over (see :func:`_run_bank_fading`).
+        The truth then holds ``battery.capacity_fade_Ah_per_day`` and ``battery.usable_Ah_by_day``.
 
     Returns
     -------
@@ -380,10 +387,16 @@ def simulate(scenario: str | Scenario, *, days: int | None = None, seed: int | N
     soc0 = p.battery.initial_soc_pct / 100.0
     a_mat = np.column_stack(src_A) if src_A else np.zeros((n, 1))
     w_mat = np.column_stack(src_W) if src_W else np.zeros((n, 1))
-    run = run_bank(bank, dt_s=dt, source_A=a_mat, source_W=w_mat, load_W=load_W, temperature_C=battery_C,
-                   soc0=soc0, device_rated_Ah=system.battery.rated_capacity_Ah,
-                   device_offset_A=p.device.current_offset_A, device_gain_error=p.device.gain_error,
-                   device_efficiency=system.battery.effective_charge_efficiency, device_soc0=soc0)
+    bank_kw: dict[str, Any] = dict(source_A=a_mat, source_W=w_mat, load_W=load_W, temperature_C=battery_C,
+                                   device_rated_Ah=system.battery.rated_capacity_Ah,
+                                   device_offset_A=p.device.current_offset_A,
+                                   device_gain_error=p.device.gain_error,
+                                   device_efficiency=system.battery.effective_charge_efficiency)
+    fade_changes: list[tuple[int, float]] = []
+    if capacity_fade_Ah_per_day:
+        run, fade_changes = _run_bank_fading(bank, capacity_fade_Ah_per_day, day_start_s, dt, soc0, bank_kw)
+    else:
+        run = run_bank(bank, dt_s=dt, soc0=soc0, device_soc0=soc0, **bank_kw)
 
     avail = a_mat + w_mat / run.conv_V[:, None]
     delivered = {c: np.zeros(n) for c in SOURCES}
@@ -400,7 +413,83 @@ def simulate(scenario: str | Scenario, *, days: int | None = None, seed: int | N
         solar_voltage_V=pv_voltage, driving=driving, sky=skies, soc0=soc0, load_energy_by_kind_Wh=load_energy,
     )
     sim.truth = _truth(sim, mids, day_idx, derate)
+    if capacity_fade_Ah_per_day:
+        sim.truth["battery"]["capacity_fade_Ah_per_day"] = float(capacity_fade_Ah_per_day)
+        sim.truth["battery"]["usable_Ah_by_day"] = [
+            {"date": mids[d].tz_convert(ZoneInfo(tz)).date().isoformat(), "usable_Ah": cap,
+             "from": _iso(t0 + pd.Timedelta(seconds=step * dt))}
+            for d, (step, cap) in enumerate(fade_changes)]
     return sim
+
+
+#: The fade never takes the true capacity below this share of its starting value.
+FADE_FLOOR = 0.1
+#: How far past a local midnight a fading capacity's change may wait for a step where the
+#: charger state carries over [s]; past it the change is made anyway.
+FADE_LOOKAHEAD_S = 12 * 3600.0
+
+
+def _run_bank_fading(bank: BankModel, fade_Ah_per_day: float, day_start_s: np.ndarray, dt: float, soc0: float,
+                     kw: dict[str, Any]) -> tuple[BankRun, list[tuple[int, float]]]:
+    """:func:`run_bank` with a capacity that falls by ``fade_Ah_per_day`` a local day.
+
+    The step loop holds one capacity, so the run is made of day segments, each a
+    :func:`run_bank` with that day's capacity (``dataclasses.replace`` of the bank: its
+    Peukert reference current follows), starting from the previous segment's state of
+    charge, relaxation voltage and the monitor's own SoC. The state of charge is the
+    fraction of the *present* capacity, so a capacity step takes the stored charge down in
+    proportion (lost active material). A segment ends at the first step at or after the
+    next local midnight whose end state a new :func:`run_bank` call starts from
+    unchanged (SoC exactly 100 % or below the re-bulk level: the charger's "full" state is
+    then what ``soc0`` implies), looking at most :data:`FADE_LOOKAHEAD_S` ahead.
+
+    Returns
+    -------
+    run : BankRun
+        The whole run, as one :func:`run_bank` would return it.
+    changes : list of (int, float)
+        Per local day: the first step of its capacity and that capacity [Ah].
+    """
+    n = len(kw["load_W"])
+    look = int(round(FADE_LOOKAHEAD_S / dt))
+    c0 = bank.capacity_Ah
+    parts: list[BankRun] = []
+    changes: list[tuple[int, float]] = []
+    start, soc, vpol, dsoc = 0, soc0, 0.0, soc0
+    days = len(day_start_s) - 1
+    for d in range(days):
+        if start >= n:
+            break
+        cap = max(c0 - fade_Ah_per_day * d, FADE_FLOOR * c0)
+        nominal = n if d + 1 >= days else min(n, int(math.ceil(day_start_s[d + 1] / dt - 1e-9)))
+        stop = min(n, nominal + look) if d + 1 < days else n
+        if stop <= start:
+            continue
+        seg_kw: dict[str, Any] = {k: (v[start:stop] if isinstance(v, np.ndarray) and v.shape[:1] == (n,) else v)
+                                  for k, v in kw.items()}
+        part = run_bank(replace(bank, capacity_Ah=cap), dt_s=dt, soc0=soc, vpol0=vpol, device_soc0=dsoc, **seg_kw)
+        end = stop - start  # steps kept
+        if d + 1 < days and nominal - start < end:
+            tail = part.soc_end[max(0, nominal - start - 1):]
+            safe = np.flatnonzero((tail >= 1.0) | (tail < bank.rebulk_soc))
+            end = (max(0, nominal - start - 1) + int(safe[0]) + 1) if len(safe) else nominal - start
+            end = max(1, end)
+        changes.append((start, float(cap)))
+        parts.append(_cut_run(part, end, start))
+        start += end
+        soc, vpol, dsoc = float(part.soc_end[end - 1]), float(part.vpol_end[end - 1]), float(part.device_soc_end[end - 1])
+    run = BankRun(**{f: np.concatenate([getattr(r, f) for r in parts]) for f in (
+        "soc_end", "net_A", "source_factor", "load_A", "load_scale", "conv_V", "voltage_V", "vpol_end",
+        "regulated_V", "mode", "device_soc_end")}, full_steps=[i for r in parts for i in r.full_steps])
+    return run, changes
+
+
+def _cut_run(run: BankRun, end: int, offset: int) -> BankRun:
+    """The first ``end`` steps of ``run``, its full-charge steps shifted by ``offset``."""
+    arrays = {f: getattr(run, f)[:end] for f in (
+        "soc_end", "net_A", "source_factor", "load_A", "load_scale", "conv_V", "voltage_V", "vpol_end",
+        "regulated_V", "mode", "device_soc_end")}
+    return BankRun(**arrays, full_steps=[i + offset for i in run.full_steps if i < end])
 
 
 def _iso(ts: pd.Timestamp) -> str:
