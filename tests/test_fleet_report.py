@@ -1,0 +1,195 @@
+"""Fleet answers (analysis/fleet.py): the fade trend, the flags, and the fleet report on Dask.
+
+Outside references: a weighted straight line is checked against numpy.polyfit (weights 1/sigma,
+the same estimator as WLS with weights 1/sigma^2; its covariance with ``cov="unscaled"`` is the
+known-variance one); the end-of-life mark of 80 % of rated capacity is the trade's (IEEE 1188
+for VRLA replacement; LiFePO4 cycle-life ratings quoted to 80 % -- common practice).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from drawdown.analysis import fleet
+
+
+def _months(caps: list[float | None], half95: float = 4.0) -> list[dict]:
+    return [{"month": f"2026-{k + 1:02d}", "pairs": 2, "usable_Ah": c,
+             "usable_Ah_ci95": [c - half95, c + half95] if c is not None else None} for k, c in enumerate(caps)]
+
+
+def test_fade_is_the_weighted_slope_in_percent_of_rated_per_month():
+    caps = [200.0, 197.5, 196.0, 193.0, 191.5]
+    half = [3.0, 4.0, 2.0, 5.0, 3.0]
+    months = [{"month": f"2026-{k + 1:02d}", "usable_Ah": c, "usable_Ah_ci95": [c - h, c + h]}
+              for k, (c, h) in enumerate(zip(caps, half))]
+    fade, ci, why = fleet.fade_trend(months, rated_Ah=200.0)
+    sigma = np.array(half) / 1.96
+    (slope, _), cov = np.polyfit(np.arange(5.0), caps, 1, w=1 / sigma, cov="unscaled")
+    assert why is None
+    assert fade == pytest.approx(-100 * slope / 200.0, rel=1e-9)
+    assert 1.0 < fade < 1.2                              # about 2.1 Ah a month of 200 Ah
+    half_known = 1.96 * np.sqrt(cov[0, 0]) * 100 / 200.0
+    assert ci[1] - ci[0] >= 2 * half_known - 1e-9          # never narrower than the months' own errors
+    assert ci[0] < fade < ci[1]
+
+
+def test_a_fade_needs_two_months_with_a_capacity():
+    fade, ci, why = fleet.fade_trend(_months([200.0, None, None]), rated_Ah=200.0)
+    assert fade is None and ci is None and "at least two months" in why and "1 month had one" in why
+
+
+def test_a_steady_bank_has_a_fade_interval_around_zero():
+    fade, ci, _ = fleet.fade_trend(_months([200.0, 201.0, 199.0, 200.5, 199.5]), rated_Ah=200.0)
+    assert abs(fade) < 0.5 and ci[0] < 0 < ci[1]
+
+
+def test_use_up_flags_a_quarter_more_than_the_vehicles_own_history():
+    quiet = [{"complete": True, "consumed_Ah": 40.0 + (k % 3)} for k in range(10)]
+    busy = [{"complete": True, "consumed_Ah": 55.0 + (k % 3)} for k in range(10)]
+    up, why = fleet._use_flag(quiet + busy)
+    assert up and "+" in why
+    assert fleet._use_flag(quiet + quiet)[0] is False
+    assert fleet._use_flag(quiet[:5] + busy[:5])[0] is False   # too few days each side to say
+
+
+def test_most_urgent_first():
+    rows = [{"vehicle": v, "figures": {"urgency": u, "usable_Ah": a, "rated_Ah": 200.0}}
+            for v, u, a in (("van-a", 0.1, 190.0), ("van-b", 5.3, 150.0), ("van-c", 6.0, None), ("van-d", 0.1, 180.0))]
+    assert [r["vehicle"] for r in fleet.sort_by_urgency(rows)] == ["van-c", "van-b", "van-d", "van-a"]
+
+
+# -- on a simulated fleet, through the real command line and real Dask processes ------------------
+
+import json  # noqa: E402
+import os  # noqa: E402
+import signal  # noqa: E402
+import subprocess  # noqa: E402
+import sys  # noqa: E402
+import threading  # noqa: E402
+import time  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+from drawdown.cli import main  # noqa: E402
+
+DASK = str(Path(sys.executable).with_name("dask"))
+
+
+@pytest.fixture(scope="module")
+def fleet_dataset_dir(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("fleet")
+    sim = tmp / "sim"
+    assert main(["--quiet", "simulate", "--fleet", "4", "--days", "21", "--interval", "120", "--seed", "3",
+                 "--out", str(sim)]) == 0
+    dataset = tmp / "dataset"
+    assert main(["--quiet", "fleet", "ingest", str(sim), "--dataset", str(dataset)]) == 0
+    return sim, dataset
+
+
+def _report_json(capsys, argv: list[str]) -> dict:
+    capsys.readouterr()
+    assert main(argv) == 0
+    return json.loads(capsys.readouterr().out)
+
+
+def _vehicle_report(capsys, sim: Path, name: str, tmp: Path) -> dict:
+    """``drawdown report --json`` on the vehicle's own store (its export imported)."""
+    store = tmp / f"{name}.sqlite"
+    base = ["--quiet", "--store", str(store), "--system", str(sim / name / "system.toml")]
+    assert main([*base, "import", str(sim / name / "readings.parquet")]) == 0
+    return _report_json(capsys, [*base, "report", "--json"])
+
+
+@pytest.mark.slow
+def test_fleet_report_gives_each_vehicle_exactly_what_drawdown_report_gives(fleet_dataset_dir, capsys, tmp_path):
+    sim, dataset = fleet_dataset_dir
+    out = _report_json(capsys, ["--quiet", "fleet", "report", "--dataset", str(dataset), "--workers", "2", "--json"])
+    assert out["vehicles"] == 4 and out["workers"] == 2 and len(out["fleet"]) == 4
+    assert [f["urgency"] for f in out["fleet"]] == sorted((f["urgency"] for f in out["fleet"]), reverse=True)
+    for f in out["fleet"]:
+        name = f["vehicle"]
+        assert f["error"] is None, f["error"]
+        own = _vehicle_report(capsys, sim, name, tmp_path)
+        fleet_rep = out["reports"][name]
+        assert fleet_rep["days"] == own["days"]            # every day's figures, the same
+        assert fleet_rep["battery"] == own["battery"]
+        assert fleet_rep["solar"] == own["solar"]
+        assert f["usable_Ah"] == pytest.approx(own["battery"].get("usable_Ah"), abs=1e-3) \
+            if own["battery"].get("usable_Ah") is not None else f["usable_Ah"] is None
+        used = sorted(d["consumed_Ah"] for d in own["days"] if d["complete"])
+        assert f["daily_use_Ah_p50"] == pytest.approx(float(np.percentile(used, 50)), abs=2e-3)
+
+
+def _start(argv: list[str], log: Path) -> subprocess.Popen:
+    env = {**os.environ, "PYBAMM_DISABLE_TELEMETRY": "true"}
+    return subprocess.Popen(argv, stdout=open(log, "wb"), stderr=subprocess.STDOUT, env=env,
+                            start_new_session=True)
+
+
+@pytest.fixture()
+def dask_cluster(tmp_path):
+    """A real dask.distributed scheduler and two single-threaded worker processes (the CLI's
+    --scheduler path); the address comes from the scheduler file."""
+    sched_file = tmp_path / "scheduler.json"
+    procs = [_start([DASK, "scheduler", "--scheduler-file", str(sched_file), "--port", "0", "--no-dashboard",
+                     "--host", "127.0.0.1"], tmp_path / "scheduler.log")]
+    deadline = time.monotonic() + 60
+    while not sched_file.exists() and time.monotonic() < deadline:
+        time.sleep(0.2)
+    assert sched_file.exists(), (tmp_path / "scheduler.log").read_text()
+    address = json.loads(sched_file.read_text())["address"]
+    for k in range(2):
+        procs.append(_start([DASK, "worker", address, "--nworkers", "1", "--nthreads", "1", "--no-dashboard",
+                             "--memory-limit", "2GB", "--name", f"w{k}"], tmp_path / f"worker{k}.log"))
+    from dask.distributed import Client
+
+    with Client(address, timeout=60) as c:
+        c.wait_for_workers(2, timeout=60)
+    yield address, procs
+    for p in procs:
+        try:
+            os.killpg(p.pid, signal.SIGKILL)
+        except ProcessLookupError:
+            pass
+        p.wait(timeout=30)
+
+
+@pytest.mark.slow
+def test_fleet_report_runs_on_an_existing_scheduler(fleet_dataset_dir, dask_cluster, capsys):
+    _, dataset = fleet_dataset_dir
+    address, _ = dask_cluster
+    out = _report_json(capsys, ["--quiet", "fleet", "report", "--dataset", str(dataset), "--scheduler", address,
+                                "--json"])
+    assert out["scheduler"] == address and out["workers"] == 2
+    assert len(out["fleet"]) == 4 and all(f["error"] is None for f in out["fleet"])
+
+
+@pytest.mark.slow
+def test_a_worker_killed_mid_run_does_not_stop_the_report(fleet_dataset_dir, dask_cluster):
+    from dask.distributed import Client
+
+    from drawdown.analysis.fleet import fleet_report
+
+    _, dataset = fleet_dataset_dir
+    address, procs = dask_cluster
+    killed = threading.Event()
+
+    def kill_when_busy() -> None:
+        with Client(address, timeout=60) as c:
+            deadline = time.monotonic() + 120
+            while time.monotonic() < deadline:
+                busy = [w for w, tasks in c.processing().items() if tasks]
+                if busy:
+                    os.killpg(procs[1].pid, signal.SIGKILL)  # one worker gone with its task
+                    killed.set()
+                    return
+                time.sleep(0.05)
+
+    killer = threading.Thread(target=kill_when_busy)
+    killer.start()
+    out = fleet_report(str(dataset), scheduler=address)
+    killer.join()
+    assert killed.is_set()
+    assert len(out["fleet"]) == 4
+    assert all(f["error"] is None for f in out["fleet"]), [f["error"] for f in out["fleet"]]
