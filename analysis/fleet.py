@@ -52,6 +52,7 @@ FADE_FLAG_PCT_PER_MONTH = 1.0
 USE_UP_FLAG_SHARE = 0.25
 USE_MIN_DAYS = 7
 SOLAR_DROP_FLAG_SHARE = 0.20
+SOLAR_MIN_DAYS = 10  # days with a solar ratio a month needs to be compared
 
 #: Urgency weight per flag (the fleet table sorts by the sum, then by capacity share).
 FLAG_WEIGHTS = {"capacity_low": 5.0, "cold_charging": 4.0, "fading_fast": 3.0, "use_up": 2.0, "solar_down": 1.0,
@@ -163,7 +164,8 @@ def fade_trend(months: list[dict[str, Any]], rated_Ah: float) -> tuple[float | N
 
 
 def _solar_months(report: Report, system: System) -> tuple[float | None, float | None]:
-    """The solar performance ratio of the first and last month with solar days (the report's own days)."""
+    """The median solar performance ratio of the first and last month with at least
+    :data:`SOLAR_MIN_DAYS` days that have one (the report's own days)."""
     days = (report.solar or {}).get("days") or []
     by_month: dict[str, list[float]] = {}
     for d in days:
@@ -171,7 +173,8 @@ def _solar_months(report: Report, system: System) -> tuple[float | None, float |
         if pr is None or not math.isfinite(pr):
             continue
         by_month.setdefault(str(d.get("date", ""))[:7], []).append(float(pr))
-    months = sorted(m for m in by_month if m)
+    # a month counts with enough days to say (a log that starts or ends in a month has a few)
+    months = sorted(m for m in by_month if m and len(by_month[m]) >= SOLAR_MIN_DAYS)
     if len(months) < 2:
         return None, None
     return float(np.median(by_month[months[0]])), float(np.median(by_month[months[-1]]))

@@ -54,6 +54,16 @@ def test_use_up_flags_a_quarter_more_than_the_vehicles_own_history():
     assert fleet._use_flag(quiet[:5] + busy[:5])[0] is False   # too few days each side to say
 
 
+def test_solar_months_leave_out_a_month_with_a_few_days():
+    class R:
+        solar = {"days": [{"date": f"2026-09-{d:02d}", "performance_ratio": 0.9} for d in (27, 28, 29, 30)]
+                 + [{"date": f"2026-10-{d:02d}", "performance_ratio": 0.8} for d in range(1, 32)]
+                 + [{"date": f"2026-11-{d:02d}", "performance_ratio": 0.6 if d % 2 else 0.7} for d in range(1, 31)]
+                 + [{"date": "2026-12-01", "performance_ratio": 0.1}]}
+    first, last = fleet._solar_months(R(), None)  # type: ignore[arg-type]
+    assert first == pytest.approx(0.8) and last == pytest.approx(0.65)
+
+
 def test_most_urgent_first():
     rows = [{"vehicle": v, "figures": {"urgency": u, "usable_Ah": a, "rated_Ah": 200.0}}
             for v, u, a in (("van-a", 0.1, 190.0), ("van-b", 5.3, 150.0), ("van-c", 6.0, None), ("van-d", 0.1, 180.0))]
@@ -193,3 +203,25 @@ def test_a_worker_killed_mid_run_does_not_stop_the_report(fleet_dataset_dir, das
     assert killed.is_set()
     assert len(out["fleet"]) == 4
     assert all(f["error"] is None for f in out["fleet"]), [f["error"] for f in out["fleet"]]
+
+
+@pytest.mark.slow
+def test_the_fade_trend_recovers_the_simulated_fade_within_its_interval(tmp_path, capsys):
+    # 100 days of three invented vans (seed 5: van-001 is an AGM bank fading ~1.8 % of rated a month)
+    sim, dataset = tmp_path / "sim", tmp_path / "dataset"
+    assert main(["--quiet", "simulate", "--fleet", "3", "--days", "100", "--interval", "300", "--seed", "5",
+                 "--out", str(sim)]) == 0
+    assert main(["--quiet", "fleet", "ingest", str(sim), "--dataset", str(dataset)]) == 0
+    out = _report_json(capsys, ["--quiet", "fleet", "report", "--dataset", str(dataset), "--json"])
+    with_fade = 0
+    for f in out["fleet"]:
+        truth = json.loads((sim / f["vehicle"] / "truth.json").read_text())
+        if f["fade_pct_per_month"] is None:
+            assert f["fade_why"]
+            continue
+        with_fade += 1
+        lo, hi = f["fade_pct_per_month_ci95"]
+        assert lo <= truth["fade_pct_per_month"] <= hi, (f["vehicle"], truth["fade_pct_per_month"], lo, hi)
+    assert with_fade >= 2
+    fast = next(f for f in out["fleet"] if f["vehicle"] == "van-001")
+    assert "fading_fast" in fast["flags"] and fast["fade_pct_per_month"] > 1.0
