@@ -50,6 +50,8 @@ channel whatever it is.
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import re
 from dataclasses import dataclass
 from typing import Literal
@@ -181,6 +183,21 @@ def _tokens(name: str) -> tuple[list[str], str | None]:
     if unit is not None:
         unit = {"°c": "degc", "degc": "degc", "pct": "pct", "%": "pct", "c": "degc", "deg": "degc"}.get(unit, unit)
     return joined, unit
+
+
+def mapped_spec(column_map: dict[str, ColumnSpec]) -> Callable[[str], ColumnSpec | None]:
+    """What a column name measures: the user's ``--map`` (exact name, then any case and spacing),
+    else :func:`classify_column`. Both importers (text and Parquet) read names through this."""
+    lower_map = {k.strip().lower(): v for k, v in column_map.items()}
+
+    def spec_of(name: str) -> ColumnSpec | None:
+        if name in column_map:
+            return column_map[name]
+        if name.strip().lower() in lower_map:
+            return lower_map[name.strip().lower()]
+        return classify_column(name)
+
+    return spec_of
 
 
 def classify_column(name: str) -> ColumnSpec | None:

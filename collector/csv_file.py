@@ -68,7 +68,7 @@ import pyarrow.compute as pc
 import pyarrow.csv as pcsv
 
 from drawdown.collector.canonical import CHARGE_SOURCES
-from drawdown.collector.columns import ColumnSpec, classify_column, normalise_channel
+from drawdown.collector.columns import ColumnSpec, mapped_spec, normalise_channel
 from drawdown.collector import import_finish
 from drawdown.collector.store import Store
 
@@ -346,14 +346,7 @@ def sniff_format(path: Path, head: bytes, *, channel: str, column_map: dict[str,
     fields = [_split(ln, delim) if ln.strip() else [] for ln in lines]
     counts = [len(f) for f in fields if f]
     mode = int(np.bincount(counts).argmax()) if counts else 0
-    lower_map = {k.strip().lower(): v for k, v in column_map.items()}
-
-    def spec_of(name: str) -> ColumnSpec | None:
-        if name in column_map:
-            return column_map[name]
-        if name.strip().lower() in lower_map:
-            return lower_map[name.strip().lower()]
-        return classify_column(name)
+    spec_of = mapped_spec(column_map)
 
     header_idx = None
     for i, f in enumerate(fields):

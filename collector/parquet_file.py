@@ -54,7 +54,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from drawdown.collector.columns import ColumnSpec, classify_column, normalise_channel
+from drawdown.collector.columns import ColumnSpec, mapped_spec, normalise_channel
 from drawdown.collector.csv_file import (
     _ISO,
     _OFFSET,
@@ -141,14 +141,7 @@ def _detect(path: Path, pf: pq.ParquetFile, *, channel: str, column_map: dict[st
             own: bool) -> _Layout:
     schema = pf.schema_arrow
     names = list(schema.names)
-    lower_map = {k.strip().lower(): v for k, v in column_map.items()}
-
-    def spec_of(name: str) -> ColumnSpec | None:
-        if name in column_map:
-            return column_map[name]
-        if name.strip().lower() in lower_map:
-            return lower_map[name.strip().lower()]
-        return classify_column(name)
+    spec_of = mapped_spec(column_map)
 
     lay = _Layout()
     lay.own = own
