@@ -607,7 +607,7 @@ def _span(kind: str, data: dict[str, Any]) -> tuple[Any, Any]:
 
 def run(args: Any, ctx: Context) -> int:
     from drawdown import __version__
-    from drawdown.cli.commands.report import _local_bound, _no_readings_message
+    from drawdown.cli.commands.report import _no_readings_message, date_range
     from drawdown.collector.parquet_file import META_KIND, META_PRODUCER, META_SCHEMA_VERSION, META_TIMEZONE
 
     kind = (args.kind or "").strip().lower()
@@ -625,12 +625,7 @@ def run(args: Any, ctx: Context) -> int:
     else:
         system = ctx.load_system()  # exit 2 naming the file and key when it is missing or does not validate
         tz = system.site.timezone
-    start = _local_bound(getattr(args, "date_from", None), tz, end=False, option="--from")
-    end = _local_bound(getattr(args, "date_to", None), tz, end=True, option="--to")
-    if start is not None and end is not None and end <= start:
-        raise UsageError(f"--to {args.date_to} is before --from {args.date_from}")
-    if not ctx.store_path.exists():
-        raise UsageError(f"{ctx.store_path}: the store is empty; import a log first ('drawdown import FILE')")
+    start, end = date_range(args, ctx, tz)
     meta = {META_PRODUCER: f"drawdown {__version__}", META_SCHEMA_VERSION: str(SCHEMA_VERSION),
             META_KIND: kind, META_TIMEZONE: tz, "drawdown.from": args.date_from or "",
             "drawdown.to": args.date_to or ""}

@@ -88,6 +88,18 @@ def _html_sizing(readings: Any, system: Any) -> Any:
         return None
 
 
+def date_range(args: Any, ctx: Context, tz: str) -> tuple[Any, Any]:
+    """``--from``/``--to`` as UTC bounds of local days in ``tz`` (None for an open end), checked in
+    order, and the store checked to exist: what ``report`` and ``export`` read readings by."""
+    start = _local_bound(getattr(args, "date_from", None), tz, end=False, option="--from")
+    end = _local_bound(getattr(args, "date_to", None), tz, end=True, option="--to")
+    if start is not None and end is not None and end <= start:
+        raise UsageError(f"--to {args.date_to} is before --from {args.date_from}")
+    if not ctx.store_path.exists():
+        raise UsageError(f"{ctx.store_path}: the store is empty; import a log first ('drawdown import FILE')")
+    return start, end
+
+
 def _no_readings_message(store_path: Path, span: Any, tz: str, args: Any) -> str:
     """Why a report has nothing to show: an empty store, or dates outside what it holds (said in local dates)."""
     if span is None:
@@ -105,12 +117,7 @@ def run(args: Any, ctx: Context) -> int:
     html_path = html_target(args.html) if args.html else None
     system = ctx.load_system()
     tz = system.site.timezone
-    start = _local_bound(getattr(args, "date_from", None), tz, end=False, option="--from")
-    end = _local_bound(getattr(args, "date_to", None), tz, end=True, option="--to")
-    if start is not None and end is not None and end <= start:
-        raise UsageError(f"--to {args.date_to} is before --from {args.date_from}")
-    if not ctx.store_path.exists():
-        raise UsageError(f"{ctx.store_path}: the store is empty; import a log first ('drawdown import FILE')")
+    start, end = date_range(args, ctx, tz)
     store = ctx.open_store()
     try:
         readings = store.read(start, end)
