@@ -19,9 +19,17 @@ manager sorts by (docs/fleet.md#fleet-report):
 * flags (the constants below, docs/fleet.md#fleet-report) and an urgency score to sort by.
 
 A vehicle whose data cannot be analysed is a row with its ``error`` and the reason; it never
-stops the others. Memory per task is one vehicle's readings (a vehicle-year at 1 Hz on three
-channels is ~95 M readings, ~2.5 GB as float32 in the report's frame), so a worker needs about
-4 GB for a year at 1 Hz.
+stops the others.
+
+**Memory per task is bounded** (docs/fleet.md#memory). A vehicle whose readings fit
+:data:`TASK_READINGS` is one task, and its figures are exactly ``drawdown report``'s on its
+store. A longer one (a vehicle-year at 1 Hz is ~160 M readings on five channels, ~20 GB to
+analyse at once) is split into **parts** of whole local calendar months, each within the
+budget, one task each; a last task per vehicle combines them: the days of every part, the
+capacity from every part's anchor pairs by the same estimator, the solar ratio as the median of
+every part's clear days, the days parked from the last part (the present system). Each part's
+days are then those ``drawdown report --from --to`` gives over that part; an anchor pair that
+would span a part boundary is not formed.
 """
 
 from __future__ import annotations
@@ -29,7 +37,7 @@ from __future__ import annotations
 import math
 import traceback
 from collections.abc import Callable, Iterable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -56,7 +64,15 @@ SOLAR_MIN_DAYS = 10  # days with a solar ratio a month needs to be compared
 
 #: Urgency weight per flag (the fleet table sorts by the sum, then by capacity share).
 FLAG_WEIGHTS = {"capacity_low": 5.0, "cold_charging": 4.0, "fading_fast": 3.0, "use_up": 2.0, "solar_down": 1.0,
-                "error": 6.0}
+                "part_failed": 6.0, "error": 6.0}
+
+#: Readings one task may analyse at once. Measured (build_report + size_answer in one process,
+#: peak RSS): 4.8 M readings (14 days at 1 Hz, four channels) 0.9 GB; 13.4 M (31 days at 1 Hz,
+#: five channels) 2.0 GB -- about 130 bytes a reading over a ~0.3 GB start. 15 M readings is
+#: ~2.3 GB, inside a 4 GB worker's 80 % pause mark with room for the task's result; a month at
+#: 1 Hz on five channels fits one task. A month is the smallest part: a vehicle logging more than
+#: this in one month needs bigger workers (docs/fleet.md#memory).
+TASK_READINGS = 15_000_000
 
 
 @dataclass(frozen=True)
@@ -90,6 +106,8 @@ class VehicleFigures:
     flag_reasons: dict[str, str] = field(default_factory=dict)
     urgency: float = 0.0
     error: str | None = None
+    #: The parts a long vehicle was analysed in (start, end, readings, error); empty when whole.
+    parts: list[dict[str, Any]] = field(default_factory=list)
 
     def to_json(self) -> dict[str, Any]:
         from dataclasses import asdict
@@ -193,8 +211,14 @@ def _use_flag(days: list[dict[str, Any]]) -> tuple[bool, str | None]:
 
 
 def vehicle_figures(name: str, report: Report, system: System, readings: pd.DataFrame | None = None,
-                    sizing: Callable[[pd.DataFrame, System], Any] | None = None) -> VehicleFigures:
-    """The fleet figures of one vehicle from its report (and its readings for the days parked)."""
+                    sizing: Callable[[pd.DataFrame, System], Any] | None = None, *,
+                    parked: tuple[float | None, float | None, str | None] | None = None,
+                    parts: list[dict[str, Any]] | None = None) -> VehicleFigures:
+    """The fleet figures of one vehicle from its report (and its readings for the days parked).
+
+    ``parked``: the days parked (p50, p90, why) already computed (a vehicle analysed in parts:
+    on its last part); ``parts``: those parts, each ``{"start", "end", "readings"[, "error"]}``.
+    """
     b = system.battery
     cap = report.capacity
     battery = report.battery or {}
@@ -211,14 +235,17 @@ def vehicle_figures(name: str, report: Report, system: System, readings: pd.Data
     pr_first, pr_last = _solar_months(report, system)
     parked50 = parked90 = None
     parked_why = None
-    if readings is not None:
-        try:
-            run = sizing or _present_autonomy
-            parked50, parked90 = run(readings, system)
-        except Exception as exc:  # noqa: BLE001 - one answer missing, the vehicle still reported
-            parked_why = f"days parked not computed: {exc}"
+    if parked is not None:
+        parked50, parked90, parked_why = parked
+    elif readings is not None:
+        parked50, parked90, parked_why = _days_parked(readings, system, sizing)
     flags: list[str] = []
     reasons: dict[str, str] = {}
+    failed = [p for p in parts or [] if p.get("error")]
+    if failed:
+        flags.append("part_failed")
+        reasons["part_failed"] = "; ".join(f"{p.get('start') or 'start'} to {p.get('end') or 'end'}: {p['error']}"
+                                           for p in failed) + " (the figures are from the other parts)"
     usable = cap.usable_Ah if cap is not None else None
     if usable is not None and usable < CAPACITY_FLAG_SHARE * b.rated_capacity_Ah:
         flags.append("capacity_low")
@@ -244,7 +271,7 @@ def vehicle_figures(name: str, report: Report, system: System, readings: pd.Data
     urgency = sum(FLAG_WEIGHTS[f] for f in flags) + (1.0 - min(share, 1.0))
     return VehicleFigures(
         vehicle=name, period=report.period, usable_Ah=usable,
-        usable_Ah_ci95=tuple(cap.ci95_Ah) if cap is not None and cap.ci95_Ah else None,  # type: ignore[arg-type]
+        usable_Ah_ci95=tuple(cap.ci95_Ah) if cap is not None and cap.ci95_Ah else None,
         usable_Ah_why=cap.why if cap is not None else battery.get("usable_Ah_why"),
         rated_Ah=b.rated_capacity_Ah,
         state_of_health_pct=cap.state_of_health_pct if cap is not None else None,
@@ -257,7 +284,17 @@ def vehicle_figures(name: str, report: Report, system: System, readings: pd.Data
         solar_performance_ratio=pr if pr is None or math.isfinite(pr) else None,
         solar_ratio_first_month=pr_first, solar_ratio_last_month=pr_last,
         days_parked_p50=parked50, days_parked_p90=parked90, days_parked_why=parked_why,
-        flags=flags, flag_reasons=reasons, urgency=urgency)
+        flags=flags, flag_reasons=reasons, urgency=urgency, parts=list(parts or []))
+
+
+def _days_parked(readings: pd.DataFrame, system: System,
+                 sizing: Callable[[pd.DataFrame, System], Any] | None = None
+                 ) -> tuple[float | None, float | None, str | None]:
+    try:
+        p50, p90 = (sizing or _present_autonomy)(readings, system)
+        return p50, p90, None
+    except Exception as exc:  # noqa: BLE001 - one answer missing, the vehicle still reported
+        return None, None, f"days parked not computed: {exc}"
 
 
 def _present_autonomy(readings: pd.DataFrame, system: System) -> tuple[float | None, float | None]:
@@ -284,10 +321,143 @@ def analyse_vehicle(dataset: str, name: str) -> dict[str, Any]:
         figures = vehicle_figures(name, report, system, readings)
         return {"vehicle": name, "figures": figures.to_json(), "report": report.to_json()}
     except Exception as exc:  # noqa: BLE001 - a vehicle's bad data is its row, never the run's end
-        reason = f"{type(exc).__name__}: {exc}"
-        return {"vehicle": name, "figures": VehicleFigures(vehicle=name, error=reason, flags=["error"],
-                                                           urgency=FLAG_WEIGHTS["error"]).to_json(),
-                "report": None, "traceback": traceback.format_exc(limit=4)}
+        return _error_row(name, f"{type(exc).__name__}: {exc}", traceback.format_exc(limit=4))
+
+
+def _error_row(name: str, reason: str, tb: str | None = None) -> dict[str, Any]:
+    row: dict[str, Any] = {"vehicle": name, "report": None,
+                           "figures": VehicleFigures(vehicle=name, error=reason, flags=["error"],
+                                                     urgency=FLAG_WEIGHTS["error"]).to_json()}
+    if tb:
+        row["traceback"] = tb
+    return row
+
+
+def plan_parts(month_readings: dict[str, int], timezone: str, max_readings: int = TASK_READINGS
+               ) -> list[tuple[str | None, str | None]]:
+    """The parts one vehicle is analysed in: ``[(None, None)]`` (the whole vehicle, one task)
+    when its readings fit ``max_readings``, else runs of whole months each within it.
+
+    ``month_readings``: readings per UTC month partition (:func:`collector.fleet_dataset.month_rows`).
+    A part's bounds are local midnights of the first of a month in ``timezone`` (ISO, UTC), so
+    every local day lies in one part; the first part starts open, the last ends open, and
+    consecutive parts share a bound, so each reading is in exactly one part.
+    """
+    import pandas as pd
+
+    months = sorted(month_readings)
+    if sum(month_readings.values()) <= max_readings or len(months) < 2:
+        return [(None, None)]
+    groups: list[list[str]] = [[]]
+    held = 0
+    for m in months:
+        n = month_readings[m]
+        if groups[-1] and held + n > max_readings:
+            groups.append([])
+            held = 0
+        groups[-1].append(m)
+        held += n
+
+    def local_start(month: str) -> str:
+        ts = pd.Timestamp(f"{month}-01").tz_localize(timezone)
+        return ts.tz_convert("UTC").isoformat()
+
+    bounds = [local_start(g[0]) for g in groups[1:]]
+    starts: list[str | None] = [None, *bounds]
+    ends: list[str | None] = [*bounds, None]
+    return list(zip(starts, ends))
+
+
+def _slim(report: Report) -> Report:
+    """The report without its full-resolution series (a part's result travels to the combiner)."""
+    return replace(report, soc=None, ledger=None, resistance_per_day=None, solar_analysis=None, ledger_result=None,
+                   charging=None)
+
+
+def analyse_part(dataset: str, name: str, start: str | None, end: str | None, last: bool) -> dict[str, Any]:
+    """One Dask task of a vehicle analysed in parts: ``build_report`` over ``start <= t < end``
+    (what ``drawdown report --from --to`` runs), and on the last part the days parked."""
+    from drawdown.analysis.report import build_report
+    from drawdown.analysis.system import parse_system
+    from drawdown.collector import fleet_dataset
+
+    out: dict[str, Any] = {"start": start, "end": end, "readings": 0}
+    try:
+        system = parse_system(fleet_dataset.vehicle_system_text(dataset, name))
+        readings = fleet_dataset.read_vehicle(dataset, name, start, end)
+        out["readings"] = len(readings)
+        if readings.empty:
+            raise ValueError("no readings in this part")
+        out["report"] = _slim(build_report(readings, system))
+        if last:
+            out["parked"] = _days_parked(readings, system)
+    except Exception as exc:  # noqa: BLE001 - a part's bad data is noted; the vehicle's other parts still count
+        out["error"] = f"{type(exc).__name__}: {exc}"
+    return out
+
+
+def combined_report(reports: list[Report], system: System, parts: list[dict[str, Any]]) -> Report:
+    """One report from the parts' reports, in time order: their days end to end; the capacity from
+    all their anchor pairs (:func:`analysis.capacity.estimate_capacity`, as for one store); the
+    solar ratio the median of all parts' clear days (as :mod:`analysis.solar` takes it over one
+    period); cold charging summed. ``extras["analysed_in_parts"]`` lists the parts."""
+    from drawdown.analysis.capacity import CapacityEstimate, estimate_capacity
+    from drawdown.analysis.report import Report as ReportType
+
+    b = system.battery
+    pairs = [p for r in reports if r.capacity is not None for p in r.capacity.pairs]
+    if pairs:
+        cap = estimate_capacity(pairs, system)
+    else:
+        whys = sorted({r.capacity.why for r in reports if r.capacity is not None and r.capacity.why})
+        cap = CapacityEstimate(None, None, "no part of the log holds an anchor pair"
+                               + (f" ({'; '.join(whys)})" if whys else ""), None)
+    days = [d for r in reports for d in r.days]
+    solar_days = [d for r in reports for d in (r.solar or {}).get("days") or []]
+    clear = [float(d["performance_ratio"]) for d in solar_days
+             if d.get("in_performance_ratio") and d.get("performance_ratio") is not None]
+    solar: dict[str, Any] = {"performance_ratio": float(np.median(clear)) if clear else None, "days": solar_days}
+    if not clear:
+        solar["performance_ratio_why"] = "no clear, unsaturated day in any part of the log"
+    colds: list[dict[str, Any]] = [c for r in reports if (c := (r.extras.get("charging") or {}).get("cold_charging"))]
+    cold: dict[str, Any] | None = None
+    if colds:
+        temps = [c["min_temperature_C"] for c in colds if c.get("min_temperature_C") is not None]
+        cold = {"minutes": float(sum(float(c.get("minutes") or 0.0) for c in colds)),
+                "min_temperature_C": min(temps) if temps else None}
+    first, last = reports[0].period, reports[-1].period
+    period = {"start": first.get("start"), "end": last.get("end"), "days": len(days),
+              "timezone": first.get("timezone")}
+    battery: dict[str, Any] = {"rated_Ah": b.rated_capacity_Ah, "usable_Ah": cap.usable_Ah,
+                               "usable_Ah_ci95": list(cap.ci95_Ah) if cap.ci95_Ah else None,
+                               "state_of_health_pct": cap.state_of_health_pct, "chemistry": b.chemistry,
+                               "capacity_method": cap.method, "anchor_pairs": [p.to_json() for p in cap.pairs]}
+    if cap.usable_Ah is None:
+        battery["usable_Ah_why"] = cap.why
+    quality = {"rows_stored": sum(int(r.data_quality.get("rows_stored") or 0) for r in reports),
+               "complete_days": sum(1 for d in days if d.get("complete"))}
+    extras = {"charging": {"cold_charging": cold}, "analysed_in_parts": parts}
+    return ReportType(period=period, data_quality=quality, days=days, battery=battery, solar=solar, extras=extras,
+                      capacity=cap)
+
+
+def combine_parts(name: str, system_text: str, *parts: dict[str, Any]) -> dict[str, Any]:
+    """The last Dask task of a vehicle analysed in parts: its fleet row from the parts' results."""
+    from drawdown.analysis.system import parse_system
+
+    try:
+        system = parse_system(system_text)
+        listed = [{"start": p["start"], "end": p["end"], "readings": p["readings"],
+                   **({"error": p["error"]} if "error" in p else {})} for p in parts]
+        good = [p for p in parts if "report" in p]
+        if not good:
+            return _error_row(name, "every part failed: " + "; ".join(str(p.get("error")) for p in parts))
+        report = combined_report([p["report"] for p in good], system, listed)
+        parked = parts[-1].get("parked") or (None, None, "the last part failed: " + str(parts[-1].get("error")))
+        figures = vehicle_figures(name, report, system, parked=parked, parts=listed)
+        return {"vehicle": name, "figures": figures.to_json(), "report": report.to_json()}
+    except Exception as exc:  # noqa: BLE001 - a vehicle's bad data is its row, never the run's end
+        return _error_row(name, f"{type(exc).__name__}: {exc}", traceback.format_exc(limit=4))
 
 
 def sort_by_urgency(rows: list[dict[str, Any]]) -> list[dict[str, Any]]:
@@ -299,14 +469,35 @@ def sort_by_urgency(rows: list[dict[str, Any]]) -> list[dict[str, Any]]:
     return sorted(rows, key=key)
 
 
+def plan_vehicle(dataset: str, name: str, max_readings: int = TASK_READINGS
+                 ) -> tuple[list[tuple[str | None, str | None]], str | None]:
+    """``(parts, system_text)`` of one vehicle (:func:`plan_parts` on its month partitions'
+    footers); a vehicle whose plan cannot be made (no system.toml, a bad one) is one task, which
+    then reports the reason."""
+    from drawdown.analysis.system import parse_system
+    from drawdown.collector import fleet_dataset
+
+    try:
+        text = fleet_dataset.vehicle_system_text(dataset, name)
+        tz = parse_system(text).site.timezone
+        return plan_parts(fleet_dataset.month_rows(dataset, name), tz, max_readings), text
+    except Exception:  # noqa: BLE001 - the whole-vehicle task names the problem in its row
+        return [(None, None)], None
+
+
 def fleet_report(dataset: str, vehicles: list[str] | None = None, *, scheduler: str | None = None,
                  n_workers: int = 2, memory_limit: str = "4GB", retries: int = 2,
+                 max_readings: int = TASK_READINGS,
                  progress: Callable[[int, int], None] | None = None) -> dict[str, Any]:
-    """Run :func:`analyse_vehicle` for every vehicle as Dask tasks and collect the fleet table.
+    """Run the fleet's analysis as Dask tasks and collect the fleet table.
 
-    ``scheduler``: the address of a running ``dask.distributed`` scheduler (``tcp://host:8786``);
-    None starts a LocalCluster of ``n_workers`` single-threaded worker processes with
-    ``memory_limit`` each. A task lost with its worker is run again (``retries``).
+    Each vehicle is one :func:`analyse_vehicle` task when its readings fit ``max_readings``;
+    a longer one is :func:`analyse_part` tasks (:func:`plan_parts`) and one
+    :func:`combine_parts` task fed by their futures, so no task holds more than
+    ``max_readings`` readings. ``scheduler``: the address of a running ``dask.distributed``
+    scheduler (``tcp://host:8786``); None starts a LocalCluster of ``n_workers``
+    single-threaded worker processes with ``memory_limit`` each. A task lost with its worker is
+    run again (``retries``). ``progress(done, total)`` counts vehicles.
     """
     from dask.distributed import Client, LocalCluster, as_completed
 
@@ -320,18 +511,28 @@ def fleet_report(dataset: str, vehicles: list[str] | None = None, *, scheduler: 
         client = Client(cluster)
     else:
         client = Client(scheduler)
+    tasks = 0
     try:
-        futures = [client.submit(analyse_vehicle, dataset, n, key=f"vehicle-{n}", retries=retries, pure=False)
-                   for n in names]
+        futures = []
+        for n in names:
+            parts, text = plan_vehicle(dataset, n, max_readings)
+            if len(parts) == 1 or text is None:
+                futures.append(client.submit(analyse_vehicle, dataset, n, key=f"vehicle-{n}", retries=retries,
+                                             pure=False))
+                tasks += 1
+                continue
+            pieces = [client.submit(analyse_part, dataset, n, lo, hi, k == len(parts) - 1,
+                                    key=f"part-{n}-{k:03d}", retries=retries, pure=False)
+                      for k, (lo, hi) in enumerate(parts)]
+            futures.append(client.submit(combine_parts, n, text, *pieces, key=f"vehicle-{n}", retries=retries,
+                                         pure=False))
+            tasks += len(pieces) + 1
         rows = []
         for k, fut in enumerate(as_completed(futures), start=1):
             try:
                 rows.append(fut.result())
             except Exception as exc:  # noqa: BLE001 - a task that failed on every retry (a worker killed each time)
-                name = str(fut.key).removeprefix("vehicle-")
-                rows.append({"vehicle": name, "report": None,
-                             "figures": VehicleFigures(vehicle=name, error=f"task failed: {exc}", flags=["error"],
-                                                       urgency=FLAG_WEIGHTS["error"]).to_json()})
+                rows.append(_error_row(str(fut.key).removeprefix("vehicle-"), f"task failed: {exc}"))
             if progress is not None:
                 progress(k, len(futures))
         workers = len(client.scheduler_info().get("workers", {}))
@@ -340,7 +541,7 @@ def fleet_report(dataset: str, vehicles: list[str] | None = None, *, scheduler: 
         if cluster is not None:
             cluster.close()
     rows = sort_by_urgency(rows)
-    return {"dataset": str(dataset), "vehicles": len(names), "workers": workers,
+    return {"dataset": str(dataset), "vehicles": len(names), "workers": workers, "tasks": tasks,
             "scheduler": scheduler or "local", "fleet": [r["figures"] for r in rows],
             "reports": {r["vehicle"]: r["report"] for r in rows}}
 

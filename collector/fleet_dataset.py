@@ -1017,6 +1017,21 @@ def vehicle_months(dataset: str | os.PathLike[str], name: str) -> list[str]:
     return _months(ds, name)
 
 
+def month_rows(dataset: str | os.PathLike[str], name: str) -> dict[str, int]:
+    """Readings per UTC month (YYYY-MM) of one vehicle, from the live parts' Parquet footers
+    (no data read): what a task reading those months will hold in memory. Several live parts
+    of one month (a foreign writer's) count in full, an upper bound."""
+    import pyarrow.parquet as pq
+
+    ds = _FS(dataset)
+    out: dict[str, int] = {}
+    for month in _months(ds, name):
+        folder = _month_dir(ds, name, month)
+        out[month] = sum(pq.read_metadata(f"{folder}/{n}", filesystem=ds.arrow).num_rows
+                         for n in _parts(ds, folder).live)
+    return out
+
+
 def _months(ds: _FS, name: str) -> list[str]:
     out = []
     for n in ds.names(_vehicle_dir(ds, name)):

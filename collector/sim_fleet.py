@@ -9,7 +9,7 @@ Options
 -------
 ``--fleet N``    number of vehicles (at least 1); they are named ``van-001``, ``van-002``, ...
 ``--days D``     local calendar days per vehicle (at least 1), from :data:`FLEET_START` (26
-                 September 2026: a 10-day run already spans two calendar months)
+                 September 2025: a 10-day run already spans two calendar months)
 ``--out DIR``    the folder to write (created; must not be a file); files of the same names in it
                  are replaced
 ``--interval S`` sample interval [s] of the readings (default 10 s)
@@ -21,7 +21,7 @@ Options
 Layout (other code reads it)::
 
     DIR/fleet.json                  {"vehicles": [{"name": "van-001", "path": "van-001"}, ...],
-                                     "days": D, "seed": SEED, "interval_s": S, "start_date": "2026-09-26"}
+                                     "days": D, "seed": SEED, "interval_s": S, "start_date": "2025-09-26"}
     DIR/<name>/system.toml          the vehicle's system description (what its owner would write)
     DIR/<name>/readings.parquet     its readings, as ``drawdown export readings --format parquet`` writes
                                     them (the export's own writer, schema v1, metadata and encodings)
@@ -95,8 +95,9 @@ from typing import Any
 
 import numpy as np
 
-#: The fleet's first local day (a 10-day run spans September and October).
-FLEET_START = dt.date(2026, 9, 26)
+#: The fleet's first local day (a 10-day run spans September and October; a run of up to 14 months
+#: ends before this code was written, so every reading imports: an import refuses times after tomorrow).
+FLEET_START = dt.date(2025, 9, 26)
 DEFAULT_SEED = 1
 DEFAULT_INTERVAL_S = 10.0
 #: Days in the "month" of ``fade_pct_per_month`` (the mean Gregorian month).

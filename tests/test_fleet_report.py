@@ -205,14 +205,18 @@ def test_a_worker_killed_mid_run_does_not_stop_the_report(fleet_dataset_dir, das
     assert all(f["error"] is None for f in out["fleet"]), [f["error"] for f in out["fleet"]]
 
 
-@pytest.mark.slow
-def test_the_fade_trend_recovers_the_simulated_fade_within_its_interval(tmp_path, capsys):
-    # 100 days of three invented vans (seed 5: van-001 is an AGM bank fading ~1.8 % of rated a month)
-    sim, dataset = tmp_path / "sim", tmp_path / "dataset"
+@pytest.fixture(scope="module")
+def long_fleet(tmp_path_factory):
+    """100 days of three invented vans (seed 5: van-001 is an AGM bank fading ~1.8 % of rated a month)."""
+    tmp = tmp_path_factory.mktemp("long-fleet")
+    sim, dataset = tmp / "sim", tmp / "dataset"
     assert main(["--quiet", "simulate", "--fleet", "3", "--days", "100", "--interval", "300", "--seed", "5",
                  "--out", str(sim)]) == 0
     assert main(["--quiet", "fleet", "ingest", str(sim), "--dataset", str(dataset)]) == 0
-    out = _report_json(capsys, ["--quiet", "fleet", "report", "--dataset", str(dataset), "--json"])
+    return sim, dataset
+
+
+def _check_fade_recovered(out: dict, sim: Path) -> None:
     with_fade = 0
     for f in out["fleet"]:
         truth = json.loads((sim / f["vehicle"] / "truth.json").read_text())
@@ -225,3 +229,77 @@ def test_the_fade_trend_recovers_the_simulated_fade_within_its_interval(tmp_path
     assert with_fade >= 2
     fast = next(f for f in out["fleet"] if f["vehicle"] == "van-001")
     assert "fading_fast" in fast["flags"] and fast["fade_pct_per_month"] > 1.0
+
+
+@pytest.mark.slow
+def test_the_fade_trend_recovers_the_simulated_fade_within_its_interval(long_fleet, capsys):
+    sim, dataset = long_fleet
+    out = _report_json(capsys, ["--quiet", "fleet", "report", "--dataset", str(dataset), "--json"])
+    assert out["tasks"] == 3                              # each vehicle fits one task: whole
+    assert all(f["parts"] == [] for f in out["fleet"])
+    _check_fade_recovered(out, sim)
+
+
+def test_parts_are_whole_local_months_within_the_budget_and_cover_everything():
+    rows = {"2026-01": 9, "2026-02": 8, "2026-03": 9, "2026-04": 3, "2026-05": 9}
+    assert fleet.plan_parts(rows, "Europe/Berlin", max_readings=100) == [(None, None)]     # fits: one task
+    parts = fleet.plan_parts(rows, "Europe/Berlin", max_readings=12)
+    # Jan | Feb | Mar+Apr | May: each within 12 readings, a month never split
+    assert parts == [(None, "2026-01-31T23:00:00+00:00"), ("2026-01-31T23:00:00+00:00", "2026-02-28T23:00:00+00:00"),
+                     ("2026-02-28T23:00:00+00:00", "2026-04-30T22:00:00+00:00"), ("2026-04-30T22:00:00+00:00", None)]
+    # a month over the budget is still one part (the smallest unit)
+    assert len(fleet.plan_parts({"2026-01": 50, "2026-02": 50}, "UTC", max_readings=10)) == 2
+
+
+@pytest.mark.slow
+def test_a_long_vehicle_is_analysed_in_month_parts_each_as_drawdown_report_from_to_gives_it(long_fleet, capsys,
+                                                                                             tmp_path):
+    import pandas as pd
+
+    from drawdown.analysis.capacity import estimate_capacity
+    from drawdown.analysis.system import parse_system
+    from drawdown.collector import fleet_dataset
+
+    sim, dataset = long_fleet
+    budget = 40_000  # readings a task; at 300 s on these vans a month is ~25-45 k: parts of one or two months
+    out = _report_json(capsys, ["--quiet", "fleet", "report", "--dataset", str(dataset), "--json",
+                                "--task-readings", str(budget)])
+    assert out["tasks"] > 3 * 2
+    for f in out["fleet"]:
+        name = f["vehicle"]
+        assert f["error"] is None and "part_failed" not in f["flags"], f
+        parts = f["parts"]
+        assert len(parts) >= 3 and parts[0]["start"] is None and parts[-1]["end"] is None
+        assert all(a["end"] == b["start"] for a, b in zip(parts, parts[1:]))       # no gap, no overlap
+        assert sum(p["readings"] for p in parts) == sum(fleet_dataset.month_rows(dataset, name).values())
+        system_path = sim / name / "system.toml"
+        tz = parse_system(system_path.read_text()).site.timezone
+        store = tmp_path / f"{name}.sqlite"
+        base = ["--quiet", "--store", str(store), "--system", str(system_path)]
+        assert main([*base, "import", str(sim / name / "readings.parquet")]) == 0
+        days: list[dict] = []
+        pairs = []
+        for p in parts:
+            argv = [*base, "report", "--json"]
+            if p["start"]:
+                argv += ["--from", pd.Timestamp(p["start"]).tz_convert(tz).date().isoformat()]
+            if p["end"]:
+                argv += ["--to", (pd.Timestamp(p["end"]).tz_convert(tz) - pd.Timedelta(days=1)).date().isoformat()]
+            own = _report_json(capsys, argv)
+            days += own["days"]
+            pairs += own["battery"]["anchor_pairs"]
+        fleet_rep = out["reports"][name]
+        for a, b in zip(fleet_rep["days"], days):
+            assert a == b, {k: (a.get(k), b.get(k)) for k in set(a) | set(b) if a.get(k) != b.get(k)}
+        assert fleet_rep["days"] == days                  # each part's days are drawdown report --from --to's
+        assert fleet_rep["battery"]["anchor_pairs"] == pairs
+        assert [d["date"] for d in days] == sorted({d["date"] for d in days})   # every local day once
+        # the capacity: the one-store estimator over every part's pairs
+        reports = [fleet.analyse_part(str(dataset), name, p["start"], p["end"], False)["report"] for p in parts]
+        est = estimate_capacity([q for r in reports for q in r.capacity.pairs], parse_system(system_path.read_text()))
+        if est.usable_Ah is None:
+            assert f["usable_Ah"] is None and f["usable_Ah_why"]
+        else:
+            assert f["usable_Ah"] == pytest.approx(est.usable_Ah, rel=1e-9)
+            assert f["usable_Ah_ci95"] == pytest.approx(list(est.ci95_Ah), rel=1e-9)
+    _check_fade_recovered(out, sim)

@@ -1,6 +1,6 @@
 """``drawdown simulate --fleet`` (collector.sim_fleet) and the simulator's capacity fade, through the real CLI.
 
-A small fleet (4 vehicles x 10 days at 60 s, from 26 September 2026: the run spans two calendar
+A small fleet (4 vehicles x 10 days at 60 s, from 26 September 2025: the run spans two calendar
 months) is written once per module. Outside references: the Parquet format begins and ends a file
 with the magic bytes ``PAR1`` (Apache Parquet format specification); a 24 V lead-acid bank is two
 12 V blocks in series and a 24 V LiFePO4 bank two 4-cell 12.8 V blocks (common practice).
@@ -103,7 +103,7 @@ def test_each_vehicle_imports_with_nothing_rejected_and_round_trips(fleet, tmp_p
 def test_truth_capacity_fades_month_over_month_by_the_stated_fade(fleet):
     for name, t in _truths(fleet).items():
         months = t["usable_Ah_by_month"]
-        assert [m["month"] for m in months] == ["2026-09", "2026-10"], name
+        assert [m["month"] for m in months] == ["2025-09", "2025-10"], name
         assert sum(m["days"] for m in months) == DAYS
         per_day = t["rated_Ah"] * t["fade_pct_per_month"] / 100.0 / 30.4375
         assert t["fade_Ah_per_day"] == pytest.approx(per_day)

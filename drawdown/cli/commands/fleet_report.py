@@ -1,4 +1,5 @@
-"""``drawdown fleet report --dataset DIR [--scheduler ADDRESS] [--workers N] [--vehicle NAME]... [--json]``
+"""``drawdown fleet report --dataset DIR [--scheduler ADDRESS] [--workers N] [--vehicle NAME]...
+[--task-readings N] [--json]``
 and ``drawdown fleet sql "SELECT ..." --dataset DIR [--json]`` (the analysis half of ``drawdown fleet``).
 
 ``report`` runs the per-vehicle analysis of ``drawdown report`` as Dask tasks (analysis/fleet.py)
@@ -23,6 +24,9 @@ def add_report_arguments(s: argparse.ArgumentParser) -> None:
     s.add_argument("--workers", type=int, default=2, metavar="N", help="local cluster worker processes (default 2)")
     s.add_argument("--memory-limit", default="4GB", metavar="SIZE", help="per local worker (default 4GB)")
     s.add_argument("--vehicle", action="append", metavar="NAME", help="only these vehicles (repeatable)")
+    s.add_argument("--task-readings", type=int, default=None, metavar="N",
+                   help="readings one task may analyse; a longer vehicle is analysed in parts of whole months "
+                        "(default 15,000,000: fits a 4 GB worker; docs/fleet.md#memory)")
     s.add_argument("--json", action="store_true")
 
 
@@ -72,12 +76,17 @@ def run_report(args: Any, ctx: Context) -> int:
         names = [n for n in names if n in set(args.vehicle)]
     if args.workers < 1:
         raise UsageError(f"--workers must be at least 1, got {args.workers}")
+    from drawdown.analysis.fleet import TASK_READINGS
+
+    task_readings = TASK_READINGS if args.task_readings is None else args.task_readings
+    if task_readings < 1000:
+        raise UsageError(f"--task-readings must be at least 1000, got {args.task_readings}")
     with bar(total=len(names), desc="vehicles", unit="vehicle") as b:
         def step(done: int, total: int) -> None:
             b.update(done - b.n)
 
         out = fleet_report(args.dataset, names, scheduler=args.scheduler, n_workers=args.workers,
-                           memory_limit=args.memory_limit, progress=step)
+                           memory_limit=args.memory_limit, max_readings=task_readings, progress=step)
     if args.json:
         print_json(out)
         return 0
