@@ -11,10 +11,17 @@ channels), written by ``drawdown simulate --fleet`` under benchmarks/data/ (git-
   (what a shell loop over ``drawdown report`` would do, without the process start-ups), on the
   first ``--baseline-vehicles`` vehicles, scaled to the fleet.
 
+``--year`` instead measures the memory bound: one vehicle, a year at 1 Hz (~160 M readings on
+five channels), reported on one worker of 4 GB. The vehicle is analysed in parts of whole months
+(analysis/fleet.py ``TASK_READINGS``); the figures are the worker's peak RSS, the tasks, the
+time, and the memory one whole-vehicle task would need, projected from the same worker's
+measured bytes per reading (it is not run: it would not fit).
+
 Usage::
 
     python benchmarks/fleet_bench.py --vehicles 20 --days 10      # quick
     python benchmarks/fleet_bench.py                               # the issue's size (long)
+    python benchmarks/fleet_bench.py --year                        # a vehicle-year at 1 Hz, 4 GB worker
 """
 
 from __future__ import annotations
@@ -66,6 +73,38 @@ def report_on(dataset: str, workers: int) -> dict:
             "peak_rss_MB_per_worker": sorted(rss.values())}
 
 
+def year_on_one_worker(fleet_dir: Path, memory_limit: str = "4GB") -> dict:
+    """Ingest the one-vehicle year and report it on one worker of ``memory_limit``."""
+    from dask.distributed import Client, LocalCluster
+
+    from drawdown.analysis.fleet import TASK_READINGS, fleet_report
+    from drawdown.collector import fleet_dataset
+
+    out: dict = {"memory_limit": memory_limit, "task_readings": TASK_READINGS}
+    with tempfile.TemporaryDirectory(prefix="drawdown-fleet-year-") as tmp:
+        dataset = str(Path(tmp) / "dataset")
+        out["ingest_s"] = _timed([*_drawdown(), "--quiet", "fleet", "ingest", str(fleet_dir), "--dataset", dataset])
+        name = fleet_dataset.vehicles(dataset)[0]
+        out["readings"] = sum(fleet_dataset.month_rows(dataset, name).values())
+        with LocalCluster(n_workers=1, threads_per_worker=1, memory_limit=memory_limit, processes=True,
+                          dashboard_address=None) as cluster, Client(cluster) as client:
+            base = min(client.run(_peak_rss_MB).values())
+            t0 = time.perf_counter()
+            rep = fleet_report(dataset, scheduler=cluster.scheduler_address)
+            out["report_s"] = time.perf_counter() - t0
+            out["peak_rss_MB"] = max(client.run(_peak_rss_MB).values())
+            out["worker_start_rss_MB"] = base
+        f = rep["fleet"][0]
+        out["tasks"] = rep["tasks"]
+        out["parts"] = len(f["parts"])
+        out["largest_part_readings"] = max((p["readings"] for p in f["parts"]), default=out["readings"])
+        out["error"] = f.get("error")
+        out["flags"] = f.get("flags")
+        per_reading = (out["peak_rss_MB"] - base) / max(out["largest_part_readings"], 1)
+        out["projected_whole_vehicle_task_MB"] = base + per_reading * out["readings"]
+    return out
+
+
 def baseline(dataset: str, n: int) -> dict:
     from drawdown.analysis.fleet import analyse_vehicle
     from drawdown.collector import fleet_dataset
@@ -86,7 +125,10 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--baseline-vehicles", type=int, default=5)
     p.add_argument("--data-dir", type=Path, default=HERE / "data")
     p.add_argument("--json", action="store_true")
+    p.add_argument("--year", action="store_true", help="one vehicle, 365 days at 1 Hz, on one 4 GB worker")
     args = p.parse_args(argv)
+    if args.year:
+        return main_year(args)
     fleet_dir = args.data_dir / f"fleet_{args.vehicles}x{args.days}d_{args.interval:g}s"
     out: dict = {"cpu_count": os.cpu_count(), "vehicles": args.vehicles, "days": args.days,
                  "interval_s": args.interval}
@@ -126,6 +168,29 @@ def main(argv: list[str] | None = None) -> int:
     b = out["baseline_loop"]
     print(f"  baseline loop: {b['seconds_per_vehicle']:.2f} s a vehicle -> {b['projected_fleet_s']:.1f} s for the "
           f"fleet; 2 workers take {out['ratio_2_workers_to_loop']:.2f} of that")
+    return 0
+
+
+def main_year(args: argparse.Namespace) -> int:
+    fleet_dir = args.data_dir / "fleet_1x365d_1s"
+    out: dict = {"cpu_count": os.cpu_count(), "vehicles": 1, "days": 365, "interval_s": 1.0}
+    if not (fleet_dir / "fleet.json").exists():
+        out["simulate_s"] = _timed([*_drawdown(), "--quiet", "simulate", "--fleet", "1", "--days", "365",
+                                    "--interval", "1", "--seed", "2", "--out", str(fleet_dir)])
+    out.update(year_on_one_worker(fleet_dir))
+    if args.json:
+        print(json.dumps(out, indent=2))
+        return 0
+    print(f"a vehicle-year at 1 Hz: {out['readings']:,} readings, one worker of {out['memory_limit']}")
+    if "simulate_s" in out:
+        print(f"  simulate            {out['simulate_s']:8.1f} s")
+    print(f"  ingest              {out['ingest_s']:8.1f} s")
+    print(f"  report              {out['report_s']:8.1f} s   {out['tasks']} tasks ({out['parts']} parts of whole "
+          f"months, largest {out['largest_part_readings']:,} readings; budget {out['task_readings']:,})"
+          + (f"   error: {out['error']}" if out["error"] else ""))
+    print(f"  worker peak RSS     {out['peak_rss_MB']:8.0f} MB  (started at {out['worker_start_rss_MB']:.0f} MB)")
+    print(f"  one whole-vehicle task would need ~{out['projected_whole_vehicle_task_MB'] / 1024:.1f} GB "
+          "(projected from this run's bytes per reading; not run)")
     return 0
 
 
