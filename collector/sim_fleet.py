@@ -15,7 +15,8 @@ Options
 ``--interval S`` sample interval [s] of the readings (default 10 s)
 ``--seed SEED``  fleet seed (default :data:`DEFAULT_SEED`); the same (N, D, SEED, S) gives the same
                  vehicles and the same figures, and vehicle k is the same in a fleet of any size
-                 (a smaller fleet is a prefix of a larger one; a shorter run a prefix of a longer one)
+                 (a smaller fleet is a prefix of a larger one; a shorter run a prefix of a longer one,
+                 except a use-jump vehicle's jump, which sits at the run's middle day)
 ``--json``       one JSON object on stdout: the manifest, plus rows and seconds
 
 Layout (other code reads it)::
@@ -51,6 +52,9 @@ row already differ):
   Sunday, hooked up at the depot Monday to Thursday nights when the van has a shore charger);
 * the charging: 100-520 W of flat roof solar through MPPT or PWM, a 20-40 A DC-DC charger, and a
   shore charger on about 70 % of the vans;
+* a use jump on one vehicle in :data:`USE_JUMP_EVERY`: from the run's middle day a load is added
+  (220 Wh a day on a light user, 400 Wh on a heavy one), so the fleet report's ``use_up`` flag has
+  something to find beside the season's own rise (heater nights as autumn cools);
 * the site: nine invented touring regions from 61 degN to 43 degS, eight timezones (southern
   hemisphere vans are in spring, northern ones in autumn).
 
@@ -71,7 +75,8 @@ charged Ah and Wh per local day, ``solar``, ``full_charges``, ``loads_Wh``, ``de
 ``usable_Ah_by_day`` (``date``, ``usable_Ah``, ``from``: the UTC instant the day's capacity took over,
 at or a little after local midnight); ``usable_Ah_by_month`` (``month`` YYYY-MM of the local calendar,
 ``days``, ``usable_Ah_start``, ``usable_Ah_end``, ``usable_Ah_mean``);
-``use`` (light/heavy), ``pattern`` (full-time/weekend), ``site`` (``name``, ``latitude_deg``,
+``use`` (light/heavy), ``pattern`` (full-time/weekend), ``use_jump`` (``from_date``,
+``added_Wh_per_day``; null without one), ``site`` (``name``, ``latitude_deg``,
 ``longitude_deg``, ``timezone``, ``altitude_m``); ``consumed_Ah_by_day`` (``date``, ``consumed_Ah``,
 ``consumed_Wh``), ``mean_consumed_Ah_per_day``; ``drive_days`` and ``shore_nights`` (local dates);
 ``soc_min_pct`` (the lowest true state of charge of the run) and ``readings`` (file, rows per
@@ -88,7 +93,7 @@ import math
 import os
 from collections.abc import Callable, Iterator
 from concurrent.futures import ProcessPoolExecutor, as_completed
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 from multiprocessing import get_context
 from pathlib import Path
 from typing import Any
@@ -150,6 +155,8 @@ SIZES_AH: dict[tuple[str, int], tuple[float, ...]] = {
 #: Fade classes in the order the fleet cycles through, with their range [% of rated per month].
 FADE_CYCLE: tuple[str, ...] = ("healthy", "moderate", "healthy", "fast", "healthy", "moderate", "moderate")
 FADE_RANGE: dict[str, tuple[float, float]] = {"healthy": (0.0, 0.3), "moderate": (0.4, 1.0), "fast": (1.4, 2.0)}
+#: One vehicle in this many has its use jump mid-run (``VehicleSpec.use_jump``).
+USE_JUMP_EVERY = 4
 
 
 @dataclass(frozen=True)
@@ -175,6 +182,13 @@ class VehicleSpec:
     alternator_A: float
     shore_A: float                 # 0: no shore charger
     initial_soc_pct: float
+    #: From the run's middle day a load is added (a cool box and more inverter use): the daily
+    #: use rises by ~40 % against the vehicle's own first half (the fleet's ``use_up`` flag).
+    use_jump: bool = False
+
+    @property
+    def use_jump_Wh(self) -> float:
+        return 400.0 if self.use == "heavy" else 220.0
 
     @property
     def nominal_V(self) -> float:
@@ -191,7 +205,8 @@ class VehicleSpec:
                 f"({self.fade_pct_per_month:.2f} % of rated a month); {self.use} {self.pattern} use; "
                 f"{self.solar_W:g} W solar ({self.controller.upper()}), {self.alternator_A:g} A DC-DC"
                 + (f", {self.shore_A:g} A shore charger" if self.shore_A else ", no shore charger")
-                + f"; {self.site.name}")
+                + f"; {self.site.name}"
+                + (f"; use up ~{self.use_jump_Wh:g} Wh a day from the run's middle day" if self.use_jump else ""))
 
 
 def vehicle_name(index: int) -> str:
@@ -206,7 +221,9 @@ def fleet_specs(n: int, seed: int = DEFAULT_SEED) -> list[VehicleSpec]:
     mix = np.random.default_rng([seed, 0xF1EE7])
     kind_offset = int(mix.integers(len(BANK_KINDS)))
     fade_offset = int(mix.integers(len(FADE_CYCLE)))
-    return [_spec(k, seed, kind_offset, fade_offset) for k in range(n)]
+    jump_offset = int(mix.integers(USE_JUMP_EVERY))
+    return [replace(_spec(k, seed, kind_offset, fade_offset), use_jump=(k + jump_offset) % USE_JUMP_EVERY == 0)
+            for k in range(n)]
 
 
 def _spec(k: int, seed: int, kind_offset: int, fade_offset: int) -> VehicleSpec:
@@ -351,6 +368,11 @@ def vehicle_scenario(spec: VehicleSpec, days: int) -> Any:
 
     rng = np.random.default_rng([spec.sim_seed, 0x5CE])
     loads = _loads(spec, rng)
+    if spec.use_jump and days >= 2:
+        hours = 5.0
+        loads["extra"] = [*loads.get("extra", []),
+                          {"name": "added cool box and inverter use", "power_W": round(spec.use_jump_Wh / hours, 1),
+                           "start_h": 11.0, "hours": hours, "from_day": days // 2}]
     battery = _battery_truth(spec, rng)
     battery.update(state_of_health_pct=spec.state_of_health_pct, initial_soc_pct=spec.initial_soc_pct)
     drive, shore = _calendar(spec, days)
@@ -485,6 +507,8 @@ def vehicle_truth(spec: VehicleSpec, sim: Any, interval_s: float, readings: _Rea
         "fade_pct_per_month": spec.fade_pct_per_month, "fade_Ah_per_day": spec.fade_Ah_per_day,
         "fade_class": spec.fade_class, "usable_Ah_by_day": by_day, "usable_Ah_by_month": _months(by_day),
         "use": spec.use, "pattern": spec.pattern,
+        "use_jump": ({"from_date": (start + dt.timedelta(days=sim.days // 2)).isoformat(),
+                      "added_Wh_per_day": spec.use_jump_Wh} if spec.use_jump and sim.days >= 2 else None),
         "site": {"name": spec.site.name, "latitude_deg": spec.site.latitude_deg,
                  "longitude_deg": spec.site.longitude_deg, "timezone": tz, "altitude_m": spec.site.altitude_m},
         "consumed_Ah_by_day": consumed,

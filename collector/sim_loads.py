@@ -180,6 +180,8 @@ def build_load_events(p: Loads, *, day_start_s: np.ndarray, step_t_s: np.ndarray
                 add("inverter", np.array([s]), np.array([s + dur]),
                     np.array([p.laptop_W * rng.uniform(0.8, 1.2) / eta + p.inverter_idle_W]))
         for ex in p.extra:
+            if d < ex.from_day:
+                continue
             s = t0 + (ex.start_h + rng.normal(0, 0.2)) * 3600
             add(ex.name, np.array([s]), np.array([s + ex.hours * 3600]), np.array([ex.power_W]))
 

@@ -96,6 +96,7 @@ class ExtraLoad(_Strict):
     power_W: float = Field(ge=0, le=5000)
     start_h: float = Field(ge=0, lt=24)
     hours: float = Field(gt=0, le=24)
+    from_day: int = Field(default=0, ge=0)   # first day (index) it runs: a load fitted mid-trip
 
 
 class Loads(_Strict):

@@ -131,6 +131,27 @@ def test_fleet_report_gives_each_vehicle_exactly_what_drawdown_report_gives(flee
         assert f["daily_use_Ah_p50"] == pytest.approx(float(np.percentile(used, 50)), abs=2e-3)
 
 
+@pytest.mark.slow
+def test_use_up_is_flagged_where_the_simulated_use_really_rose(fleet_dataset_dir, capsys):
+    # The truth: the simulator's own consumed Ah per day (truth.json), on the days the report
+    # counts as complete, halved as the flag halves them. A vehicle flagged must have a true rise
+    # above the +25 % mark; one not flagged must not (a margin of 5 points each side).
+    sim, dataset = fleet_dataset_dir
+    out = _report_json(capsys, ["--quiet", "fleet", "report", "--dataset", str(dataset), "--json"])
+    seen = {True: 0, False: 0}
+    for f in out["fleet"]:
+        truth = json.loads((sim / f["vehicle"] / "truth.json").read_text())
+        complete = {d["date"] for d in out["reports"][f["vehicle"]]["days"] if d["complete"]}
+        used = [d["consumed_Ah"] for d in truth["consumed_Ah_by_day"] if d["date"] in complete]
+        half = len(used) // 2
+        rise = float(np.median(used[half:]) / np.median(used[:half])) - 1.0
+        flagged = "use_up" in f["flags"]
+        if abs(rise - fleet.USE_UP_FLAG_SHARE) > 0.05:
+            assert flagged == (rise > fleet.USE_UP_FLAG_SHARE), (f["vehicle"], rise, f["flag_reasons"])
+            seen[flagged] += 1
+    assert seen[True] >= 1 and seen[False] >= 1, seen   # both kinds in this fleet (seasonal heating, a jump)
+
+
 def _start(argv: list[str], log: Path) -> subprocess.Popen:
     env = {**os.environ, "PYBAMM_DISABLE_TELEMETRY": "true"}
     return subprocess.Popen(argv, stdout=open(log, "wb"), stderr=subprocess.STDOUT, env=env,
