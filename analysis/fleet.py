@@ -73,6 +73,21 @@ FLAG_WEIGHTS = {"capacity_low": 5.0, "cold_charging": 4.0, "fading_fast": 3.0, "
 #: 1 Hz on five channels fits one task. A month is the smallest part: a vehicle logging more than
 #: this in one month needs bigger workers (docs/fleet.md#memory).
 TASK_READINGS = 15_000_000
+#: The same measurement as a rule for any worker: a task may take 65 % of the smallest worker's
+#: memory limit (under dask's 80 % pause mark, room for the result) at 150 bytes a reading over
+#: a 0.3 GB start; 4 GB gives ~15 M (:data:`TASK_READINGS`).
+TASK_MEMORY_SHARE = 0.65
+TASK_BYTES_PER_READING = 150.0
+TASK_BASE_BYTES = 0.3e9
+
+
+def task_readings_for(memory_limit_bytes: float | None) -> int:
+    """Readings one task may take on a worker of ``memory_limit_bytes`` (None or 0: no limit
+    known, :data:`TASK_READINGS`); at least 1 M."""
+    if not memory_limit_bytes:
+        return TASK_READINGS
+    budget = (TASK_MEMORY_SHARE * float(memory_limit_bytes) - TASK_BASE_BYTES) / TASK_BYTES_PER_READING
+    return max(1_000_000, int(budget))
 
 
 @dataclass(frozen=True)
@@ -487,14 +502,15 @@ def plan_vehicle(dataset: str, name: str, max_readings: int = TASK_READINGS
 
 def fleet_report(dataset: str, vehicles: list[str] | None = None, *, scheduler: str | None = None,
                  n_workers: int = 2, memory_limit: str = "4GB", retries: int = 2,
-                 max_readings: int = TASK_READINGS,
+                 max_readings: int | None = None,
                  progress: Callable[[int, int], None] | None = None) -> dict[str, Any]:
     """Run the fleet's analysis as Dask tasks and collect the fleet table.
 
     Each vehicle is one :func:`analyse_vehicle` task when its readings fit ``max_readings``;
     a longer one is :func:`analyse_part` tasks (:func:`plan_parts`) and one
     :func:`combine_parts` task fed by their futures, so no task holds more than
-    ``max_readings`` readings. ``scheduler``: the address of a running ``dask.distributed``
+    ``max_readings`` readings (None: :func:`task_readings_for` the smallest worker's memory
+    limit, as the scheduler reports it). ``scheduler``: the address of a running ``dask.distributed``
     scheduler (``tcp://host:8786``); None starts a LocalCluster of ``n_workers``
     single-threaded worker processes with ``memory_limit`` each. A task lost with its worker is
     run again (``retries``). ``progress(done, total)`` counts vehicles.
@@ -513,6 +529,9 @@ def fleet_report(dataset: str, vehicles: list[str] | None = None, *, scheduler: 
         client = Client(scheduler)
     tasks = 0
     try:
+        if max_readings is None:
+            limits = [w.get("memory_limit") or 0 for w in client.scheduler_info().get("workers", {}).values()]
+            max_readings = task_readings_for(min(limits) if limits and all(limits) else None)
         futures = []
         for n in names:
             parts, text = plan_vehicle(dataset, n, max_readings)
@@ -542,6 +561,7 @@ def fleet_report(dataset: str, vehicles: list[str] | None = None, *, scheduler: 
             cluster.close()
     rows = sort_by_urgency(rows)
     return {"dataset": str(dataset), "vehicles": len(names), "workers": workers, "tasks": tasks,
+            "task_readings": max_readings,
             "scheduler": scheduler or "local", "fleet": [r["figures"] for r in rows],
             "reports": {r["vehicle"]: r["report"] for r in rows}}
 

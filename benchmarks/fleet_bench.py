@@ -13,7 +13,7 @@ channels), written by ``drawdown simulate --fleet`` under benchmarks/data/ (git-
 
 ``--year`` instead measures the memory bound: one vehicle, a year at 1 Hz (~160 M readings on
 five channels), reported on one worker of 4 GB. The vehicle is analysed in parts of whole months
-(analysis/fleet.py ``TASK_READINGS``); the figures are the worker's peak RSS, the tasks, the
+(analysis/fleet.py ``task_readings_for`` the worker's memory limit); the figures are the worker's peak RSS, the tasks, the
 time, and the memory one whole-vehicle task would need, projected from the same worker's
 measured bytes per reading (it is not run: it would not fit).
 
@@ -77,10 +77,10 @@ def year_on_one_worker(fleet_dir: Path, memory_limit: str = "4GB") -> dict:
     """Ingest the one-vehicle year and report it on one worker of ``memory_limit``."""
     from dask.distributed import Client, LocalCluster
 
-    from drawdown.analysis.fleet import TASK_READINGS, fleet_report
+    from drawdown.analysis.fleet import fleet_report
     from drawdown.collector import fleet_dataset
 
-    out: dict = {"memory_limit": memory_limit, "task_readings": TASK_READINGS}
+    out: dict = {"memory_limit": memory_limit}
     with tempfile.TemporaryDirectory(prefix="drawdown-fleet-year-") as tmp:
         dataset = str(Path(tmp) / "dataset")
         out["ingest_s"] = _timed([*_drawdown(), "--quiet", "fleet", "ingest", str(fleet_dir), "--dataset", dataset])
@@ -96,6 +96,7 @@ def year_on_one_worker(fleet_dir: Path, memory_limit: str = "4GB") -> dict:
             out["worker_start_rss_MB"] = base
         f = rep["fleet"][0]
         out["tasks"] = rep["tasks"]
+        out["task_readings"] = rep["task_readings"]
         out["parts"] = len(f["parts"])
         out["largest_part_readings"] = max((p["readings"] for p in f["parts"]), default=out["readings"])
         out["error"] = f.get("error")

@@ -272,6 +272,15 @@ def test_parts_are_whole_local_months_within_the_budget_and_cover_everything():
     assert len(fleet.plan_parts({"2026-01": 50, "2026-02": 50}, "UTC", max_readings=10)) == 2
 
 
+def test_the_task_budget_follows_the_workers_memory():
+    # 4 GB (dask's "4GB" is 4e9 bytes) must take a month at 1 Hz on five channels in one task:
+    # 31 x 86,400 x 5 = 13.4 M readings, measured at 2.4 GB peak on such a worker
+    assert 31 * 86_400 * 5 <= fleet.task_readings_for(4e9) <= 16_000_000
+    assert fleet.task_readings_for(8e9) > 2 * fleet.task_readings_for(4e9) - 3_000_000
+    assert fleet.task_readings_for(None) == fleet.TASK_READINGS
+    assert fleet.task_readings_for(0.5e9) == 1_000_000          # never below a floor
+
+
 @pytest.mark.slow
 def test_a_long_vehicle_is_analysed_in_month_parts_each_as_drawdown_report_from_to_gives_it(long_fleet, capsys,
                                                                                              tmp_path):

@@ -26,7 +26,8 @@ def add_report_arguments(s: argparse.ArgumentParser) -> None:
     s.add_argument("--vehicle", action="append", metavar="NAME", help="only these vehicles (repeatable)")
     s.add_argument("--task-readings", type=int, default=None, metavar="N",
                    help="readings one task may analyse; a longer vehicle is analysed in parts of whole months "
-                        "(default 15,000,000: fits a 4 GB worker; docs/fleet.md#memory)")
+                        "(default: from the smallest worker's memory limit, ~15,000,000 for 4 GB; "
+                        "docs/fleet.md#memory)")
     s.add_argument("--json", action="store_true")
 
 
@@ -76,10 +77,8 @@ def run_report(args: Any, ctx: Context) -> int:
         names = [n for n in names if n in set(args.vehicle)]
     if args.workers < 1:
         raise UsageError(f"--workers must be at least 1, got {args.workers}")
-    from drawdown.analysis.fleet import TASK_READINGS
-
-    task_readings = TASK_READINGS if args.task_readings is None else args.task_readings
-    if task_readings < 1000:
+    task_readings = args.task_readings
+    if task_readings is not None and task_readings < 1000:
         raise UsageError(f"--task-readings must be at least 1000, got {args.task_readings}")
     with bar(total=len(names), desc="vehicles", unit="vehicle") as b:
         def step(done: int, total: int) -> None:
