@@ -286,7 +286,7 @@ def vehicle_figures(name: str, report: Report, system: System, readings: pd.Data
     urgency = sum(FLAG_WEIGHTS[f] for f in flags) + (1.0 - min(share, 1.0))
     return VehicleFigures(
         vehicle=name, period=report.period, usable_Ah=usable,
-        usable_Ah_ci95=tuple(cap.ci95_Ah) if cap is not None and cap.ci95_Ah else None,
+        usable_Ah_ci95=(float(cap.ci95_Ah[0]), float(cap.ci95_Ah[1])) if cap is not None and cap.ci95_Ah else None,
         usable_Ah_why=cap.why if cap is not None else battery.get("usable_Ah_why"),
         rated_Ah=b.rated_capacity_Ah,
         state_of_health_pct=cap.state_of_health_pct if cap is not None else None,

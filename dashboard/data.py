@@ -518,11 +518,15 @@ class DataSource:
         The SQLite reading store.
     system_path
         ``system.toml``; it may not exist yet (the setup page can write it).
+    read_only
+        When given, the sentence that refuses every write (a fleet vehicle's pages show a copy
+        of the fleet dataset: :mod:`dashboard.fleet_source`); the setup page shows it.
     """
 
-    def __init__(self, store_path: str | Path, system_path: str | Path):
+    def __init__(self, store_path: str | Path, system_path: str | Path, *, read_only: str | None = None):
         self.store_path = Path(store_path)
         self.system_path = Path(system_path)
+        self.read_only = read_only
         self._write_lock = threading.Lock()
 
     @classmethod
@@ -626,6 +630,8 @@ class DataSource:
 
     def save_system_text(self, text: str) -> tuple[bool, str]:
         """Write ``system.toml`` only when the text is valid; (saved, message)."""
+        if self.read_only:
+            return False, f"{self.read_only}\nNothing was written."
         system, message = self.validate_system_text(text, source=self.system_path.name)  # no server path on a page
         if system is None:
             return False, message + "\nNothing was written."
@@ -936,6 +942,8 @@ class DataSource:
         """
         from drawdown.collector.importing import import_log
 
+        if self.read_only:
+            return {"ok": False, "error": f"{filename}: not imported. {self.read_only}"}
         try:
             _header, payload = contents.split(",", 1)
             raw = base64.b64decode(payload, validate=True)
@@ -971,10 +979,21 @@ class DataSource:
 
 
 def current() -> DataSource:
-    """The data source of the app handling this request (set by :func:`dashboard.app.create_app`)."""
+    """The data source of the app handling this request (set by :func:`dashboard.app.create_app`).
+
+    Served with a fleet dataset (``drawdown serve --dataset``), it is the data source of the vehicle
+    this browser opened from the Fleet page (its cookie, :mod:`dashboard.fleet_source`) once that
+    vehicle's store is ready; otherwise the one of ``--store``.
+    """
     import flask
 
-    return flask.current_app.config["DRAWDOWN_SOURCE"]
+    app = flask.current_app
+    fleet = app.config.get("DRAWDOWN_FLEET")
+    if fleet is not None and flask.has_request_context():
+        view = fleet.view_for_request(flask.request)
+        if view is not None:
+            return view.source
+    return app.config["DRAWDOWN_SOURCE"]
 
 
 def imports_table(imports: Iterable[dict[str, Any]]) -> list[dict[str, Any]]:

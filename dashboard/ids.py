@@ -13,6 +13,7 @@ from __future__ import annotations
 URL = "app-url"
 RANGE_STORE = "app-range-store"  # dcc.Store: {"start": "YYYY-MM-DD", "end": "YYYY-MM-DD"} shared by pages
 NAV = "app-nav"
+VEHICLE_BAR = "app-vehicle-bar"  # served with a fleet dataset: the vehicle these pages show
 
 # -- live view -----------------------------------------------------------------
 LIVE_INTERVAL = "live-interval"
@@ -61,3 +62,8 @@ SETUP_MESSAGES = "setup-messages"
 SETUP_UPLOAD = "setup-upload"
 SETUP_UPLOAD_RESULT = "setup-upload-result"
 SETUP_STORE_TABLE = "setup-store-table"
+
+# -- fleet (drawdown serve --dataset) ---------------------------------------------
+FLEET_BODY = "fleet-body"
+FLEET_INTERVAL = "fleet-interval"
+FLEET_TABLE = "fleet-table"

@@ -54,6 +54,7 @@ def layout(**_kwargs: Any) -> html.Div:
     text = source.system_text()
     return html.Div([
         page_head("System setup", "Describe the bank, the array and the chargers; bring in a log."),
+        *([notice(source.read_only, kind="info")] if source.read_only else []),  # a fleet vehicle: shown, not edited
         html.H2("System description"),
         html.P(f"File: {source.system_path.name}" + ("" if text is not None else " (not written yet: an example "
                                                 "is shown; edit it and save)"), className="hint"),
